@@ -1,0 +1,3 @@
+"""foldwise: nested cross-validation as a service."""
+
+__version__ = "0.1.0"

@@ -1,0 +1,1 @@
+"""Celery process side of foldwise (thin: the app, tasks that take ids, the schedule tick)."""
