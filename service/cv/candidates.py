@@ -1,0 +1,118 @@
+"""Candidates: concrete (family, hyperparameters) points in a fixed, reproducible order."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from sklearn.model_selection import ParameterGrid
+
+from service.cv.errors import SpecError
+from service.cv.estimators import check_params, estimator_class, has_random_state
+from service.cv.spec import FamilySpec, RangeSpec, SelectionSpec
+
+# A job fans out to outer k × inner k × candidates fits; past this many candidates a request is
+# almost surely a mistake (or a denial of service) and is refused before anything is stored.
+MAX_CANDIDATES = 2000
+
+# Estimators with a random_state but none given get this one, recorded in the candidate's
+# params, so that the same request always gives the same fold scores.
+DEFAULT_RANDOM_STATE = 0
+
+
+@dataclass(frozen=True)
+class Candidate:
+    """One concrete point: estimator class name, full hyperparameters and preprocessing."""
+
+    key: str
+    position: int
+    family: int
+    estimator: str
+    params: dict[str, Any]
+    preprocess: str
+
+    def public(self) -> dict[str, Any]:
+        """The candidate as result v1 shows it."""
+        return {"candidate_key": self.key, "estimator": self.estimator, "params": self.params}
+
+
+def candidate_key(estimator: str, params: dict[str, Any], preprocess: str) -> str:
+    """sha256 of the candidate's canonical JSON (sorted keys, no spaces)."""
+    body = {"estimator": estimator, "params": params, "preprocess": preprocess}
+    text = json.dumps(body, sort_keys=True, separators=(",", ":"), allow_nan=False)
+    return hashlib.sha256(text.encode()).hexdigest()
+
+
+def family_size(family: FamilySpec) -> int:
+    """How many points a family expands to, computed without expanding it."""
+    size = math.prod(len(v) for v in family.grid.values())
+    return size * (family.draws or 1)
+
+
+def draw_ranges(ranges: dict[str, RangeSpec], draws: int, seed: int) -> list[dict[str, Any]]:
+    """`draws` points from the ranges, one seeded generator, keys in sorted order."""
+    rng = np.random.default_rng(seed)
+    points: list[dict[str, Any]] = []
+    for _ in range(draws):
+        point: dict[str, Any] = {}
+        for name in sorted(ranges):
+            spec = ranges[name]
+            # integers are drawn on [low, high + 1) and floored, so `high` can be drawn too
+            high = spec.high + 1 if spec.integer else spec.high
+            if spec.log:
+                value = math.exp(rng.uniform(math.log(spec.low), math.log(high)))
+            else:
+                value = rng.uniform(spec.low, high)
+            point[name] = min(int(math.floor(value)), int(spec.high)) if spec.integer else value
+        points.append(point)
+    return points
+
+
+def enumerate_candidates(spec: SelectionSpec) -> list[Candidate]:
+    """Every candidate of the spec, families in order, each in ParameterGrid order.
+
+    Ranges are drawn and crossed with the grid (grid point outer, draw inner). A point that
+    equals an earlier one is dropped: it would always tie with its twin and lose the tie.
+    """
+    total = sum(family_size(f) for f in spec.families)
+    if total > MAX_CANDIDATES:
+        raise SpecError(
+            "families",
+            f"the search space has {total:,} candidates, more than the limit of "
+            f"{MAX_CANDIDATES:,}; use fewer grid values or draws.",
+        )
+    out: list[Candidate] = []
+    seen: set[str] = set()
+    for index, family in enumerate(spec.families):
+        field = f"families[{index}]"
+        cls = estimator_class(family.estimator, task=spec.task, field=f"{field}.estimator")
+        check_params(cls, family.fixed, field=f"{field}.fixed")
+        for name, values in family.grid.items():
+            for value in values:
+                check_params(cls, {name: value}, field=f"{field}.grid")
+        draws = (
+            draw_ranges(family.ranges, family.draws, family.draw_seed)
+            if family.ranges and family.draws
+            else [{}]
+        )
+        for point in draws:
+            check_params(cls, point, field=f"{field}.ranges")
+        defaults = {}
+        if has_random_state(cls) and "random_state" not in family.fixed:
+            defaults["random_state"] = DEFAULT_RANDOM_STATE
+        for grid_point in ParameterGrid(family.grid):
+            for draw in draws:
+                params = {**defaults, **family.fixed, **grid_point, **draw}
+                params = dict(sorted(params.items()))
+                key = candidate_key(family.estimator, params, spec.preprocess)
+                if key in seen:
+                    continue
+                seen.add(key)
+                out.append(
+                    Candidate(key, len(out), index, family.estimator, params, spec.preprocess)
+                )
+    return out

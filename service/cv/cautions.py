@@ -1,0 +1,99 @@
+"""Cautions a report carries: what the estimate does and does not say about new data."""
+
+from __future__ import annotations
+
+import re
+
+import numpy as np
+import pandas as pd
+
+from service.cv.plan import SelectionPlan
+
+ALWAYS = (
+    "A cross-validated estimate describes data like the data it was computed on; it says "
+    "nothing about rows drawn from a different population, place or time.",
+    "The standard deviation and standard error across outer folds are descriptive: k-fold "
+    "cross-validation has no unbiased variance estimator (Bengio & Grandvalet 2004), so do not "
+    "read them as a confidence interval.",
+)
+PEOPLE = (
+    "Some columns suggest this model may decide about people (credit, health, hiring or "
+    "similar): defer to domain review and the rules that apply before using it, and check its "
+    "errors across groups, which a single estimate does not show."
+)
+_TIME_WORDS = re.compile(r"(^|_)(date|time|timestamp|datetime|year|month|week|day)s?($|_)|_at$")
+_GROUP_WORDS = re.compile(r"(^|_)(id|site|patient|customer|user|subject|store|household)($|_)")
+_PEOPLE_WORDS = re.compile(
+    r"(^|_)(sex|gender|race|ethnicity|religion|marital|disability|nationality|income|salary|"
+    r"credit|loan|patient|diagnosis|applicant|employee|hire|hiring|birth|dob)($|_)"
+)
+
+
+def _tokens(name: str) -> str:
+    return re.sub(r"[^a-z0-9]+", "_", name.lower())
+
+
+def _tiny_classes(plan: SelectionPlan) -> list[str]:
+    if plan.spec.task != "classification":
+        return []
+    outer_k, inner_k = plan.spec.outer.k, plan.spec.inner.k
+    labels, counts = np.unique(plan.y, return_counts=True)
+    out = []
+    for label, count in zip(labels, counts, strict=True):
+        # rows of this class expected in one inner test fold
+        per_fold = count * (outer_k - 1) / outer_k / inner_k
+        if per_fold < 2:
+            out.append(
+                f"Class {label!r} has only {count} rows, about {per_fold:.1f} per inner test "
+                "fold: scores involving it are noisy and some folds may not contain it."
+            )
+    return out
+
+
+def _duplicates_across_folds(plan: SelectionPlan) -> list[str]:
+    hashes = pd.util.hash_pandas_object(plan.table.X, index=False).to_numpy()
+    leaked = 0
+    for fold in plan.outer:
+        leaked += int(np.isin(hashes[fold.test], hashes[fold.train]).sum())
+    if not leaked:
+        return []
+    return [
+        f"{leaked} outer test rows (summed over folds) have an exact duplicate of their feature "
+        "values in the training part; if they are the same entity recorded twice, the estimate "
+        "is optimistic: remove duplicates or split by group."
+    ]
+
+
+def _time_and_groups(plan: SelectionPlan, frame: pd.DataFrame, kinds: dict[str, str]) -> list[str]:
+    spec = plan.spec
+    out = []
+    shuffled = spec.outer.method != "time_series"
+    for name in frame.columns:
+        tokens = _tokens(str(name))
+        if name == spec.target:
+            continue
+        if shuffled and (kinds.get(str(name)) == "datetime" or _TIME_WORDS.search(tokens)):
+            out.append(
+                f"Column {name!r} looks like time but the outer split ignores time order: if "
+                "the model will predict the future, the estimate is optimistic; use "
+                f"time_series with order_by {name!r}."
+            )
+        grouped = spec.outer.method == "group_kfold"
+        if not grouped and _GROUP_WORDS.search(tokens) and frame[name].duplicated().any():
+            out.append(
+                f"Rows sharing a value of {name!r} land on both sides of outer folds; if rows "
+                f"of one {name} are alike, the estimate is optimistic: use group_kfold with "
+                f"groups {name!r}."
+            )
+    return out
+
+
+def find_cautions(plan: SelectionPlan, frame: pd.DataFrame, kinds: dict[str, str]) -> list[str]:
+    """Every caution that applies to this plan and table, the general ones first."""
+    cautions = list(ALWAYS)
+    cautions += _tiny_classes(plan)
+    cautions += _duplicates_across_folds(plan)
+    cautions += _time_and_groups(plan, frame, kinds)
+    if any(_PEOPLE_WORDS.search(_tokens(str(c))) for c in frame.columns):
+        cautions.append(PEOPLE)
+    return cautions

@@ -1,0 +1,174 @@
+"""A selection plan: the validated spec bound to a table, with every fold and candidate fixed."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import numpy.typing as npt
+import pandas as pd
+import sklearn
+
+from service.cv.candidates import Candidate, enumerate_candidates
+from service.cv.errors import SpecError
+from service.cv.metrics import check_metrics
+from service.cv.preprocess import FeatureTable, check_preprocess, feature_table
+from service.cv.spec import SelectionSpec
+from service.cv.splits import Fold, SplitInputs, split_rows
+
+FINAL_SCOPE = "all"  # the inner procedure run on all rows, which gives the final pick
+
+
+def library_versions() -> dict[str, str]:
+    """The versions that can change fold indices or scores."""
+    return {"scikit-learn": sklearn.__version__, "numpy": np.__version__}
+
+
+@dataclass(frozen=True)
+class SelectionPlan:
+    """Everything fixed before the first fit; every worker rebuilds the same plan."""
+
+    spec: SelectionSpec
+    candidates: list[Candidate]
+    table: FeatureTable
+    y: npt.NDArray[np.generic]
+    outer: list[Fold]
+    inner: dict[str, list[Fold]]  # outer scope (or FINAL_SCOPE) -> its inner folds
+    split_inputs: SplitInputs
+    versions: dict[str, str] = field(default_factory=library_versions)
+
+    @property
+    def n_rows(self) -> int:
+        """Rows in the table."""
+        return len(self.y)
+
+    @property
+    def scopes(self) -> list[str]:
+        """Outer fold scopes in (repeat, fold) order, then the final scope."""
+        return [f.scope for f in self.outer] + [FINAL_SCOPE]
+
+    def outer_fold(self, scope: str) -> Fold:
+        """The outer fold called `scope`."""
+        for fold in self.outer:
+            if fold.scope == scope:
+                return fold
+        raise KeyError(scope)
+
+    def candidate(self, key: str) -> Candidate:
+        """The candidate with `key`."""
+        for candidate in self.candidates:
+            if candidate.key == key:
+                return candidate
+        raise KeyError(key)
+
+
+def _column(frame: pd.DataFrame, name: str, field: str) -> pd.Series:
+    if name not in frame.columns:
+        cols = ", ".join(map(str, frame.columns[:8])) + (", ..." if frame.shape[1] > 8 else "")
+        raise SpecError(field, f"column {name!r} is not in the table (columns: {cols}).")
+    return frame[name]
+
+
+def _target(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) -> np.ndarray:
+    col = _column(frame, spec.target, "target")
+    missing = int(col.isna().sum())
+    if missing == len(col):
+        raise SpecError("target", f"target column {spec.target!r} has no values; pick another.")
+    if missing:
+        raise SpecError(
+            "target",
+            f"target column {spec.target!r} has {missing} missing values; drop or fill those "
+            "rows before selecting.",
+        )
+    if col.nunique() < 2:
+        raise SpecError(
+            "target", f"target column {spec.target!r} has a single value; nothing to predict."
+        )
+    kind = kinds.get(spec.target, "categorical")
+    if spec.task == "regression":
+        if kind != "numeric":
+            raise SpecError(
+                "target",
+                f"target {spec.target!r} is {kind}, not numeric; use task 'classification'.",
+            )
+        return col.to_numpy(dtype="float64")
+    if kind == "numeric":
+        values = col.to_numpy(dtype="float64")
+        if not np.all(np.equal(np.mod(values, 1), 0)):
+            raise SpecError(
+                "target",
+                f"target {spec.target!r} has non-integer numbers; use task 'regression' or "
+                "encode the classes as labels.",
+            )
+        return values.astype("int64")
+    if kind == "boolean":
+        return col.astype(bool).to_numpy()
+    return col.astype(str).to_numpy(dtype=object)
+
+
+def _features(spec: SelectionSpec, frame: pd.DataFrame) -> list[str]:
+    reserved = {spec.target}
+    for plan in (spec.outer, spec.inner):
+        reserved |= {c for c in (plan.groups, plan.order_by) if c}
+    if spec.features is None:
+        return [str(c) for c in frame.columns if c not in reserved]
+    for i, name in enumerate(spec.features):
+        _column(frame, name, f"features[{i}]")
+        if name == spec.target:
+            raise SpecError(f"features[{i}]", "the target cannot also be a feature; remove it.")
+    if len(set(spec.features)) != len(spec.features):
+        raise SpecError("features", "a column is listed twice in features; list each once.")
+    return list(spec.features)
+
+
+def _split_inputs(spec: SelectionSpec, frame: pd.DataFrame, y: np.ndarray) -> SplitInputs:
+    groups = order = None
+    for name, plan in (("outer", spec.outer), ("inner", spec.inner)):
+        if plan.groups:
+            col = _column(frame, plan.groups, f"{name}.groups")
+            if col.isna().any():
+                raise SpecError(f"{name}.groups", f"groups column {plan.groups!r} has gaps.")
+            groups = col.astype(str).to_numpy(dtype=object)
+        if plan.order_by:
+            col = _column(frame, plan.order_by, f"{name}.order_by")
+            if col.isna().any():
+                raise SpecError(f"{name}.order_by", f"order column {plan.order_by!r} has gaps.")
+            order = col.to_numpy()
+    return SplitInputs(y=y, groups=groups, order=order)
+
+
+def build_plan(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) -> SelectionPlan:
+    """Validate `spec` against `frame` and fix candidates and folds; raises SpecError."""
+    if len(frame) < 4:
+        raise SpecError("dataset", f"the table has {len(frame)} rows; nested CV needs more.")
+    y = _target(spec, frame, kinds)
+    n_classes = len(np.unique(y)) if spec.task == "classification" else None
+    if n_classes is not None and n_classes > max(20, len(y) // 5):
+        raise SpecError(
+            "task",
+            f"target {spec.target!r} has {n_classes} distinct values, too many for "
+            "classification; use task 'regression'.",
+        )
+    check_metrics(spec.metrics, spec.task, n_classes)
+    features = _features(spec, frame)
+    table = feature_table(frame, features, kinds)
+    candidates = enumerate_candidates(spec)
+    check_preprocess(
+        table, spec.preprocess, [(c.estimator, c.params) for c in candidates], spec.task
+    )
+    inputs = _split_inputs(spec, frame, y)
+    versions = library_versions()
+    tag = ";".join(f"{k}={v}" for k, v in sorted(versions.items()))
+    all_rows = np.arange(len(y))
+    n = len(y)
+    outer = split_rows(spec.outer, all_rows, inputs, n_rows=n, versions=tag, field="outer")
+    inner = {
+        fold.scope: split_rows(
+            spec.inner, fold.train, inputs, n_rows=n, versions=tag, field="inner"
+        )
+        for fold in outer
+    }
+    inner[FINAL_SCOPE] = split_rows(
+        spec.inner, all_rows, inputs, n_rows=n, versions=tag, field="inner"
+    )
+    return SelectionPlan(spec, candidates, table, y, outer, inner, inputs, versions)

@@ -1,0 +1,114 @@
+"""The selection spec: job request v1 without its dataset reference (which is not the engine's)."""
+
+from __future__ import annotations
+
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+SplitMethod = Literal["kfold", "stratified_kfold", "group_kfold", "time_series"]
+Task = Literal["classification", "regression"]
+JsonValue = Any  # a value that came from JSON: checked against the estimator's own constraints
+
+
+class _Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+
+class RangeSpec(_Strict):
+    """A hyperparameter range sampled `draws` times: uniform, or log-uniform with `log`."""
+
+    low: float
+    high: float
+    integer: bool = False
+    log: bool = False
+
+    @model_validator(mode="after")
+    def _ordered(self) -> RangeSpec:
+        if not self.low < self.high:
+            raise ValueError("low must be smaller than high")
+        if self.log and self.low <= 0:
+            raise ValueError("a log-scale range needs low > 0")
+        return self
+
+
+class FamilySpec(_Strict):
+    """One estimator type with fixed values, a grid and ranges; neither means one candidate."""
+
+    estimator: str
+    fixed: dict[str, JsonValue] = Field(default_factory=dict)
+    grid: dict[str, list[JsonValue]] = Field(default_factory=dict)
+    ranges: dict[str, RangeSpec] = Field(default_factory=dict)
+    draws: int | None = Field(default=None, ge=1)
+    draw_seed: int = Field(default=0, ge=0)
+
+    @model_validator(mode="after")
+    def _consistent(self) -> FamilySpec:
+        for name, values in self.grid.items():
+            if not values:
+                raise ValueError(f"grid value list for {name!r} is empty; give at least one value")
+        if self.ranges and self.draws is None:
+            raise ValueError("ranges need draws (how many points to sample), e.g. draws: 8")
+        if self.draws is not None and not self.ranges:
+            raise ValueError("draws is set but there are no ranges to draw from")
+        overlap = (set(self.fixed) & set(self.grid)) | (set(self.fixed) & set(self.ranges))
+        overlap |= set(self.grid) & set(self.ranges)
+        if overlap:
+            raise ValueError(f"{sorted(overlap)} given more than once among fixed, grid and ranges")
+        return self
+
+
+class SplitSpec(_Strict):
+    """How rows are divided: method, k, repeats and seed (plus groups or order column)."""
+
+    method: SplitMethod
+    k: int = 5
+    repeats: int = Field(default=1, ge=1)
+    seed: int | None = Field(default=None, ge=0)
+    groups: str | None = None
+    order_by: str | None = None
+
+    @model_validator(mode="after")
+    def _consistent(self) -> SplitSpec:
+        if self.k < 2:
+            raise ValueError("k must be at least 2")
+        if self.method == "group_kfold" and not self.groups:
+            raise ValueError("group_kfold needs groups: the column that holds the group labels")
+        if self.method == "time_series" and not self.order_by:
+            raise ValueError("time_series needs order_by: the column that orders the rows in time")
+        if self.repeats > 1 and self.method in ("group_kfold", "time_series"):
+            raise ValueError(
+                f"repeats > 1 is only for kfold and stratified_kfold, not {self.method}"
+            )
+        if self.repeats > 1 and self.seed is None:
+            raise ValueError("repeats > 1 needs a seed so the repeated splits can be reproduced")
+        return self
+
+
+class SelectionSpec(_Strict):
+    """Everything the engine needs to run nested cross-validation on a table."""
+
+    target: str
+    features: list[str] | None = None
+    task: Task
+    families: list[FamilySpec] = Field(min_length=1)
+    preprocess: Literal["auto", "none"] = "auto"
+    outer: SplitSpec
+    inner: SplitSpec
+    metrics: list[str] = Field(min_length=1)
+    pick_by: str | None = None
+
+    @model_validator(mode="after")
+    def _consistent(self) -> SelectionSpec:
+        if len(set(self.metrics)) != len(self.metrics):
+            raise ValueError("metrics lists a metric twice; name each once")
+        if self.pick_by is not None and self.pick_by not in self.metrics:
+            raise ValueError(f"pick_by {self.pick_by!r} is not among metrics; add it or pick one")
+        if self.features is not None and not self.features:
+            raise ValueError("features is empty; list columns or use null for all but the target")
+        return self
+
+    @property
+    def pick_metric(self) -> str:
+        """The metric that picks candidates: `pick_by`, else the first metric."""
+        return self.pick_by or self.metrics[0]

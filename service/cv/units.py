@@ -1,0 +1,104 @@
+"""Work units: the grain of distribution, and the one function that fits and scores a unit.
+
+A unit is one candidate over the folds of one scope:
+- `inner`: over the inner folds of an outer fold (or of all rows), scored with every metric;
+- `outer_refit`: the outer fold's pick refit on the outer training part, scored on its test part;
+- `final_refit`: the final pick refit on all rows (no score; the model is the output).
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any, Literal
+
+from sklearn.pipeline import Pipeline
+
+from service.cv.candidates import Candidate
+from service.cv.metrics import make_scorer_set
+from service.cv.plan import FINAL_SCOPE, SelectionPlan
+from service.cv.preprocess import build_pipeline
+from service.cv.splits import Fold
+
+UnitKind = Literal["inner", "outer_refit", "final_refit"]
+
+
+class UnitCancelled(Exception):
+    """Raised between fits when the caller's stop check says the job was cancelled."""
+
+
+@dataclass(frozen=True)
+class UnitRef:
+    """Which unit: its kind, its scope (an outer fold's scope or 'all') and its candidate key."""
+
+    kind: UnitKind
+    scope: str
+    candidate_key: str
+
+
+@dataclass
+class UnitOutcome:
+    """What one unit produced: one plain dict per fold it scored, and the fitted model if any."""
+
+    ref: UnitRef
+    folds: list[dict[str, Any]]
+    fits: int
+    seconds: float
+    model: Pipeline | None = None
+
+
+def unit_folds(plan: SelectionPlan, ref: UnitRef) -> list[Fold]:
+    """The folds a unit fits on (none for the final refit, which uses all rows)."""
+    if ref.kind == "inner":
+        return plan.inner[ref.scope]
+    if ref.kind == "outer_refit":
+        return [plan.outer_fold(ref.scope)]
+    return []
+
+
+def inner_units(plan: SelectionPlan) -> list[UnitRef]:
+    """Every inner unit: each outer fold and the all-rows scope, times each candidate."""
+    return [UnitRef("inner", scope, c.key) for scope in plan.scopes for c in plan.candidates]
+
+
+def _fit_and_score_fold(
+    candidate: Candidate, plan: SelectionPlan, fold: Fold, metrics: list[str]
+) -> dict[str, Any]:
+    pipeline = build_pipeline(candidate, plan.table, plan.spec.task)
+    X, y = plan.table.X, plan.y
+    started = time.perf_counter()
+    # a fit that fails raises (scikit-learn's error_score="raise"): a failed unit keeps the text
+    pipeline.fit(X.iloc[fold.train], y[fold.train])
+    fitted = time.perf_counter()
+    scores = make_scorer_set(pipeline, metrics)(pipeline, X.iloc[fold.test], y[fold.test])
+    done = time.perf_counter()
+    return {
+        "fingerprint": fold.fingerprint,
+        "n_train": len(fold.train),
+        "n_test": len(fold.test),
+        "fit_seconds": fitted - started,
+        "score_seconds": done - fitted,
+        "scores": scores,
+    }
+
+
+def fit_and_score(
+    plan: SelectionPlan, ref: UnitRef, should_stop: Callable[[], bool] | None = None
+) -> UnitOutcome:
+    """Fit and score one unit, checking `should_stop` before each fit."""
+    candidate = plan.candidate(ref.candidate_key)
+    started = time.perf_counter()
+    if ref.kind == "final_refit":
+        if should_stop and should_stop():
+            raise UnitCancelled(ref)
+        assert ref.scope == FINAL_SCOPE
+        model = build_pipeline(candidate, plan.table, plan.spec.task)
+        model.fit(plan.table.X, plan.y)
+        return UnitOutcome(ref, [], 1, time.perf_counter() - started, model)
+    outcomes = []
+    for fold in unit_folds(plan, ref):
+        if should_stop and should_stop():
+            raise UnitCancelled(ref)
+        outcomes.append(_fit_and_score_fold(candidate, plan, fold, plan.spec.metrics))
+    return UnitOutcome(ref, outcomes, len(outcomes), time.perf_counter() - started)
