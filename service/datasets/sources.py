@@ -1,0 +1,157 @@
+"""Dataset sources: where a table's rows come from, and loading them into a canonical table."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Literal
+
+import pandas as pd
+import pyarrow as pa
+from pydantic import BaseModel, ConfigDict, Field, model_validator
+
+from service.datasets.canonical import canonical_frame, content_hash
+from service.datasets.files import read_dataset_file
+from service.datasets.kinds import ColumnKind, infer_column_kinds
+from service.errors import BadInput
+
+SampleName = Literal["breast_cancer", "wine", "iris", "diabetes"]
+
+# A `sql` source joins this tuple (and the model) when it lands; the one-of rule then covers it.
+_SOURCE_FIELDS = ("path", "sample")
+
+
+class DatasetSource(BaseModel):
+    """Where a dataset's rows come from: exactly one of a file path or a bundled sample."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True)
+
+    path: str | None = Field(default=None, min_length=1)
+    sample: SampleName | None = None
+
+    @model_validator(mode="after")
+    def _exactly_one_source(self) -> DatasetSource:
+        given = [name for name in _SOURCE_FIELDS if getattr(self, name) is not None]
+        if len(given) != 1:
+            raise ValueError(
+                "a dataset source needs exactly one of 'path' or 'sample', "
+                f"but {len(given)} were given"
+            )
+        return self
+
+
+@dataclass(frozen=True)
+class LoadedTable:
+    """A canonical frame with its column kinds, content hash and where it came from."""
+
+    frame: pd.DataFrame
+    kinds: dict[str, ColumnKind]
+    content_hash: str
+    origin: dict[str, str]
+
+
+def load_table(
+    source: DatasetSource,
+    *,
+    base_dir: Path,
+    data_roots: tuple[Path, ...] = (),
+    field: str = "dataset",
+) -> LoadedTable:
+    """Load a source into a canonical table; BadInput names `field` for anything wrong."""
+    if source.sample is not None:
+        raw = _sample_frame(source.sample)
+        return _loaded(raw, {"sample": source.sample}, f"{field}.sample")
+    assert source.path is not None  # guaranteed by the model's one-of rule
+    path_field = f"{field}.path"
+    path = resolve_dataset_path(
+        source.path, base_dir=base_dir, data_roots=data_roots, field=path_field
+    )
+    raw, fmt = read_dataset_file(path, field=path_field)
+    return _loaded(raw, {"path": str(path), "format": fmt}, path_field)
+
+
+def load_dataset_file(path: Path, *, field: str = "path") -> pd.DataFrame:
+    """Read a CSV or Parquet file by extension, as it is stored (not yet canonical)."""
+    frame, _ = read_dataset_file(path, field=field)
+    return frame
+
+
+def resolve_dataset_path(
+    raw: str, *, base_dir: Path, data_roots: tuple[Path, ...], field: str
+) -> Path:
+    """Absolute path with symlinks and `..` resolved, refused if it leaves the data roots."""
+    try:
+        candidate = Path(raw).expanduser()
+        if not candidate.is_absolute():
+            candidate = base_dir / candidate
+        # Resolve before the roots check so neither `..` nor a symlink can step outside a root.
+        path = candidate.resolve()
+    except (OSError, RuntimeError, ValueError):
+        # NUL bytes, names too long and symlink loops all land here; none is a file we can read.
+        raise BadInput(
+            field, f"{raw!r} is not a usable file path; give the path of a file."
+        ) from None
+    roots = [root.expanduser().resolve() for root in data_roots]
+    # Checked before existence, so callers cannot probe for files outside the roots.
+    if roots and not any(path.is_relative_to(root) for root in roots):
+        raise BadInput(
+            field,
+            f"{path} is outside the configured data roots (FOLDWISE_DATA_ROOTS); "
+            f"move the file under {' or '.join(str(r) for r in roots)} "
+            "or add its folder to FOLDWISE_DATA_ROOTS.",
+        )
+    return path
+
+
+def describe_table(table: LoadedTable) -> dict[str, Any]:
+    """JSON-ready summary: hash, shape, per-column kind, missing and distinct counts, origin."""
+    frame = table.frame
+    columns = [
+        {
+            "name": name,
+            "kind": kind,
+            "missing": int(frame[name].isna().sum()),
+            "distinct": int(frame[name].nunique(dropna=True)),
+        }
+        for name, kind in table.kinds.items()
+    ]
+    return {
+        "content_hash": table.content_hash,
+        "n_rows": len(frame),
+        "n_columns": frame.shape[1],
+        "columns": columns,
+        "origin": dict(table.origin),
+    }
+
+
+def _sample_frame(name: SampleName) -> pd.DataFrame:
+    # Imported here: scikit-learn's datasets module is slow to import and most loads are files.
+    from sklearn import datasets
+
+    loader = getattr(datasets, f"load_{name}")
+    return loader(as_frame=True).frame
+
+
+def _loaded(raw: pd.DataFrame, origin: dict[str, str], field: str) -> LoadedTable:
+    names = [str(name) for name in raw.columns]
+    repeated = sorted({name for name in names if names.count(name) > 1})
+    if repeated:
+        raise BadInput(
+            field,
+            f"the table has repeated column names ({', '.join(repeated)}); "
+            "give every column a unique name.",
+        )
+    try:
+        frame = canonical_frame(raw)
+    except (ValueError, TypeError, pa.ArrowException) as exc:
+        raise BadInput(
+            field,
+            f"a column could not be brought to a numeric, text, boolean or timestamp form "
+            f"({type(exc).__name__}); store plain values in every cell.",
+        ) from None
+    return LoadedTable(
+        frame=frame,
+        kinds=infer_column_kinds(frame),
+        content_hash=content_hash(frame),
+        origin=origin,
+    )
