@@ -21,7 +21,10 @@ PEOPLE = (
     "similar): defer to domain review and the rules that apply before using it, and check its "
     "errors across groups, which a single estimate does not show."
 )
-_TIME_WORDS = re.compile(r"(^|_)(date|time|timestamp|datetime|year|month|week|day)s?($|_)|_at$")
+# a name that is a time stamp, not a duration such as age_years or months_since_service
+_TIME_WORDS = re.compile(
+    r"(^|_)(date|timestamp|datetime)($|_)|_(at|on|time)$|^(time|year|month|week|day|period)$"
+)
 _GROUP_WORDS = re.compile(r"(^|_)(id|site|patient|customer|user|subject|store|household)($|_)")
 _PEOPLE_WORDS = re.compile(
     r"(^|_)(sex|gender|race|ethnicity|religion|marital|disability|nationality|income|salary|"

@@ -26,9 +26,9 @@ class RangeSpec(_Strict):
     @model_validator(mode="after")
     def _ordered(self) -> RangeSpec:
         if not self.low < self.high:
-            raise ValueError("low must be smaller than high")
+            raise ValueError("high: must be greater than low")
         if self.log and self.low <= 0:
-            raise ValueError("a log-scale range needs low > 0")
+            raise ValueError("low: a log-scale range needs low > 0")
         return self
 
 
@@ -46,15 +46,15 @@ class FamilySpec(_Strict):
     def _consistent(self) -> FamilySpec:
         for name, values in self.grid.items():
             if not values:
-                raise ValueError(f"grid value list for {name!r} is empty; give at least one value")
+                raise ValueError(f"grid: the value list for {name!r} is empty; give at least one value")
         if self.ranges and self.draws is None:
-            raise ValueError("ranges need draws (how many points to sample), e.g. draws: 8")
+            raise ValueError("draws: ranges need draws (how many points to sample), e.g. draws: 8")
         if self.draws is not None and not self.ranges:
-            raise ValueError("draws is set but there are no ranges to draw from")
+            raise ValueError("draws: is set but there are no ranges to draw from; remove it or add ranges")
         overlap = (set(self.fixed) & set(self.grid)) | (set(self.fixed) & set(self.ranges))
         overlap |= set(self.grid) & set(self.ranges)
         if overlap:
-            raise ValueError(f"{sorted(overlap)} given more than once among fixed, grid and ranges")
+            raise ValueError(f"fixed: {sorted(overlap)} given more than once among fixed, grid and ranges; keep one")
         return self
 
 
@@ -71,17 +71,17 @@ class SplitSpec(_Strict):
     @model_validator(mode="after")
     def _consistent(self) -> SplitSpec:
         if self.k < 2:
-            raise ValueError("k must be at least 2")
+            raise ValueError("k: must be at least 2")
         if self.method == "group_kfold" and not self.groups:
-            raise ValueError("group_kfold needs groups: the column that holds the group labels")
+            raise ValueError("groups: group_kfold needs groups, the column that holds the group labels")
         if self.method == "time_series" and not self.order_by:
-            raise ValueError("time_series needs order_by: the column that orders the rows in time")
+            raise ValueError("order_by: time_series needs order_by, the column that orders the rows in time")
         if self.repeats > 1 and self.method in ("group_kfold", "time_series"):
             raise ValueError(
-                f"repeats > 1 is only for kfold and stratified_kfold, not {self.method}"
+                f"repeats: more than one repeat is only for kfold and stratified_kfold, not {self.method}"
             )
         if self.repeats > 1 and self.seed is None:
-            raise ValueError("repeats > 1 needs a seed so the repeated splits can be reproduced")
+            raise ValueError("seed: repeats > 1 needs a seed so the repeated splits can be reproduced")
         return self
 
 
@@ -101,11 +101,11 @@ class SelectionSpec(_Strict):
     @model_validator(mode="after")
     def _consistent(self) -> SelectionSpec:
         if len(set(self.metrics)) != len(self.metrics):
-            raise ValueError("metrics lists a metric twice; name each once")
+            raise ValueError("metrics: a metric is listed twice; name each once")
         if self.pick_by is not None and self.pick_by not in self.metrics:
-            raise ValueError(f"pick_by {self.pick_by!r} is not among metrics; add it or pick one")
+            raise ValueError(f"pick_by: {self.pick_by!r} is not among metrics; add it to metrics or pick one of them")
         if self.features is not None and not self.features:
-            raise ValueError("features is empty; list columns or use null for all but the target")
+            raise ValueError("features: is empty; list columns or use null for all but the target")
         return self
 
     @property

@@ -1,0 +1,69 @@
+"""Fan-in in the database: moving a job to its next stage exactly once, whoever finishes last.
+
+Stages: `inner` (every candidate on every inner fold) → `outer` (each pick refit on its outer
+training part, and the final pick on all rows) → `aggregating` → `done`. Each move is a
+conditional UPDATE, so of several processes that see the last unit land, one wins.
+"""
+
+from __future__ import annotations
+
+from sqlalchemy import func, select, update
+from sqlalchemy.orm import Session, sessionmaker
+
+from service.config import Settings
+from service.cv.nested import refit_units
+from service.cv.plan import FINAL_SCOPE
+from service.cv.selection import pick
+from service.jobs.plans import plan_for_job
+from service.jobs.result import build_result
+from service.jobs.scores import load_book
+from service.jobs.submit import unit_row
+from service.store.db import utcnow
+from service.store.models import Job, Pick, WorkUnit
+
+
+def _open_units(session: Session, job_id: str) -> int:
+    return int(session.scalar(
+        select(func.count()).where(WorkUnit.job_id == job_id, WorkUnit.status != "done")
+    ) or 0)
+
+
+def _elect(session: Session, job_id: str, from_stage: str, to_stage: str) -> bool:
+    moved = session.execute(
+        update(Job)
+        .where(Job.id == job_id, Job.stage == from_stage, Job.status == "running")
+        .values(stage=to_stage)
+    )
+    return moved.rowcount == 1
+
+
+def advance_job(sessions: sessionmaker[Session], job_id: str, settings: Settings) -> list[int]:
+    """Move the job on if its current stage is complete; returns ids of new units to dispatch."""
+    with sessions.begin() as session:
+        job = session.get_one(Job, job_id)
+        if job.status != "running" or _open_units(session, job_id):
+            return []
+        loaded = plan_for_job(session, job_id, settings)
+        if job.stage == "inner":
+            if not _elect(session, job_id, "inner", "outer"):
+                return []
+            book = load_book(session, loaded)
+            picks = {scope: pick(loaded.plan, scope, book) for scope in loaded.plan.scopes}
+            session.add_all(
+                Pick(job_id=job_id, outer_repeat=fold.repeat, outer_fold=fold.index,
+                     candidate_key=picks[fold.scope].candidate.key,
+                     inner_mean=picks[fold.scope].inner_mean)
+                for fold in loaded.plan.outer
+            )
+            rows = [unit_row(job_id, r.kind, r.scope, r.candidate_key) for r in refit_units(picks)]
+            ids = session.scalars(
+                WorkUnit.__table__.insert().returning(WorkUnit.__table__.c.id), rows
+            )
+            return list(ids)
+        if job.stage == "outer" and _elect(session, job_id, "outer", "aggregating"):
+            book = load_book(session, loaded)
+            picks = {scope: pick(loaded.plan, scope, book) for scope in loaded.plan.scopes}
+            job.result = build_result(session, job, loaded, book, picks)
+            job.status, job.stage, job.finished_at = "succeeded", "done", utcnow()
+            assert FINAL_SCOPE in picks
+        return []

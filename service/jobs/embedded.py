@@ -1,0 +1,152 @@
+"""The embedded default: a job run on a local process pool against the local store.
+
+The pool runs the same `execute_unit` a Celery worker runs; this module only feeds it unit ids
+and calls the fan-in after each unit, so the embedded and distributed paths cannot drift apart.
+"""
+
+from __future__ import annotations
+
+import multiprocessing
+from collections.abc import Callable
+from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from sqlalchemy import Engine, select, update
+from sqlalchemy.orm import Session, sessionmaker
+from threadpoolctl import threadpool_limits
+
+from service.config import Settings
+from service.jobs.advance import advance_job
+from service.jobs.execute import UnitReport, execute_unit, worker_name
+from service.jobs.plans import LoadedPlan, remember
+from service.jobs.prepare import prepare_job
+from service.jobs.submit import create_job
+from service.store.db import dispose_after_fork, make_engine, make_session_factory
+from service.store.db import upgrade_database as upgrade_database
+from service.store.models import Job, WorkUnit
+
+Progress = Callable[[int, int], None]
+
+
+class JobFailed(RuntimeError):
+    """The job ran but a unit failed; the message carries the failure."""
+
+
+@dataclass(frozen=True)
+class EmbeddedOutcome:
+    """The stored job's id and its result v1."""
+
+    job_id: str
+    result: dict[str, Any]
+
+
+# set in each pool child by _child_start; children inherit the parent's plan cache at fork
+_child: dict[str, Any] = {}
+
+
+def _child_start(engine: Engine, settings: Settings) -> None:
+    dispose_after_fork(engine)
+    # one BLAS/OpenMP thread per process: two processes on two cores must not fight over them
+    _child["limits"] = threadpool_limits(1)
+    _child["sessions"] = make_session_factory(engine)
+    _child["settings"] = settings
+
+
+def _child_execute(unit_id: int) -> UnitReport:
+    return execute_unit(_child["sessions"], unit_id, settings=_child["settings"],
+                        worker=worker_name())
+
+
+def _queued_units(session: Session, job_id: str) -> list[int]:
+    return list(session.scalars(
+        select(WorkUnit.id).where(WorkUnit.job_id == job_id, WorkUnit.status == "queued")
+        .order_by(WorkUnit.id)
+    ))
+
+
+def _drive(
+    sessions: sessionmaker[Session], job_id: str, settings: Settings,
+    run: Callable[[list[int]], list[Future[UnitReport]] | list[UnitReport]] | None,
+    pool: ProcessPoolExecutor | None, total: int, progress: Progress | None,
+) -> None:
+    with sessions() as session:
+        pending = _queued_units(session, job_id)
+    done = 0
+    me = worker_name()
+    if pool is None:
+        while pending:
+            report = execute_unit(sessions, pending.pop(0), settings=settings, worker=me)
+            if report.status != "done":
+                return
+            done += 1
+            if progress:
+                progress(done, total)
+            pending += advance_job(sessions, job_id, settings)
+        return
+    running = {pool.submit(_child_execute, uid) for uid in pending}
+    while running:
+        finished, running = wait(running, return_when=FIRST_COMPLETED)
+        for future in finished:
+            if future.result().status != "done":
+                for other in running:
+                    other.cancel()
+                return
+            done += 1
+            if progress:
+                progress(done, total)
+        for uid in advance_job(sessions, job_id, settings):
+            running.add(pool.submit(_child_execute, uid))
+
+
+def run_embedded(
+    data: Any, *, settings: Settings, workers: int = 1, base_dir: Path | None = None,
+    progress: Progress | None = None,
+) -> EmbeddedOutcome:
+    """Validate, store and run a job here; raises BadInput (nothing stored) or JobFailed."""
+    upgrade_database(settings.database_url)
+    engine = make_engine(settings.database_url)
+    sessions = make_session_factory(engine)
+    try:
+        with sessions() as session:
+            prepared = prepare_job(data, session=session, settings=settings,
+                                   base_dir=base_dir or Path.cwd())
+        with sessions.begin() as session:
+            job_id = create_job(session, prepared, settings)
+            total = session.get_one(Job, job_id).units_total
+        table = prepared.table
+        remember(job_id, LoadedPlan(prepared.plan, table.frame, dict(table.kinds),
+                                    table.content_hash))
+        try:
+            if workers > 1:
+                context = multiprocessing.get_context("fork")
+                with ProcessPoolExecutor(workers, mp_context=context, initializer=_child_start,
+                                         initargs=(engine, settings)) as pool:
+                    _drive(sessions, job_id, settings, None, pool, total, progress)
+            else:
+                _drive(sessions, job_id, settings, None, None, total, progress)
+        except BaseException:
+            cancel_job(sessions, job_id)
+            raise
+        with sessions() as session:
+            job = session.get_one(Job, job_id)
+            if job.status != "succeeded":
+                raise JobFailed(job.error or f"job {job_id} ended {job.status}")
+            assert job.result is not None
+            return EmbeddedOutcome(job_id, job.result)
+    finally:
+        engine.dispose()
+
+
+def cancel_job(sessions: sessionmaker[Session], job_id: str) -> None:
+    """Flag a job cancelled so units stop between fits; queued units will not start."""
+    with sessions.begin() as session:
+        session.execute(
+            update(Job).where(Job.id == job_id, Job.status.in_(("queued", "running")))
+            .values(cancel_requested=True, status="cancelled")
+        )
+        session.execute(
+            update(WorkUnit).where(WorkUnit.job_id == job_id, WorkUnit.status == "queued")
+            .values(status="cancelled")
+        )

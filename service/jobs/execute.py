@@ -1,0 +1,169 @@
+"""Running one work unit against the store: claim it, fit and score, record, release.
+
+The same function serves the local pool of the embedded default and (later) Celery tasks: it
+takes an id, opens its own sessions, and the database decides whether this copy may run.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import pickle
+import socket
+import traceback
+from dataclasses import dataclass
+from datetime import timedelta
+from pathlib import Path
+
+from sqlalchemy import or_, update
+from sqlalchemy.orm import Session, sessionmaker
+
+from service.config import Settings
+from service.cv.plan import FINAL_SCOPE
+from service.cv.selection import pick
+from service.cv.units import UnitCancelled, UnitOutcome, UnitRef, fit_and_score
+from service.jobs.plans import LoadedPlan, plan_for_job
+from service.jobs.scores import load_book
+from service.store.db import insert_ignoring_duplicates, utcnow
+from service.store.models import FinalModel, FoldScore, Job, WorkUnit
+
+# A claim is a lease: a copy that has not finished by then is presumed dead and may be retried.
+LEASE = timedelta(hours=1)
+MAX_ATTEMPTS = 3
+
+
+@dataclass(frozen=True)
+class UnitReport:
+    """How a unit ended here: done, failed, cancelled, or skipped (another copy owns it)."""
+
+    unit_id: int
+    job_id: str | None
+    status: str
+    fits: int = 0
+
+
+def worker_name() -> str:
+    """host:pid, recorded beside every score this process writes."""
+    return f"{socket.gethostname()}:{os.getpid()}"
+
+
+def claim_unit(session: Session, unit_id: int, worker: str) -> bool:
+    """Move a unit to running if it is queued or its lease expired; False means a duplicate."""
+    now = utcnow()
+    claimed = session.execute(
+        update(WorkUnit)
+        .where(
+            WorkUnit.id == unit_id,
+            or_(
+                WorkUnit.status == "queued",
+                (WorkUnit.status == "running") & (WorkUnit.lease_until < now),
+            ),
+            WorkUnit.attempts < MAX_ATTEMPTS,
+        )
+        .values(status="running", attempts=WorkUnit.attempts + 1, lease_until=now + LEASE,
+                worker=worker, started_at=now)
+    )
+    return claimed.rowcount == 1
+
+
+def _cancel_requested(sessions: sessionmaker[Session], job_id: str) -> bool:
+    with sessions() as session:
+        job = session.get_one(Job, job_id)
+        return bool(job.cancel_requested) or job.status in ("failed", "cancelled")
+
+
+def _save_model(outcome: UnitOutcome, settings: Settings) -> tuple[str, Path, int]:
+    payload = pickle.dumps(outcome.model, protocol=5)
+    digest = hashlib.sha256(payload).hexdigest()
+    settings.model_dir.mkdir(parents=True, exist_ok=True)
+    path = settings.model_dir / f"{digest}.pkl"
+    if not path.exists():
+        temporary = path.with_suffix(f".{os.getpid()}.tmp")
+        temporary.write_bytes(payload)
+        os.replace(temporary, path)
+    return digest, path, len(payload)
+
+
+def _record(
+    session: Session, unit: WorkUnit, outcome: UnitOutcome, loaded: LoadedPlan,
+    settings: Settings, worker: str,
+) -> None:
+    seed = unit_seed(loaded, unit.candidate_key)
+    rows = [
+        {"dataset_hash": loaded.dataset_hash, "fold_fingerprint": fold["fingerprint"],
+         "candidate_key": unit.candidate_key, "metric": metric, "value": value,
+         "fit_seconds": fold["fit_seconds"], "score_seconds": fold["score_seconds"],
+         "n_train": fold["n_train"], "n_test": fold["n_test"], "seed": seed,
+         "versions": loaded.plan.versions, "worker": worker, "job_id": unit.job_id,
+         "unit_id": unit.id}
+        for fold in outcome.folds
+        for metric, value in fold["scores"].items()
+    ]
+    # a redelivered copy of a finished unit inserts nothing: the key already holds the score
+    insert_ignoring_duplicates(session, FoldScore, rows)
+    if outcome.model is not None:
+        digest, path, size = _save_model(outcome, settings)
+        final = pick(loaded.plan, FINAL_SCOPE, load_book(session, loaded))
+        insert_ignoring_duplicates(session, FinalModel, [{
+            "job_id": unit.job_id, "candidate_key": final.candidate.key, "sha256": digest,
+            "path": str(path), "size_bytes": size, "inner_mean": final.inner_mean,
+        }])
+
+
+def unit_seed(loaded: LoadedPlan, candidate_key: str) -> int | None:
+    """The estimator's random_state for this candidate, if it has one."""
+    value = loaded.plan.candidate(candidate_key).params.get("random_state")
+    return value if isinstance(value, int) else None
+
+
+def _finish(
+    sessions: sessionmaker[Session], unit_id: int, status: str, error: str | None,
+    fits: int = 0, seconds: float | None = None,
+) -> None:
+    with sessions.begin() as session:
+        unit = session.get_one(WorkUnit, unit_id)
+        unit.status, unit.error, unit.finished_at = status, error, utcnow()
+        unit.fits, unit.seconds = fits, seconds
+        if status == "failed":
+            first_line = (error or "").strip().splitlines()[-1] if error else "unknown error"
+            session.execute(
+                update(Job)
+                .where(Job.id == unit.job_id, Job.status.in_(("queued", "running")))
+                .values(status="failed", finished_at=utcnow(),
+                        error=f"unit {unit_id} ({unit.kind} {unit.scope}) failed: {first_line}")
+            )
+
+
+def execute_unit(
+    sessions: sessionmaker[Session], unit_id: int, *, settings: Settings, worker: str
+) -> UnitReport:
+    """Claim, run and record unit `unit_id`; never raises for a failing fit."""
+    with sessions.begin() as session:
+        if not claim_unit(session, unit_id, worker):
+            return UnitReport(unit_id, None, "skipped")
+        unit = session.get_one(WorkUnit, unit_id)
+        job_id = unit.job_id
+        ref = UnitRef(unit.kind, unit.scope, unit.candidate_key)  # type: ignore[arg-type]
+        session.execute(
+            update(Job).where(Job.id == job_id, Job.status == "queued")
+            .values(status="running", started_at=utcnow())
+        )
+    try:
+        with sessions() as session:
+            loaded = plan_for_job(session, job_id, settings)
+        outcome = fit_and_score(loaded.plan, ref, lambda: _cancel_requested(sessions, job_id))
+    except UnitCancelled:
+        _finish(sessions, unit_id, "cancelled", None)
+        return UnitReport(unit_id, job_id, "cancelled")
+    except Exception:
+        _finish(sessions, unit_id, "failed", traceback.format_exc())
+        return UnitReport(unit_id, job_id, "failed")
+    with sessions.begin() as session:
+        unit = session.get_one(WorkUnit, unit_id)
+        _record(session, unit, outcome, loaded, settings, worker)
+        unit.status, unit.finished_at = "done", utcnow()
+        unit.fits, unit.seconds = outcome.fits, outcome.seconds
+        session.execute(
+            update(Job).where(Job.id == job_id).values(units_done=Job.units_done + 1)
+        )
+    return UnitReport(unit_id, job_id, "done", outcome.fits)
