@@ -1,0 +1,142 @@
+"""The `foldwise` command line (embedded mode): select, dataset inspect, db upgrade, demo."""
+
+from __future__ import annotations
+
+import json
+import os
+import sys
+from pathlib import Path
+from typing import Annotated, Any, NoReturn
+
+import typer
+from rich.console import Console
+
+from service.config import load_settings
+from service.errors import BadInput
+
+app = typer.Typer(
+    help="Nested cross-validation: pick a model and report an honest estimate of how it will do.",
+    no_args_is_help=True,
+    pretty_exceptions_enable=False,
+    add_completion=False,
+)
+dataset_app = typer.Typer(help="Registered tables.", no_args_is_help=True)
+db_app = typer.Typer(help="The store's schema.", no_args_is_help=True)
+app.add_typer(dataset_app, name="dataset")
+app.add_typer(db_app, name="db")
+
+# wide enough for the tables when piped to a file; a terminal sets its own width
+stdout = Console(width=None if sys.stdout.isatty() else 160)
+stderr = Console(stderr=True)
+DEMO_DIR = Path(__file__).resolve().parents[2] / "demo_data"
+
+
+def _refuse(exc: BadInput) -> NoReturn:
+    stderr.print(f"error: {exc}", markup=False, highlight=False, soft_wrap=True)
+    raise typer.Exit(2)
+
+
+def _fail(message: str) -> NoReturn:
+    stderr.print(f"failed: {message}", markup=False, highlight=False, soft_wrap=True)
+    raise typer.Exit(1)
+
+
+def _read_job_file(path: Path) -> Any:
+    if not path.is_file():
+        raise BadInput(str(path), "no such job file; give the path of a job request JSON file.")
+    try:
+        return json.loads(path.read_text(encoding="utf-8"))
+    except UnicodeDecodeError:
+        raise BadInput(str(path), "is not a UTF-8 text file; give a job request JSON file.") from None
+    except json.JSONDecodeError as exc:
+        raise BadInput(
+            str(path), f"is not valid JSON ({exc.msg} at line {exc.lineno}, column {exc.colno})."
+        ) from None
+
+
+def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path) -> None:
+    from service.cli.progress import unit_progress
+    from service.cli.render import print_result
+    from service.jobs.embedded import JobFailed, run_embedded
+
+    if workers < 1:
+        raise BadInput("--workers", "must be at least 1.")
+    settings = load_settings()
+    try:
+        with unit_progress(stderr) as progress:
+            outcome = run_embedded(job, settings=settings, workers=workers, base_dir=base_dir,
+                                   progress=progress)
+    except JobFailed as exc:
+        _fail(str(exc))
+    if as_json:
+        sys.stdout.write(json.dumps(outcome.result, allow_nan=False) + "\n")
+    else:
+        print_result(stdout, outcome.result, outcome.job_id)
+
+
+@app.command()
+def select(
+    job_file: Annotated[Path, typer.Argument(metavar="JOB.json", help="A job request v1 file.")],
+    as_json: Annotated[bool, typer.Option("--json", help="Print result v1 alone on stdout.")] = False,
+    workers: Annotated[int, typer.Option(help="Local worker processes.")] = 1,
+) -> None:
+    """Run a selection job here (embedded mode) and print its result."""
+    try:
+        _select(_read_job_file(job_file), as_json=as_json, workers=workers, base_dir=Path.cwd())
+    except BadInput as exc:
+        _refuse(exc)
+    except KeyboardInterrupt:
+        _fail("interrupted; the job is marked cancelled.")
+
+
+@dataset_app.command("inspect")
+def dataset_inspect(
+    path: Annotated[Path, typer.Argument(help="A CSV or Parquet file.")],
+    as_json: Annotated[bool, typer.Option("--json", help="Print JSON on stdout.")] = False,
+) -> None:
+    """Content hash, rows, columns and inferred column kinds of a table."""
+    from service.cli.render import print_description
+    from service.datasets.sources import DatasetSource, describe_table, load_table
+
+    try:
+        table = load_table(DatasetSource(path=str(path)), base_dir=Path.cwd(), field="PATH")
+    except BadInput as exc:
+        _refuse(exc)
+    description = describe_table(table)
+    if as_json:
+        sys.stdout.write(json.dumps(description) + "\n")
+    else:
+        print_description(stdout, description)
+
+
+@db_app.command("upgrade")
+def db_upgrade() -> None:
+    """Bring the store's schema to the newest revision (run before starting services)."""
+    from service.store.db import upgrade_database
+
+    settings = load_settings()
+    upgrade_database(settings.database_url)
+    stderr.print(f"store at {settings.database_url} is up to date", markup=False)
+
+
+@app.command()
+def demo(
+    workers: Annotated[int, typer.Option(help="Local worker processes.")] = min(
+        2, os.cpu_count() or 1
+    ),
+) -> None:
+    """The invented pump-failure scenario end to end: select a model, report honestly."""
+    job_file = DEMO_DIR / "pump_job.json"
+    stderr.print(
+        "Larkmere Water (an invented utility): which pumps fail within 30 days? Running nested "
+        f"cross-validation on {DEMO_DIR / 'pump_failures.csv'} ...", markup=False,
+    )
+    try:
+        _select(_read_job_file(job_file), as_json=False, workers=workers,
+                base_dir=DEMO_DIR.parent)
+    except BadInput as exc:
+        _refuse(exc)
+
+
+if __name__ == "__main__":  # pragma: no cover
+    app()
