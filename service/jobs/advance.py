@@ -7,7 +7,9 @@ conditional UPDATE, so of several processes that see the last unit land, one win
 
 from __future__ import annotations
 
-from sqlalchemy import func, select, update
+from typing import Any
+
+from sqlalchemy import CursorResult, func, insert, select, update
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
@@ -23,13 +25,16 @@ from service.store.models import Job, Pick, WorkUnit
 
 
 def _open_units(session: Session, job_id: str) -> int:
-    return int(session.scalar(
-        select(func.count()).where(WorkUnit.job_id == job_id, WorkUnit.status != "done")
-    ) or 0)
+    return int(
+        session.scalar(
+            select(func.count()).where(WorkUnit.job_id == job_id, WorkUnit.status != "done")
+        )
+        or 0
+    )
 
 
 def _elect(session: Session, job_id: str, from_stage: str, to_stage: str) -> bool:
-    moved = session.execute(
+    moved: CursorResult[Any] = session.execute(  # type: ignore[assignment]
         update(Job)
         .where(Job.id == job_id, Job.stage == from_stage, Job.status == "running")
         .values(stage=to_stage)
@@ -50,15 +55,17 @@ def advance_job(sessions: sessionmaker[Session], job_id: str, settings: Settings
             book = load_book(session, loaded)
             picks = {scope: pick(loaded.plan, scope, book) for scope in loaded.plan.scopes}
             session.add_all(
-                Pick(job_id=job_id, outer_repeat=fold.repeat, outer_fold=fold.index,
-                     candidate_key=picks[fold.scope].candidate.key,
-                     inner_mean=picks[fold.scope].inner_mean)
+                Pick(
+                    job_id=job_id,
+                    outer_repeat=fold.repeat,
+                    outer_fold=fold.index,
+                    candidate_key=picks[fold.scope].candidate.key,
+                    inner_mean=picks[fold.scope].inner_mean,
+                )
                 for fold in loaded.plan.outer
             )
             rows = [unit_row(job_id, r.kind, r.scope, r.candidate_key) for r in refit_units(picks)]
-            ids = session.scalars(
-                WorkUnit.__table__.insert().returning(WorkUnit.__table__.c.id), rows
-            )
+            ids = session.scalars(insert(WorkUnit).returning(WorkUnit.id), rows)
             return list(ids)
         if job.stage == "outer" and _elect(session, job_id, "outer", "aggregating"):
             book = load_book(session, loaded)

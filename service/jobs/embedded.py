@@ -55,21 +55,29 @@ def _child_start(engine: Engine, settings: Settings) -> None:
 
 
 def _child_execute(unit_id: int) -> UnitReport:
-    return execute_unit(_child["sessions"], unit_id, settings=_child["settings"],
-                        worker=worker_name())
+    return execute_unit(
+        _child["sessions"], unit_id, settings=_child["settings"], worker=worker_name()
+    )
 
 
 def _queued_units(session: Session, job_id: str) -> list[int]:
-    return list(session.scalars(
-        select(WorkUnit.id).where(WorkUnit.job_id == job_id, WorkUnit.status == "queued")
-        .order_by(WorkUnit.id)
-    ))
+    return list(
+        session.scalars(
+            select(WorkUnit.id)
+            .where(WorkUnit.job_id == job_id, WorkUnit.status == "queued")
+            .order_by(WorkUnit.id)
+        )
+    )
 
 
 def _drive(
-    sessions: sessionmaker[Session], job_id: str, settings: Settings,
+    sessions: sessionmaker[Session],
+    job_id: str,
+    settings: Settings,
     run: Callable[[list[int]], list[Future[UnitReport]] | list[UnitReport]] | None,
-    pool: ProcessPoolExecutor | None, total: int, progress: Progress | None,
+    pool: ProcessPoolExecutor | None,
+    total: int,
+    progress: Progress | None,
 ) -> None:
     with sessions() as session:
         pending = _queued_units(session, job_id)
@@ -101,7 +109,11 @@ def _drive(
 
 
 def run_embedded(
-    data: Any, *, settings: Settings, workers: int = 1, base_dir: Path | None = None,
+    data: Any,
+    *,
+    settings: Settings,
+    workers: int = 1,
+    base_dir: Path | None = None,
     progress: Progress | None = None,
 ) -> EmbeddedOutcome:
     """Validate, store and run a job here; raises BadInput (nothing stored) or JobFailed."""
@@ -110,19 +122,25 @@ def run_embedded(
     sessions = make_session_factory(engine)
     try:
         with sessions() as session:
-            prepared = prepare_job(data, session=session, settings=settings,
-                                   base_dir=base_dir or Path.cwd())
+            prepared = prepare_job(
+                data, session=session, settings=settings, base_dir=base_dir or Path.cwd()
+            )
         with sessions.begin() as session:
             job_id = create_job(session, prepared, settings)
             total = session.get_one(Job, job_id).units_total
         table = prepared.table
-        remember(job_id, LoadedPlan(prepared.plan, table.frame, dict(table.kinds),
-                                    table.content_hash))
+        remember(
+            job_id, LoadedPlan(prepared.plan, table.frame, dict(table.kinds), table.content_hash)
+        )
         try:
             if workers > 1:
                 context = multiprocessing.get_context("fork")
-                with ProcessPoolExecutor(workers, mp_context=context, initializer=_child_start,
-                                         initargs=(engine, settings)) as pool:
+                with ProcessPoolExecutor(
+                    workers,
+                    mp_context=context,
+                    initializer=_child_start,
+                    initargs=(engine, settings),
+                ) as pool:
                     _drive(sessions, job_id, settings, None, pool, total, progress)
             else:
                 _drive(sessions, job_id, settings, None, None, total, progress)
@@ -143,10 +161,12 @@ def cancel_job(sessions: sessionmaker[Session], job_id: str) -> None:
     """Flag a job cancelled so units stop between fits; queued units will not start."""
     with sessions.begin() as session:
         session.execute(
-            update(Job).where(Job.id == job_id, Job.status.in_(("queued", "running")))
+            update(Job)
+            .where(Job.id == job_id, Job.status.in_(("queued", "running")))
             .values(cancel_requested=True, status="cancelled")
         )
         session.execute(
-            update(WorkUnit).where(WorkUnit.job_id == job_id, WorkUnit.status == "queued")
+            update(WorkUnit)
+            .where(WorkUnit.job_id == job_id, WorkUnit.status == "queued")
             .values(status="cancelled")
         )

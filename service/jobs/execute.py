@@ -14,8 +14,9 @@ import traceback
 from dataclasses import dataclass
 from datetime import timedelta
 from pathlib import Path
+from typing import Any
 
-from sqlalchemy import or_, update
+from sqlalchemy import CursorResult, or_, update
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
@@ -50,7 +51,7 @@ def worker_name() -> str:
 def claim_unit(session: Session, unit_id: int, worker: str) -> bool:
     """Move a unit to running if it is queued or its lease expired; False means a duplicate."""
     now = utcnow()
-    claimed = session.execute(
+    claimed: CursorResult[Any] = session.execute(  # type: ignore[assignment]
         update(WorkUnit)
         .where(
             WorkUnit.id == unit_id,
@@ -60,8 +61,13 @@ def claim_unit(session: Session, unit_id: int, worker: str) -> bool:
             ),
             WorkUnit.attempts < MAX_ATTEMPTS,
         )
-        .values(status="running", attempts=WorkUnit.attempts + 1, lease_until=now + LEASE,
-                worker=worker, started_at=now)
+        .values(
+            status="running",
+            attempts=WorkUnit.attempts + 1,
+            lease_until=now + LEASE,
+            worker=worker,
+            started_at=now,
+        )
     )
     return claimed.rowcount == 1
 
@@ -85,17 +91,31 @@ def _save_model(outcome: UnitOutcome, settings: Settings) -> tuple[str, Path, in
 
 
 def _record(
-    session: Session, unit: WorkUnit, outcome: UnitOutcome, loaded: LoadedPlan,
-    settings: Settings, worker: str,
+    session: Session,
+    unit: WorkUnit,
+    outcome: UnitOutcome,
+    loaded: LoadedPlan,
+    settings: Settings,
+    worker: str,
 ) -> None:
     seed = unit_seed(loaded, unit.candidate_key)
     rows = [
-        {"dataset_hash": loaded.dataset_hash, "fold_fingerprint": fold["fingerprint"],
-         "candidate_key": unit.candidate_key, "metric": metric, "value": value,
-         "fit_seconds": fold["fit_seconds"], "score_seconds": fold["score_seconds"],
-         "n_train": fold["n_train"], "n_test": fold["n_test"], "seed": seed,
-         "versions": loaded.plan.versions, "worker": worker, "job_id": unit.job_id,
-         "unit_id": unit.id}
+        {
+            "dataset_hash": loaded.dataset_hash,
+            "fold_fingerprint": fold["fingerprint"],
+            "candidate_key": unit.candidate_key,
+            "metric": metric,
+            "value": value,
+            "fit_seconds": fold["fit_seconds"],
+            "score_seconds": fold["score_seconds"],
+            "n_train": fold["n_train"],
+            "n_test": fold["n_test"],
+            "seed": seed,
+            "versions": loaded.plan.versions,
+            "worker": worker,
+            "job_id": unit.job_id,
+            "unit_id": unit.id,
+        }
         for fold in outcome.folds
         for metric, value in fold["scores"].items()
     ]
@@ -104,10 +124,20 @@ def _record(
     if outcome.model is not None:
         digest, path, size = _save_model(outcome, settings)
         final = pick(loaded.plan, FINAL_SCOPE, load_book(session, loaded))
-        insert_ignoring_duplicates(session, FinalModel, [{
-            "job_id": unit.job_id, "candidate_key": final.candidate.key, "sha256": digest,
-            "path": str(path), "size_bytes": size, "inner_mean": final.inner_mean,
-        }])
+        insert_ignoring_duplicates(
+            session,
+            FinalModel,
+            [
+                {
+                    "job_id": unit.job_id,
+                    "candidate_key": final.candidate.key,
+                    "sha256": digest,
+                    "path": str(path),
+                    "size_bytes": size,
+                    "inner_mean": final.inner_mean,
+                }
+            ],
+        )
 
 
 def unit_seed(loaded: LoadedPlan, candidate_key: str) -> int | None:
@@ -117,8 +147,12 @@ def unit_seed(loaded: LoadedPlan, candidate_key: str) -> int | None:
 
 
 def _finish(
-    sessions: sessionmaker[Session], unit_id: int, status: str, error: str | None,
-    fits: int = 0, seconds: float | None = None,
+    sessions: sessionmaker[Session],
+    unit_id: int,
+    status: str,
+    error: str | None,
+    fits: int = 0,
+    seconds: float | None = None,
 ) -> None:
     with sessions.begin() as session:
         unit = session.get_one(WorkUnit, unit_id)
@@ -129,8 +163,17 @@ def _finish(
             session.execute(
                 update(Job)
                 .where(Job.id == unit.job_id, Job.status.in_(("queued", "running")))
-                .values(status="failed", finished_at=utcnow(),
-                        error=f"unit {unit_id} ({unit.kind} {unit.scope}) failed: {first_line}")
+                .values(
+                    status="failed",
+                    finished_at=utcnow(),
+                    error=f"unit {unit_id} ({unit.kind} {unit.scope}) failed: {first_line}",
+                )
+            )
+            # the job cannot succeed any more: units not yet started need not start
+            session.execute(
+                update(WorkUnit)
+                .where(WorkUnit.job_id == unit.job_id, WorkUnit.status == "queued")
+                .values(status="cancelled")
             )
 
 
@@ -145,7 +188,8 @@ def execute_unit(
         job_id = unit.job_id
         ref = UnitRef(unit.kind, unit.scope, unit.candidate_key)  # type: ignore[arg-type]
         session.execute(
-            update(Job).where(Job.id == job_id, Job.status == "queued")
+            update(Job)
+            .where(Job.id == job_id, Job.status == "queued")
             .values(status="running", started_at=utcnow())
         )
     try:
@@ -163,7 +207,5 @@ def execute_unit(
         _record(session, unit, outcome, loaded, settings, worker)
         unit.status, unit.finished_at = "done", utcnow()
         unit.fits, unit.seconds = outcome.fits, outcome.seconds
-        session.execute(
-            update(Job).where(Job.id == job_id).values(units_done=Job.units_done + 1)
-        )
+        session.execute(update(Job).where(Job.id == job_id).values(units_done=Job.units_done + 1))
     return UnitReport(unit_id, job_id, "done", outcome.fits)

@@ -54,9 +54,7 @@ def plan_for_job(session: Session, job_id: str, settings: Settings) -> LoadedPla
         _CACHE.move_to_end(job_id)
         return _CACHE[job_id]
     job = session.get_one(Job, job_id)
-    dataset = session.scalars(
-        select(Dataset).where(Dataset.content_hash == job.dataset_hash)
-    ).one()
+    dataset = session.scalars(select(Dataset).where(Dataset.content_hash == job.dataset_hash)).one()
     frame = read_table_cached(job.dataset_hash, settings.dataset_dir)
     kinds = {col["name"]: col["kind"] for col in dataset.columns}
     request = JobRequest.model_validate(job.request)

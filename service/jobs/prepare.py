@@ -43,9 +43,7 @@ def _registered(session: Session, content_hash: str, settings: Settings) -> Load
     return LoadedTable(frame, kinds, content_hash, dict(dataset.origin))
 
 
-def prepare_job(
-    data: Any, *, session: Session, settings: Settings, base_dir: Path
-) -> PreparedJob:
+def prepare_job(data: Any, *, session: Session, settings: Settings, base_dir: Path) -> PreparedJob:
     """Parse, load and plan a job request; raises BadInput with the field to fix."""
     request = parse_job_request(data)
     if isinstance(request.dataset, str):

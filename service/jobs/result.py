@@ -32,12 +32,18 @@ def versions() -> dict[str, str]:
 def work_summary(session: Session, job: Job) -> dict[str, Any]:
     """How much work the job took: units, fits and wall seconds since submission."""
     done, fits = session.execute(
-        select(func.count(), func.coalesce(func.sum(WorkUnit.fits), 0))
-        .where(WorkUnit.job_id == job.id, WorkUnit.status == "done")
+        select(func.count(), func.coalesce(func.sum(WorkUnit.fits), 0)).where(
+            WorkUnit.job_id == job.id, WorkUnit.status == "done"
+        )
     ).one()
     seconds = (utcnow() - job.created_at).total_seconds()
-    return {"units_total": job.units_total, "units_computed": int(done), "units_reused": 0,
-            "fits": int(fits), "seconds": round(seconds, 3)}
+    return {
+        "units_total": job.units_total,
+        "units_computed": int(done),
+        "units_reused": 0,
+        "fits": int(fits),
+        "seconds": round(seconds, 3),
+    }
 
 
 def build_result(

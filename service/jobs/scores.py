@@ -1,4 +1,4 @@
-"""Reading a job's fold scores back from the store in the engine's (fold, candidate, metric) form."""
+"""A job's fold scores read back from the store, keyed as the engine keys them."""
 
 from __future__ import annotations
 
@@ -15,9 +15,9 @@ def load_book(session: Session, loaded: LoadedPlan) -> ScoreBook:
     plan = loaded.plan
     keys = [c.key for c in plan.candidates]
     rows = session.execute(
-        select(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric,
-               FoldScore.value)
-        .where(
+        select(
+            FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric, FoldScore.value
+        ).where(
             FoldScore.dataset_hash == loaded.dataset_hash,
             FoldScore.fold_fingerprint.in_(sorted(fold_fingerprints(plan))),
             FoldScore.candidate_key.in_(keys),

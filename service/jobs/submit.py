@@ -6,6 +6,7 @@ import uuid
 from typing import Any
 
 import numpy as np
+from sqlalchemy import insert
 from sqlalchemy.orm import Session
 
 from service.config import Settings
@@ -43,19 +44,31 @@ def _job_fold_rows(job_id: str, prepared: PreparedJob) -> list[dict[str, Any]]:
     rows = []
     for outer in plan.outer:
         rows.append(
-            {"job_id": job_id, "role": "outer", "scope": FINAL_SCOPE, "repeat": outer.repeat,
-             "fold_index": outer.index, "fingerprint": outer.fingerprint,
-             "parent_repeat": None, "parent_fold": None}
+            {
+                "job_id": job_id,
+                "role": "outer",
+                "scope": FINAL_SCOPE,
+                "repeat": outer.repeat,
+                "fold_index": outer.index,
+                "fingerprint": outer.fingerprint,
+                "parent_repeat": None,
+                "parent_fold": None,
+            }
         )
     for scope, folds in plan.inner.items():
         parent = None if scope == FINAL_SCOPE else plan.outer_fold(scope)
         for fold in folds:
             rows.append(
-                {"job_id": job_id, "role": "final_inner" if parent is None else "inner",
-                 "scope": scope, "repeat": fold.repeat, "fold_index": fold.index,
-                 "fingerprint": fold.fingerprint,
-                 "parent_repeat": parent.repeat if parent else None,
-                 "parent_fold": parent.index if parent else None}
+                {
+                    "job_id": job_id,
+                    "role": "final_inner" if parent is None else "inner",
+                    "scope": scope,
+                    "repeat": fold.repeat,
+                    "fold_index": fold.index,
+                    "fingerprint": fold.fingerprint,
+                    "parent_repeat": parent.repeat if parent else None,
+                    "parent_fold": parent.index if parent else None,
+                }
             )
     return rows
 
@@ -66,8 +79,15 @@ def unit_row(job_id: str, kind: str, scope: str, candidate_key: str) -> dict[str
     if scope != FINAL_SCOPE:
         repeat_text, fold_text = scope[1:].split("f")
         repeat, fold = int(repeat_text), int(fold_text)
-    return {"job_id": job_id, "kind": kind, "scope": scope, "outer_repeat": repeat,
-            "outer_fold": fold, "candidate_key": candidate_key, "status": "queued"}
+    return {
+        "job_id": job_id,
+        "kind": kind,
+        "scope": scope,
+        "outer_repeat": repeat,
+        "outer_fold": fold,
+        "candidate_key": candidate_key,
+        "status": "queued",
+    }
 
 
 def create_job(
@@ -84,41 +104,57 @@ def create_job(
     """
     table, plan = prepared.table, prepared.plan
     save_table(table.frame, table.content_hash, settings.dataset_dir)
-    insert_ignoring_duplicates(session, Dataset, [{
-        "content_hash": table.content_hash,
-        "n_rows": len(table.frame),
-        "n_columns": table.frame.shape[1],
-        "columns": [{"name": n, "kind": k} for n, k in table.kinds.items()],
-        "origin": dict(table.origin),
-    }])
-    insert_ignoring_duplicates(session, Candidate, [
-        {"candidate_key": c.key, "estimator": c.estimator, "params": c.params,
-         "preprocess": c.preprocess}
-        for c in plan.candidates
-    ])
+    insert_ignoring_duplicates(
+        session,
+        Dataset,
+        [
+            {
+                "content_hash": table.content_hash,
+                "n_rows": len(table.frame),
+                "n_columns": table.frame.shape[1],
+                "columns": [{"name": n, "kind": k} for n, k in table.kinds.items()],
+                "origin": dict(table.origin),
+            }
+        ],
+    )
+    insert_ignoring_duplicates(
+        session,
+        Candidate,
+        [
+            {
+                "candidate_key": c.key,
+                "estimator": c.estimator,
+                "params": c.params,
+                "preprocess": c.preprocess,
+            }
+            for c in plan.candidates
+        ],
+    )
     folds = list(plan.outer) + [f for group in plan.inner.values() for f in group]
     insert_ignoring_duplicates(
         session, Fold, [_fold_row(f, table.content_hash, plan.n_rows, plan.versions) for f in folds]
     )
     job_id = uuid.uuid4().hex
     first_units = inner_units(plan)
-    session.add(Job(
-        id=job_id,
-        dataset_hash=table.content_hash,
-        status="queued",
-        stage="inner",
-        request=prepared.request.model_dump(mode="json"),
-        units_total=len(first_units) + len(plan.outer) + 1,
-        idempotency_key=idempotency_key,
-    ))
+    session.add(
+        Job(
+            id=job_id,
+            dataset_hash=table.content_hash,
+            status="queued",
+            stage="inner",
+            request=prepared.request.model_dump(mode="json"),
+            units_total=len(first_units) + len(plan.outer) + 1,
+            idempotency_key=idempotency_key,
+        )
+    )
     session.flush()
     session.add_all(
         JobCandidate(job_id=job_id, position=c.position, candidate_key=c.key)
         for c in plan.candidates
     )
-    session.execute(JobFold.__table__.insert(), _job_fold_rows(job_id, prepared))
+    session.execute(insert(JobFold), _job_fold_rows(job_id, prepared))
     session.execute(
-        WorkUnit.__table__.insert(),
+        insert(WorkUnit),
         [unit_row(job_id, u.kind, u.scope, u.candidate_key) for u in first_units],
     )
     return job_id
