@@ -47,7 +47,9 @@ def _read_job_file(path: Path) -> Any:
     try:
         return json.loads(path.read_text(encoding="utf-8"))
     except UnicodeDecodeError:
-        raise BadInput(str(path), "is not a UTF-8 text file; give a job request JSON file.") from None
+        raise BadInput(
+            str(path), "is not a UTF-8 text file; give a job request JSON file."
+        ) from None
     except json.JSONDecodeError as exc:
         raise BadInput(
             str(path), f"is not valid JSON ({exc.msg} at line {exc.lineno}, column {exc.colno})."
@@ -64,8 +66,9 @@ def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path) -> None:
     settings = load_settings()
     try:
         with unit_progress(stderr) as progress:
-            outcome = run_embedded(job, settings=settings, workers=workers, base_dir=base_dir,
-                                   progress=progress)
+            outcome = run_embedded(
+                job, settings=settings, workers=workers, base_dir=base_dir, progress=progress
+            )
     except JobFailed as exc:
         _fail(str(exc))
     if as_json:
@@ -77,7 +80,9 @@ def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path) -> None:
 @app.command()
 def select(
     job_file: Annotated[Path, typer.Argument(metavar="JOB.json", help="A job request v1 file.")],
-    as_json: Annotated[bool, typer.Option("--json", help="Print result v1 alone on stdout.")] = False,
+    as_json: Annotated[
+        bool, typer.Option("--json", help="Print result v1 alone on stdout.")
+    ] = False,
     workers: Annotated[int, typer.Option(help="Local worker processes.")] = 1,
 ) -> None:
     """Run a selection job here (embedded mode) and print its result."""
@@ -129,11 +134,11 @@ def demo(
     job_file = DEMO_DIR / "pump_job.json"
     stderr.print(
         "Larkmere Water (an invented utility): which pumps fail within 30 days? Running nested "
-        f"cross-validation on {DEMO_DIR / 'pump_failures.csv'} ...", markup=False,
+        f"cross-validation on {DEMO_DIR / 'pump_failures.csv'} ...",
+        markup=False,
     )
     try:
-        _select(_read_job_file(job_file), as_json=False, workers=workers,
-                base_dir=DEMO_DIR.parent)
+        _select(_read_job_file(job_file), as_json=False, workers=workers, base_dir=DEMO_DIR.parent)
     except BadInput as exc:
         _refuse(exc)
 

@@ -25,8 +25,14 @@ def unit_progress(console: Console) -> Iterator[ProgressCallback | None]:
         yield None
         return
     bar = Progress(
-        TextColumn("units"), BarColumn(), MofNCompleteColumn(), TextColumn("elapsed"),
-        TimeElapsedColumn(), TextColumn("left"), TimeRemainingColumn(), console=console,
+        TextColumn("units"),
+        BarColumn(),
+        MofNCompleteColumn(),
+        TextColumn("elapsed"),
+        TimeElapsedColumn(),
+        TextColumn("left"),
+        TimeRemainingColumn(),
+        console=console,
         transient=True,
     )
     task = bar.add_task("units", total=None)

@@ -16,29 +16,47 @@ def _params(params: dict[str, Any]) -> str:
 def print_result(console: Console, result: dict[str, Any], job_id: str) -> None:
     """The estimate, each outer fold's pick, the final pick, the optimism gap and cautions."""
     pick_by = result["pick_by"]
-    console.print(f"[bold]Nested cross-validation[/bold] of dataset {result['dataset_hash'][:12]}"
-                  f" ({result['n_rows']} rows, {result['task']}), job {job_id}")
+    console.print(
+        f"[bold]Nested cross-validation[/bold] of dataset {result['dataset_hash'][:12]}"
+        f" ({result['n_rows']} rows, {result['task']}), job {job_id}"
+    )
     estimate = Table(title="Estimate over outer folds (for data like this data)")
     for column in ("metric", "mean", "std", "se", "per fold"):
         estimate.add_column(column, justify="left" if column in ("metric", "per fold") else "right")
     for metric, row in result["estimate"].items():
         folds = " ".join(f"{v:.4f}" for v in row["values"])
-        estimate.add_row(metric, f"{row['mean']:.4f}", f"{row['std']:.4f}", f"{row['se']:.4f}",
-                         folds)
+        estimate.add_row(
+            metric, f"{row['mean']:.4f}", f"{row['std']:.4f}", f"{row['se']:.4f}", folds
+        )
     console.print(estimate)
     outer = Table(title=f"Pick of each outer fold (by inner mean {pick_by})")
-    for column in ("repeat", "fold", "train", "test", "pick", f"inner {pick_by}",
-                   f"outer {pick_by}"):
+    for column in (
+        "repeat",
+        "fold",
+        "train",
+        "test",
+        "pick",
+        f"inner {pick_by}",
+        f"outer {pick_by}",
+    ):
         outer.add_column(column)
     for row in result["outer"]:
         pick = row["pick"]
-        outer.add_row(str(row["repeat"]), str(row["fold"]), str(row["n_train"]),
-                      str(row["n_test"]), f"{pick['estimator']}({_params(pick['params'])})",
-                      f"{row['inner_mean']:.4f}", f"{row['scores'][pick_by]:.4f}")
+        outer.add_row(
+            str(row["repeat"]),
+            str(row["fold"]),
+            str(row["n_train"]),
+            str(row["n_test"]),
+            f"{pick['estimator']}({_params(pick['params'])})",
+            f"{row['inner_mean']:.4f}",
+            f"{row['scores'][pick_by]:.4f}",
+        )
     console.print(outer)
     final = result["final_pick"]
-    console.print(f"[bold]Final pick[/bold] (inner procedure on all rows, refit on all rows): "
-                  f"{final['estimator']}({_params(final['params'])})")
+    console.print(
+        f"[bold]Final pick[/bold] (inner procedure on all rows, refit on all rows): "
+        f"{final['estimator']}({_params(final['params'])})"
+    )
     console.print(f"  model sha256 {final['model_sha256']}")
     gap = result["optimism_gap"]
     console.print(
@@ -47,8 +65,10 @@ def print_result(console: Console, result: dict[str, Any], job_id: str) -> None:
         f"{result['estimate'][pick_by]['mean']:.4f}."
     )
     work = result["work"]
-    console.print(f"Work: {work['units_computed']} of {work['units_total']} units, "
-                  f"{work['fits']} fits, {work['seconds']:.1f} s.")
+    console.print(
+        f"Work: {work['units_computed']} of {work['units_total']} units, "
+        f"{work['fits']} fits, {work['seconds']:.1f} s."
+    )
     console.print("[bold]Cautions[/bold]")
     for caution in result["cautions"]:
         console.print(f"  - {caution}")

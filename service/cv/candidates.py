@@ -15,7 +15,7 @@ from service.cv.errors import SpecError
 from service.cv.estimators import check_params, estimator_class, has_random_state
 from service.cv.spec import FamilySpec, RangeSpec, SelectionSpec
 
-# A job fans out to outer k × inner k × candidates fits; past this many candidates a request is
+# A job fans out to outer k x inner k x candidates fits; past this many candidates a request is
 # almost surely a mistake (or a denial of service) and is refused before anything is stored.
 MAX_CANDIDATES = 2000
 
@@ -67,7 +67,7 @@ def draw_ranges(ranges: dict[str, RangeSpec], draws: int, seed: int) -> list[dic
                 value = math.exp(rng.uniform(math.log(spec.low), math.log(high)))
             else:
                 value = rng.uniform(spec.low, high)
-            point[name] = min(int(math.floor(value)), int(spec.high)) if spec.integer else value
+            point[name] = min(math.floor(value), int(spec.high)) if spec.integer else value
         points.append(point)
     return points
 

@@ -25,7 +25,7 @@ def record(book: ScoreBook, outcome: UnitOutcome) -> None:
 
 
 def refit_units(picks: dict[str, Pick]) -> list[UnitRef]:
-    """The second phase: each outer fold's pick refit on its training part, the final pick on all."""
+    """Second phase: each outer fold's pick refit on its training part, the final pick on all."""
     refs = [
         UnitRef("outer_refit", scope, p.candidate.key)
         for scope, p in picks.items()

@@ -70,7 +70,7 @@ def describe_values(values: list[float]) -> dict[str, Any]:
 def assemble(plan: SelectionPlan, book: ScoreBook, picks: dict[str, Pick]) -> dict[str, Any]:
     """The engine's part of result v1: outer folds, estimate, final pick, frequency, gap."""
     spec = plan.spec
-    outer = []
+    outer: list[dict[str, Any]] = []
     for fold in plan.outer:
         chosen = picks[fold.scope]
         scores = {m: book[(fold.fingerprint, chosen.candidate.key, m)] for m in spec.metrics}

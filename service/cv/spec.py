@@ -46,15 +46,22 @@ class FamilySpec(_Strict):
     def _consistent(self) -> FamilySpec:
         for name, values in self.grid.items():
             if not values:
-                raise ValueError(f"grid: the value list for {name!r} is empty; give at least one value")
+                raise ValueError(
+                    f"grid: the value list for {name!r} is empty; give at least one value"
+                )
         if self.ranges and self.draws is None:
             raise ValueError("draws: ranges need draws (how many points to sample), e.g. draws: 8")
         if self.draws is not None and not self.ranges:
-            raise ValueError("draws: is set but there are no ranges to draw from; remove it or add ranges")
+            raise ValueError(
+                "draws: is set but there are no ranges to draw from; remove it or add ranges"
+            )
         overlap = (set(self.fixed) & set(self.grid)) | (set(self.fixed) & set(self.ranges))
         overlap |= set(self.grid) & set(self.ranges)
         if overlap:
-            raise ValueError(f"fixed: {sorted(overlap)} given more than once among fixed, grid and ranges; keep one")
+            raise ValueError(
+                f"fixed: {sorted(overlap)} given more than once among fixed, grid and ranges; "
+                "keep one"
+            )
         return self
 
 
@@ -73,15 +80,22 @@ class SplitSpec(_Strict):
         if self.k < 2:
             raise ValueError("k: must be at least 2")
         if self.method == "group_kfold" and not self.groups:
-            raise ValueError("groups: group_kfold needs groups, the column that holds the group labels")
+            raise ValueError(
+                "groups: group_kfold needs groups, the column that holds the group labels"
+            )
         if self.method == "time_series" and not self.order_by:
-            raise ValueError("order_by: time_series needs order_by, the column that orders the rows in time")
+            raise ValueError(
+                "order_by: time_series needs order_by, the column that orders the rows in time"
+            )
         if self.repeats > 1 and self.method in ("group_kfold", "time_series"):
             raise ValueError(
-                f"repeats: more than one repeat is only for kfold and stratified_kfold, not {self.method}"
+                "repeats: more than one repeat is only for kfold and stratified_kfold, "
+                f"not {self.method}"
             )
         if self.repeats > 1 and self.seed is None:
-            raise ValueError("seed: repeats > 1 needs a seed so the repeated splits can be reproduced")
+            raise ValueError(
+                "seed: repeats > 1 needs a seed so the repeated splits can be reproduced"
+            )
         return self
 
 
@@ -103,7 +117,10 @@ class SelectionSpec(_Strict):
         if len(set(self.metrics)) != len(self.metrics):
             raise ValueError("metrics: a metric is listed twice; name each once")
         if self.pick_by is not None and self.pick_by not in self.metrics:
-            raise ValueError(f"pick_by: {self.pick_by!r} is not among metrics; add it to metrics or pick one of them")
+            raise ValueError(
+                f"pick_by: {self.pick_by!r} is not among metrics; add it to metrics or pick one "
+                "of them"
+            )
         if self.features is not None and not self.features:
             raise ValueError("features: is empty; list columns or use null for all but the target")
         return self
