@@ -1,0 +1,162 @@
+"""Engines, sessions and migrations for the store, on SQLite (embedded) or PostgreSQL."""
+
+from __future__ import annotations
+
+import json
+import sqlite3
+import time
+from pathlib import Path
+from typing import Any
+
+from alembic import command
+from alembic.config import Config
+from sqlalchemy import Connection, Engine, Insert, Table, create_engine, event, text
+from sqlalchemy.dialects import postgresql, sqlite
+from sqlalchemy.engine import make_url
+from sqlalchemy.orm import Session, sessionmaker
+
+from service.store.models import Base
+from service.store.types import utcnow
+
+__all__ = [
+    "dispose_after_fork",
+    "insert_ignoring_duplicates",
+    "make_engine",
+    "make_session_factory",
+    "upgrade_database",
+    "utcnow",
+]
+
+MIGRATIONS = Path(__file__).resolve().parent / "migrations"
+# Any constant will do; it only has to be the same in every process that migrates.
+_MIGRATION_LOCK = 0x666F6C64  # "fold"
+
+
+def _dump_json(value: Any) -> str:
+    # PostgreSQL refuses NaN and Infinity inside JSON; refusing them here too makes SQLite fail the
+    # same way instead of storing a document PostgreSQL could not load.
+    return json.dumps(value, allow_nan=False, separators=(",", ":"))
+
+
+def make_engine(url: str, *, busy_timeout_ms: int = 30_000) -> Engine:
+    """An engine for `url`, tuned for SQLite's single writer or a small PostgreSQL pool."""
+    parsed = make_url(url)
+    if parsed.get_backend_name() != "sqlite":
+        return create_engine(
+            url, json_serializer=_dump_json, pool_pre_ping=True, pool_size=2, max_overflow=3
+        )
+    if (
+        parsed.database
+        and parsed.database != ":memory:"
+        and not parsed.database.startswith("file:")
+    ):
+        Path(parsed.database).expanduser().parent.mkdir(parents=True, exist_ok=True)
+    engine = create_engine(url, json_serializer=_dump_json)
+    _tune_sqlite(engine, busy_timeout_ms)
+    return engine
+
+
+def _tune_sqlite(engine: Engine, busy_timeout_ms: int) -> None:
+    @event.listens_for(engine, "connect")
+    def _on_connect(dbapi_connection: Any, _record: Any) -> None:
+        # Take BEGIN away from the sqlite3 module (it skips it before SELECT and DDL) so the
+        # "begin" hook below decides how every transaction starts (SQLAlchemy's SQLite docs,
+        # "Enabling Non-Legacy SQLite Transactional Modes").
+        dbapi_connection.isolation_level = None
+        cursor = dbapi_connection.cursor()
+        # The busy timeout makes a second writer wait for the lock instead of failing at once.
+        cursor.execute(f"PRAGMA busy_timeout={int(busy_timeout_ms)}")
+        cursor.execute("PRAGMA foreign_keys=ON")
+        _enter_wal(cursor, deadline=time.monotonic() + busy_timeout_ms / 1000)
+        cursor.close()
+
+    @event.listens_for(engine, "begin")
+    def _on_begin(connection: Connection) -> None:
+        # IMMEDIATE takes the write lock up front, where the busy timeout applies. A deferred
+        # transaction that reads and then writes fails with SQLITE_BUSY at once when another
+        # writer got in between, and waiting cannot help it. The cost is that read-only
+        # transactions queue behind writers too; ours are short.
+        connection.exec_driver_sql("BEGIN IMMEDIATE")
+
+
+def _enter_wal(cursor: Any, *, deadline: float) -> None:
+    # WAL lets readers proceed while one writer commits. The mode is stored in the file, so this
+    # is a no-op except on a new database, where switching needs a lock that SQLite does not wait
+    # for (no busy handler on that path): processes opening a fresh file together retry here.
+    while True:
+        try:
+            cursor.execute("PRAGMA journal_mode=WAL")
+            return
+        except sqlite3.OperationalError as error:
+            if "locked" not in str(error) or time.monotonic() > deadline:
+                raise
+            time.sleep(0.01)
+
+
+def make_session_factory(engine: Engine) -> sessionmaker[Session]:
+    """Sessions bound to `engine` whose objects stay readable after commit."""
+    return sessionmaker(bind=engine, expire_on_commit=False)
+
+
+def alembic_config(url: str) -> Config:
+    """An Alembic configuration for the packaged migrations; no alembic.ini needed."""
+    config = Config()
+    config.set_main_option("script_location", str(MIGRATIONS))
+    # Dated file names, so the versions folder lists in the order the schema changed.
+    config.set_main_option(
+        "file_template", "%%(year)d_%%(month).2d_%%(day).2d_%%(hour).2d%%(minute).2d_%%(slug)s"
+    )
+    # configparser would read "%" in an encoded password as interpolation.
+    config.set_main_option("sqlalchemy.url", url.replace("%", "%%"))
+    return config
+
+
+def upgrade_database(url: str) -> None:
+    """Bring the schema at `url` to the newest revision; a no-op when it is already there."""
+    engine = make_engine(url)
+    try:
+        with engine.begin() as connection:
+            if connection.dialect.name == "postgresql":
+                # Two processes starting at once (API and a worker) would both see an empty
+                # schema; the second waits here and then finds the revision already applied.
+                connection.execute(
+                    text("SELECT pg_advisory_xact_lock(:key)"), {"key": _MIGRATION_LOCK}
+                )
+            # On SQLite the BEGIN IMMEDIATE of this transaction serialises migrators the same way.
+            config = alembic_config(url)
+            config.attributes["connection"] = connection
+            command.upgrade(config, "head")
+    finally:
+        engine.dispose()
+
+
+def insert_ignoring_duplicates(
+    session: Session, table: Table | type[Base], rows: list[dict[str, Any]]
+) -> int:
+    """Insert `rows`, skipping any that collide with an existing key; return how many went in.
+
+    Every row must carry the same keys (they go in as one executemany).
+    """
+    if not rows:
+        return 0
+    target = table if isinstance(table, Table) else table.__table__
+    if not isinstance(target, Table):  # a mapped class over a join or a select
+        raise TypeError(f"insert_ignoring_duplicates needs a table, not {target!r}")
+    dialect = session.get_bind().dialect.name
+    statement: Insert
+    if dialect == "postgresql":
+        statement = postgresql.insert(target).on_conflict_do_nothing()
+    elif dialect == "sqlite":
+        statement = sqlite.insert(target).on_conflict_do_nothing()
+    else:
+        raise NotImplementedError(f"insert_ignoring_duplicates: no recipe for {dialect}")
+    # Count the rows RETURNING hands back rather than trusting cursor.rowcount, which DBAPIs
+    # define loosely for executemany; skipped rows return nothing.
+    returned = session.execute(statement.returning(*target.primary_key.columns), rows)
+    return len(returned.all())
+
+
+def dispose_after_fork(engine: Engine) -> None:
+    """Drop the pool a forked child inherited without closing the parent's connections."""
+    # SQLAlchemy pooling docs, "Using Connection Pools with Multiprocessing or os.fork()".
+    engine.dispose(close=False)

@@ -1,0 +1,277 @@
+"""The SQL schema: every table foldwise keeps, in SQLAlchemy 2 declarative form.
+
+Statuses and roles are short strings guarded by named CHECK constraints rather than database
+enums: adding a value is then one `ALTER TABLE` on PostgreSQL and one batch copy on SQLite, and the
+values read the same in both.
+"""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Any, ClassVar
+
+from sqlalchemy import (
+    BigInteger,
+    Boolean,
+    CheckConstraint,
+    Double,
+    ForeignKey,
+    Index,
+    LargeBinary,
+    MetaData,
+    String,
+    UniqueConstraint,
+    false,
+)
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
+
+from service.store.types import (
+    CreatedAt,
+    Hash64,
+    JsonDoc,
+    JsonList,
+    JSONType,
+    LongText,
+    Short,
+    UtcDateTime,
+)
+
+JOB_STATUSES = ("queued", "running", "succeeded", "failed", "cancelled")
+JOB_STAGES = ("inner", "outer", "aggregating", "done")
+FOLD_ROLES = ("outer", "inner", "final_inner")
+UNIT_KINDS = ("inner", "outer_refit", "final_refit")
+UNIT_STATUSES = ("queued", "running", "done", "failed", "cancelled")
+ALL_ROWS = "all"  # the scope of work on every row, as opposed to "r{repeat}f{fold}"
+
+
+def _one_of(column: str, values: tuple[str, ...]) -> str:
+    return f"{column} IN ({', '.join(repr(v) for v in values)})"
+
+
+def _scope_matches(repeat: str, fold: str) -> str:
+    # scope is the key the unique constraints use (NULLs never collide in a UNIQUE, so the
+    # nullable outer coordinates cannot be part of the key); this keeps the two in step. The
+    # IS NOT NULL terms matter: 'r' || NULL is NULL, and a CHECK that yields NULL passes.
+    return (
+        f"(scope = '{ALL_ROWS}' AND {repeat} IS NULL AND {fold} IS NULL) OR "
+        f"({repeat} IS NOT NULL AND {fold} IS NOT NULL AND "
+        f"scope = 'r' || CAST({repeat} AS VARCHAR) || 'f' || CAST({fold} AS VARCHAR))"
+    )
+
+
+class Base(DeclarativeBase):
+    """Declarative base; constraint names follow one convention so migrations can name them."""
+
+    metadata = MetaData(
+        naming_convention={
+            "ix": "ix_%(table_name)s_%(column_0_N_name)s",
+            "uq": "uq_%(table_name)s_%(column_0_N_name)s",
+            "ck": "ck_%(table_name)s_%(constraint_name)s",
+            "fk": "fk_%(table_name)s_%(column_0_name)s_%(referred_table_name)s",
+            "pk": "pk_%(table_name)s",
+        }
+    )
+    type_annotation_map: ClassVar[dict[Any, Any]] = {
+        datetime: UtcDateTime(),
+        float: Double(),
+        bytes: LargeBinary(),
+        JsonDoc: JSONType,
+        JsonList: JSONType,
+    }
+
+
+class Dataset(Base):
+    """A registered table, known by the hash of its canonical serialisation."""
+
+    __tablename__ = "dataset"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    content_hash: Mapped[Hash64] = mapped_column(unique=True)
+    n_rows: Mapped[int]
+    n_columns: Mapped[int]
+    columns: Mapped[JsonList]  # [{"name": ..., "kind": ...}] in table order
+    origin: Mapped[JsonDoc]
+    created_at: Mapped[CreatedAt]
+
+
+class Job(Base):
+    """One selection job: the request, its progress and, once finished, its result."""
+
+    __tablename__ = "job"
+    __table_args__ = (
+        CheckConstraint(_one_of("status", JOB_STATUSES), name="status"),
+        CheckConstraint(_one_of("stage", JOB_STAGES), name="stage"),
+    )
+
+    id: Mapped[str] = mapped_column(String(32), primary_key=True)  # uuid4 hex, made by the caller
+    dataset_hash: Mapped[Hash64] = mapped_column(ForeignKey("dataset.content_hash"), index=True)
+    status: Mapped[Short] = mapped_column(index=True)
+    # Fan-in elections move the stage with a conditional UPDATE, so exactly one worker wins.
+    stage: Mapped[Short] = mapped_column(default="inner", server_default="inner")
+    request: Mapped[JsonDoc]
+    result: Mapped[JsonDoc | None]
+    error: Mapped[LongText | None]
+    units_total: Mapped[int] = mapped_column(default=0, server_default="0")
+    units_done: Mapped[int] = mapped_column(default=0, server_default="0")
+    cancel_requested: Mapped[bool] = mapped_column(Boolean, default=False, server_default=false())
+    idempotency_key: Mapped[str | None] = mapped_column(String(200), unique=True)
+    created_at: Mapped[CreatedAt]
+    started_at: Mapped[datetime | None]
+    finished_at: Mapped[datetime | None]
+
+
+class Candidate(Base):
+    """One concrete (estimator, hyperparameters, preprocessing) point, shared across jobs."""
+
+    __tablename__ = "candidate"
+
+    candidate_key: Mapped[Hash64] = mapped_column(primary_key=True)
+    estimator: Mapped[str] = mapped_column(String(100))
+    params: Mapped[JsonDoc]
+    preprocess: Mapped[Short]
+    created_at: Mapped[CreatedAt]
+
+
+class JobCandidate(Base):
+    """A job's candidates in request order; the order breaks ties in the inner mean."""
+
+    __tablename__ = "job_candidate"
+
+    job_id: Mapped[str] = mapped_column(ForeignKey("job.id"), primary_key=True)
+    position: Mapped[int] = mapped_column(primary_key=True)
+    candidate_key: Mapped[Hash64] = mapped_column(ForeignKey("candidate.candidate_key"))
+
+
+class Fold(Base):
+    """One train/test division of a dataset's rows, stored as packed membership masks."""
+
+    __tablename__ = "fold"
+
+    fingerprint: Mapped[Hash64] = mapped_column(primary_key=True)
+    dataset_hash: Mapped[Hash64] = mapped_column(index=True)
+    n_train: Mapped[int]
+    n_test: Mapped[int]
+    train_mask: Mapped[bytes]  # numpy.packbits of the boolean train membership, row order
+    test_mask: Mapped[bytes]
+    versions: Mapped[JsonDoc]
+    created_at: Mapped[CreatedAt]
+
+
+class JobFold(Base):
+    """Where a fold sits in a job's plan: outer, inner within an outer fold, or final inner."""
+
+    __tablename__ = "job_fold"
+    __table_args__ = (
+        CheckConstraint(_one_of("role", FOLD_ROLES), name="role"),
+        # Inner folds split one outer training set; outer and final inner folds split all rows.
+        CheckConstraint(
+            f"(role = 'inner' AND scope <> '{ALL_ROWS}') OR "
+            f"(role <> 'inner' AND scope = '{ALL_ROWS}')",
+            name="role_scope",
+        ),
+        CheckConstraint(_scope_matches("parent_repeat", "parent_fold"), name="scope_parent"),
+    )
+
+    job_id: Mapped[str] = mapped_column(ForeignKey("job.id"), primary_key=True)
+    role: Mapped[Short] = mapped_column(primary_key=True)
+    scope: Mapped[Short] = mapped_column(primary_key=True)
+    repeat: Mapped[int] = mapped_column(primary_key=True)
+    fold_index: Mapped[int] = mapped_column(primary_key=True)
+    fingerprint: Mapped[Hash64] = mapped_column(ForeignKey("fold.fingerprint"), index=True)
+    parent_repeat: Mapped[int | None]
+    parent_fold: Mapped[int | None]
+
+
+class WorkUnit(Base):
+    """The grain of distribution: one candidate over all inner folds of one scope, or a refit."""
+
+    __tablename__ = "work_unit"
+    __table_args__ = (
+        CheckConstraint(_one_of("kind", UNIT_KINDS), name="kind"),
+        CheckConstraint(_one_of("status", UNIT_STATUSES), name="status"),
+        CheckConstraint(_scope_matches("outer_repeat", "outer_fold"), name="scope_outer"),
+        CheckConstraint(
+            f"(kind <> 'outer_refit' OR scope <> '{ALL_ROWS}') AND "
+            f"(kind <> 'final_refit' OR scope = '{ALL_ROWS}')",
+            name="kind_scope",
+        ),
+        # A redelivered "create units" step cannot make a twin unit.
+        UniqueConstraint("job_id", "kind", "scope", "candidate_key"),
+        # The reconciler and progress queries ask "units of job J in status S"; the leading
+        # job_id also serves lookups by job alone, so no separate job_id index.
+        Index(None, "job_id", "status"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True, autoincrement=True)
+    job_id: Mapped[str] = mapped_column(ForeignKey("job.id"))
+    kind: Mapped[Short]
+    scope: Mapped[Short]
+    outer_repeat: Mapped[int | None]
+    outer_fold: Mapped[int | None]
+    candidate_key: Mapped[Hash64] = mapped_column(ForeignKey("candidate.candidate_key"))
+    status: Mapped[Short] = mapped_column(default="queued", server_default="queued")
+    attempts: Mapped[int] = mapped_column(default=0, server_default="0")
+    lease_until: Mapped[datetime | None]
+    worker: Mapped[str | None] = mapped_column(String(200))
+    error: Mapped[LongText | None]
+    fits: Mapped[int] = mapped_column(default=0, server_default="0")
+    seconds: Mapped[float | None]
+    created_at: Mapped[CreatedAt]
+    started_at: Mapped[datetime | None]
+    finished_at: Mapped[datetime | None]
+
+
+class FoldScore(Base):
+    """One number with its provenance. Written once with ON CONFLICT DO NOTHING, never updated."""
+
+    __tablename__ = "fold_score"
+    __table_args__ = (
+        # Named by hand: the conventional name (all four columns) passes PostgreSQL's 63-byte
+        # limit and would be truncated with a hash suffix on PostgreSQL only.
+        UniqueConstraint(
+            "dataset_hash", "fold_fingerprint", "candidate_key", "metric", name="uq_fold_score_key"
+        ),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    dataset_hash: Mapped[Hash64]
+    fold_fingerprint: Mapped[Hash64] = mapped_column(ForeignKey("fold.fingerprint"))
+    candidate_key: Mapped[Hash64] = mapped_column(ForeignKey("candidate.candidate_key"))
+    metric: Mapped[str] = mapped_column(String(64))
+    value: Mapped[float]
+    fit_seconds: Mapped[float]
+    score_seconds: Mapped[float]
+    n_train: Mapped[int]
+    n_test: Mapped[int]
+    seed: Mapped[int | None]
+    versions: Mapped[JsonDoc]
+    worker: Mapped[str] = mapped_column(String(200))
+    job_id: Mapped[str] = mapped_column(ForeignKey("job.id"), index=True)
+    unit_id: Mapped[int | None] = mapped_column(ForeignKey("work_unit.id"))
+    created_at: Mapped[CreatedAt]
+
+
+class Pick(Base):
+    """The candidate the inner loop chose for one outer fold."""
+
+    __tablename__ = "pick"
+
+    job_id: Mapped[str] = mapped_column(ForeignKey("job.id"), primary_key=True)
+    outer_repeat: Mapped[int] = mapped_column(primary_key=True)
+    outer_fold: Mapped[int] = mapped_column(primary_key=True)
+    candidate_key: Mapped[Hash64] = mapped_column(ForeignKey("candidate.candidate_key"))
+    inner_mean: Mapped[float]
+
+
+class FinalModel(Base):
+    """The final pick refit on all rows, stored on disk under its sha256."""
+
+    __tablename__ = "final_model"
+
+    job_id: Mapped[str] = mapped_column(ForeignKey("job.id"), primary_key=True)
+    candidate_key: Mapped[Hash64] = mapped_column(ForeignKey("candidate.candidate_key"))
+    sha256: Mapped[Hash64]
+    path: Mapped[str] = mapped_column(String(1024))
+    size_bytes: Mapped[int] = mapped_column(BigInteger)  # a forest can pass 2 GiB
+    inner_mean: Mapped[float]
+    created_at: Mapped[CreatedAt]
