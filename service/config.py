@@ -4,17 +4,28 @@ from __future__ import annotations
 
 import os
 from dataclasses import dataclass, field
+from datetime import timedelta
 from pathlib import Path
+
+from service.errors import BadInput
 
 
 @dataclass(frozen=True)
 class Settings:
-    """Where foldwise keeps things; unset variables mean the embedded default under `home`."""
+    """Where foldwise keeps things and its limits; unset variables mean the embedded default."""
 
     home: Path
     database_url: str
     broker_url: str | None
     data_roots: tuple[Path, ...] = field(default_factory=tuple)
+    max_upload_bytes: int = 200 * 1024 * 1024
+    max_rows: int = 2_000_000
+    max_columns: int = 2_000
+    # hard time limit of one unit; the soft limit, the lease and the broker's visibility timeout
+    # are derived from it so that soft < hard < lease < visibility always holds
+    unit_time_limit: int = 3_000
+    reconcile_seconds: float = 30.0
+    republish_after: float = 300.0
 
     @property
     def dataset_dir(self) -> Path:
@@ -27,9 +38,42 @@ class Settings:
         return self.home / "models"
 
     @property
+    def upload_dir(self) -> Path:
+        """Where uploads are spooled while they are checked."""
+        return self.home / "uploads"
+
+    @property
     def embedded(self) -> bool:
         """True when no broker is configured: jobs run on the local process pool."""
         return self.broker_url is None
+
+    @property
+    def soft_time_limit(self) -> int:
+        """Seconds after which a unit is asked to stop."""
+        return max(1, int(self.unit_time_limit * 0.9))
+
+    @property
+    def unit_lease(self) -> timedelta:
+        """How long a claim holds: past the hard limit, a second claim means the first died."""
+        return timedelta(seconds=self.unit_time_limit + 30)
+
+    @property
+    def visibility_timeout(self) -> int:
+        """Seconds before Redis redelivers an unacknowledged message (after the lease ends)."""
+        return self.unit_time_limit + 60
+
+
+def _number(env: dict[str, str], name: str, default: float) -> float:
+    raw = env.get(name)
+    if raw is None or raw == "":
+        return default
+    try:
+        value = float(raw)
+    except ValueError:
+        raise BadInput(name, f"must be a number, not {raw!r}.") from None
+    if value <= 0:
+        raise BadInput(name, f"must be positive, not {raw!r}.")
+    return value
 
 
 def load_settings(env: dict[str, str] | None = None) -> Settings:
@@ -47,4 +91,10 @@ def load_settings(env: dict[str, str] | None = None) -> Settings:
         database_url=database_url,
         broker_url=env.get("FOLDWISE_BROKER_URL") or None,
         data_roots=roots,
+        max_upload_bytes=int(_number(env, "FOLDWISE_MAX_UPLOAD_MB", 200) * 1024 * 1024),
+        max_rows=int(_number(env, "FOLDWISE_MAX_ROWS", 2_000_000)),
+        max_columns=int(_number(env, "FOLDWISE_MAX_COLUMNS", 2_000)),
+        unit_time_limit=int(_number(env, "FOLDWISE_UNIT_TIME_LIMIT", 3_000)),
+        reconcile_seconds=_number(env, "FOLDWISE_RECONCILE_SECONDS", 30),
+        republish_after=_number(env, "FOLDWISE_REPUBLISH_AFTER", 300),
     )

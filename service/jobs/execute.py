@@ -28,8 +28,8 @@ from service.jobs.scores import load_book
 from service.store.db import insert_ignoring_duplicates, utcnow
 from service.store.models import FinalModel, FoldScore, Job, WorkUnit
 
-# A claim is a lease: a copy that has not finished by then is presumed dead and may be retried.
-LEASE = timedelta(hours=1)
+# A claim is a lease (settings.unit_lease): a copy that has not finished by then is presumed
+# dead and the unit may be claimed again, at most this many times in all.
 MAX_ATTEMPTS = 3
 
 
@@ -48,7 +48,7 @@ def worker_name() -> str:
     return f"{socket.gethostname()}:{os.getpid()}"
 
 
-def claim_unit(session: Session, unit_id: int, worker: str) -> bool:
+def claim_unit(session: Session, unit_id: int, worker: str, lease: timedelta) -> bool:
     """Move a unit to running if it is queued or its lease expired; False means a duplicate."""
     now = utcnow()
     claimed: CursorResult[Any] = session.execute(  # type: ignore[assignment]
@@ -64,7 +64,7 @@ def claim_unit(session: Session, unit_id: int, worker: str) -> bool:
         .values(
             status="running",
             attempts=WorkUnit.attempts + 1,
-            lease_until=now + LEASE,
+            lease_until=now + lease,
             worker=worker,
             started_at=now,
         )
@@ -182,7 +182,7 @@ def execute_unit(
 ) -> UnitReport:
     """Claim, run and record unit `unit_id`; never raises for a failing fit."""
     with sessions.begin() as session:
-        if not claim_unit(session, unit_id, worker):
+        if not claim_unit(session, unit_id, worker, settings.unit_lease):
             return UnitReport(unit_id, None, "skipped")
         unit = session.get_one(WorkUnit, unit_id)
         job_id = unit.job_id

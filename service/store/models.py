@@ -115,6 +115,12 @@ class Job(Base):
     units_done: Mapped[int] = mapped_column(default=0, server_default="0")
     cancel_requested: Mapped[bool] = mapped_column(Boolean, default=False, server_default=false())
     idempotency_key: Mapped[str | None] = mapped_column(String(200), unique=True)
+    # sha256 of the canonical request body: the same Idempotency-Key with another body is refused
+    request_hash: Mapped[Hash64 | None]
+    # jobs belong to the team of the token that submitted them (the command line uses "local")
+    team: Mapped[str] = mapped_column(
+        String(100), default="local", server_default="local", index=True
+    )
     created_at: Mapped[CreatedAt]
     started_at: Mapped[datetime | None]
     finished_at: Mapped[datetime | None]
@@ -216,6 +222,8 @@ class WorkUnit(Base):
     error: Mapped[LongText | None]
     fits: Mapped[int] = mapped_column(default=0, server_default="0")
     seconds: Mapped[float | None]
+    # when the unit was last handed to a broker; the reconciler re-publishes stale ones
+    published_at: Mapped[datetime | None]
     created_at: Mapped[CreatedAt]
     started_at: Mapped[datetime | None]
     finished_at: Mapped[datetime | None]
@@ -275,3 +283,30 @@ class FinalModel(Base):
     size_bytes: Mapped[int] = mapped_column(BigInteger)  # a forest can pass 2 GiB
     inner_mean: Mapped[float]
     created_at: Mapped[CreatedAt]
+
+
+class DatasetRegistration(Base):
+    """Which team registered which table: a token sees only its team's datasets."""
+
+    __tablename__ = "dataset_registration"
+
+    team: Mapped[str] = mapped_column(String(100), primary_key=True)
+    content_hash: Mapped[Hash64] = mapped_column(
+        ForeignKey("dataset.content_hash"), primary_key=True
+    )
+    created_at: Mapped[CreatedAt]
+
+
+class ApiToken(Base):
+    """A bearer token, kept only as its sha256, with its team and scopes."""
+
+    __tablename__ = "api_token"
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    token_hash: Mapped[Hash64] = mapped_column(unique=True)
+    team: Mapped[str] = mapped_column(String(100))
+    scopes: Mapped[JsonList]  # any of "submit", "read", "admin"
+    # an analyst token may read every team's datasets and jobs
+    analyst: Mapped[bool] = mapped_column(Boolean, default=False, server_default=false())
+    created_at: Mapped[CreatedAt]
+    revoked_at: Mapped[datetime | None]

@@ -1,0 +1,8 @@
+"""Handing work units to whatever runs them: Celery workers, or the local pool of the embedded
+server. Only ids cross this boundary; the store holds everything else."""
+
+# The Celery task names, shared by the publisher here and the task definitions in `workers`
+# (service never imports workers: it sends by name).
+TASK_RUN_UNIT = "foldwise.run_unit"
+TASK_RECONCILE = "foldwise.reconcile"
+UNIT_QUEUE = "foldwise-units"

@@ -1,0 +1,109 @@
+"""The embedded server's dispatcher: a local process pool fed from the store.
+
+The store is the queue: a poller thread hands queued units to pool processes, each of which runs
+the same `run_and_advance` a Celery worker runs. Publishing only wakes the poller.
+"""
+
+from __future__ import annotations
+
+import logging
+import multiprocessing
+import threading
+from concurrent.futures import Future, ProcessPoolExecutor
+from typing import Any
+
+from sqlalchemy import select
+from threadpoolctl import threadpool_limits
+
+from service.config import Settings
+from service.jobs.execute import UnitReport, worker_name
+from service.jobs.reconcile import reconcile
+from service.jobs.work import run_and_advance
+from service.store.db import make_engine, make_session_factory
+from service.store.models import Job, WorkUnit
+
+log = logging.getLogger(__name__)
+_child: dict[str, Any] = {}
+
+
+def _child_start(settings: Settings) -> None:
+    # a fresh process (forkserver): its own engine, one BLAS thread per process
+    _child["limits"] = threadpool_limits(1)
+    _child["sessions"] = make_session_factory(make_engine(settings.database_url))
+    _child["settings"] = settings
+
+
+def _child_run(unit_id: int) -> UnitReport:
+    report, _ = run_and_advance(
+        _child["sessions"], unit_id, settings=_child["settings"], worker=worker_name()
+    )
+    return report
+
+
+class LocalPool:
+    """Runs queued units on `workers` local processes until closed."""
+
+    def __init__(self, settings: Settings, workers: int = 2, poll_seconds: float = 1.0) -> None:
+        self.settings = settings
+        self.poll_seconds = poll_seconds
+        self._engine = make_engine(settings.database_url)
+        self._sessions = make_session_factory(self._engine)
+        context = multiprocessing.get_context("forkserver")
+        self._pool = ProcessPoolExecutor(
+            workers, mp_context=context, initializer=_child_start, initargs=(settings,)
+        )
+        self._inflight: set[int] = set()
+        self._lock = threading.Lock()
+        self._wake = threading.Event()
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._loop, name="foldwise-local-pool", daemon=True)
+        self._thread.start()
+
+    def publish(self, unit_ids: list[int]) -> None:
+        """Wake the poller: the units are already queued in the store."""
+        self._wake.set()
+
+    def _queued(self) -> list[int]:
+        with self._sessions() as session:
+            ids = session.scalars(
+                select(WorkUnit.id)
+                .join(Job, Job.id == WorkUnit.job_id)
+                .where(WorkUnit.status == "queued", Job.status.in_(("queued", "running")))
+                .order_by(WorkUnit.id)
+            )
+            return [i for i in ids if i not in self._inflight]
+
+    def _loop(self) -> None:
+        while not self._stop.is_set():
+            try:
+                # leases that ran out and stalled jobs, as the Celery beat tick would do
+                lost = reconcile(self._sessions, self.settings).republish
+                with self._lock:
+                    for unit_id in dict.fromkeys(self._queued() + lost):
+                        if unit_id in self._inflight:
+                            continue
+                        self._inflight.add(unit_id)
+                        future = self._pool.submit(_child_run, unit_id)
+                        future.add_done_callback(self._finished(unit_id))
+            except Exception:  # keep serving: the next tick retries from the store
+                log.exception("local pool tick failed")
+            self._wake.wait(self.poll_seconds)
+            self._wake.clear()
+
+    def _finished(self, unit_id: int) -> Any:
+        def done(future: Future[UnitReport]) -> None:
+            with self._lock:
+                self._inflight.discard(unit_id)
+            if future.exception() is not None:
+                log.error("unit %s crashed its process: %s", unit_id, future.exception())
+            self._wake.set()
+
+        return done
+
+    def close(self) -> None:
+        """Stop polling and shut the pool down (running units finish first)."""
+        self._stop.set()
+        self._wake.set()
+        self._thread.join(timeout=10)
+        self._pool.shutdown(wait=True, cancel_futures=True)
+        self._engine.dispose()

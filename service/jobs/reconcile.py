@@ -1,0 +1,115 @@
+"""The reconciler: the store is the truth, the broker only transport.
+
+A Redis without persistence loses its queues on restart, and a killed worker leaves a unit
+running under a lease nobody will renew. On every tick the reconciler finds units the store says
+are unfinished and whose message may be lost, and jobs whose last unit landed without anyone
+moving them on.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import timedelta
+
+from sqlalchemy import and_, func, or_, select, update
+from sqlalchemy.orm import Session, sessionmaker
+
+from service.config import Settings
+from service.jobs.advance import advance_job
+from service.jobs.execute import MAX_ATTEMPTS
+from service.store.db import utcnow
+from service.store.models import Job, WorkUnit
+
+
+@dataclass(frozen=True)
+class Reconciled:
+    """What one tick found: units to publish again, jobs moved on, units given up on."""
+
+    republish: list[int]
+    advanced: list[str]
+    abandoned: list[int]
+
+
+def _give_up(session: Session) -> list[int]:
+    # a unit whose every attempt died (its lease ran out each time) is a poison unit
+    now = utcnow()
+    dead = list(
+        session.scalars(
+            select(WorkUnit.id).where(
+                WorkUnit.status == "running",
+                WorkUnit.lease_until < now,
+                WorkUnit.attempts >= MAX_ATTEMPTS,
+            )
+        )
+    )
+    for unit_id in dead:
+        unit = session.get_one(WorkUnit, unit_id)
+        unit.status, unit.finished_at = "failed", now
+        unit.error = f"gave up after {unit.attempts} attempts whose worker died or timed out"
+        session.execute(
+            update(Job)
+            .where(Job.id == unit.job_id, Job.status.in_(("queued", "running")))
+            .values(
+                status="failed",
+                finished_at=now,
+                error=f"unit {unit_id} ({unit.kind} {unit.scope}): {unit.error}",
+            )
+        )
+    return dead
+
+
+def _lost(session: Session, settings: Settings) -> list[int]:
+    now = utcnow()
+    stale = now - timedelta(seconds=settings.republish_after)
+    live_jobs = select(Job.id).where(
+        Job.status.in_(("queued", "running")), Job.cancel_requested.is_(False)
+    )
+    return list(
+        session.scalars(
+            select(WorkUnit.id)
+            .where(
+                WorkUnit.job_id.in_(live_jobs),
+                or_(
+                    and_(
+                        WorkUnit.status == "queued",
+                        or_(WorkUnit.published_at.is_(None), WorkUnit.published_at < stale),
+                    ),
+                    and_(
+                        WorkUnit.status == "running",
+                        WorkUnit.lease_until < now,
+                        WorkUnit.attempts < MAX_ATTEMPTS,
+                    ),
+                ),
+            )
+            .order_by(WorkUnit.id)
+        )
+    )
+
+
+def _stalled(session: Session) -> list[str]:
+    open_units = (
+        select(func.count())
+        .where(WorkUnit.job_id == Job.id, WorkUnit.status != "done")
+        .correlate(Job)
+        .scalar_subquery()
+    )
+    return list(
+        session.scalars(
+            select(Job.id).where(
+                Job.status == "running", Job.stage.in_(("inner", "outer")), open_units == 0
+            )
+        )
+    )
+
+
+def reconcile(sessions: sessionmaker[Session], settings: Settings) -> Reconciled:
+    """One tick: give up on poison units, move stalled jobs on, list units to publish again."""
+    with sessions.begin() as session:
+        abandoned = _give_up(session)
+    with sessions() as session:
+        stalled = _stalled(session)
+    for job_id in stalled:
+        advance_job(sessions, job_id, settings)
+    with sessions() as session:
+        republish = _lost(session, settings)
+    return Reconciled(republish, stalled, abandoned)

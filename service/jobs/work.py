@@ -1,0 +1,19 @@
+"""One step of work as a worker (Celery or local pool) does it: run a unit, then fan in."""
+
+from __future__ import annotations
+
+from sqlalchemy.orm import Session, sessionmaker
+
+from service.config import Settings
+from service.jobs.advance import advance_job
+from service.jobs.execute import UnitReport, execute_unit
+
+
+def run_and_advance(
+    sessions: sessionmaker[Session], unit_id: int, *, settings: Settings, worker: str
+) -> tuple[UnitReport, list[int]]:
+    """Run unit `unit_id`; if it finished its job's stage, return the next units to publish."""
+    report = execute_unit(sessions, unit_id, settings=settings, worker=worker)
+    if report.job_id is None or report.status != "done":
+        return report, []
+    return report, advance_job(sessions, report.job_id, settings)
