@@ -10,6 +10,7 @@ import hashlib
 import os
 import pickle
 import socket
+import time
 import traceback
 from dataclasses import dataclass
 from datetime import timedelta
@@ -72,10 +73,21 @@ def claim_unit(session: Session, unit_id: int, worker: str, lease: timedelta) ->
     return claimed.rowcount == 1
 
 
-def _cancel_requested(sessions: sessionmaker[Session], job_id: str) -> bool:
-    with sessions() as session:
-        job = session.get_one(Job, job_id)
-        return bool(job.cancel_requested) or job.status in ("failed", "cancelled")
+class _CancelCheck:
+    """Asks the store whether the job was cancelled, at most once per `every` seconds."""
+
+    def __init__(self, sessions: sessionmaker[Session], job_id: str, every: float = 1.0) -> None:
+        self.sessions, self.job_id, self.every = sessions, job_id, every
+        self.checked_at = float("-inf")
+
+    def __call__(self) -> bool:
+        now = time.monotonic()
+        if now - self.checked_at < self.every:
+            return False
+        self.checked_at = now
+        with self.sessions() as session:
+            job = session.get_one(Job, self.job_id)
+            return bool(job.cancel_requested) or job.status in ("failed", "cancelled")
 
 
 def _save_model(outcome: UnitOutcome, settings: Settings) -> tuple[str, Path, int]:
@@ -195,7 +207,7 @@ def execute_unit(
     try:
         with sessions() as session:
             loaded = plan_for_job(session, job_id, settings)
-        outcome = fit_and_score(loaded.plan, ref, lambda: _cancel_requested(sessions, job_id))
+        outcome = fit_and_score(loaded.plan, ref, _CancelCheck(sessions, job_id))
     except UnitCancelled:
         _finish(sessions, unit_id, "cancelled", None)
         return UnitReport(unit_id, job_id, "cancelled")

@@ -67,6 +67,10 @@ def _tune_sqlite(engine: Engine, busy_timeout_ms: int) -> None:
         # The busy timeout makes a second writer wait for the lock instead of failing at once.
         cursor.execute(f"PRAGMA busy_timeout={int(busy_timeout_ms)}")
         cursor.execute("PRAGMA foreign_keys=ON")
+        # In WAL mode NORMAL never corrupts the file; it may lose the last commits on power loss,
+        # which the store survives (units not marked done are run again). FULL would fsync on
+        # every commit, and a job commits a few times per unit.
+        cursor.execute("PRAGMA synchronous=NORMAL")
         _enter_wal(cursor, deadline=time.monotonic() + busy_timeout_ms / 1000)
         cursor.close()
 
