@@ -1,0 +1,269 @@
+"""Bad input to `foldwise select`: exit 2, one sentence naming the field, nothing stored.
+
+Each case is one mutation of the valid base request (or of the job file, the data file or the
+command line). The catalogue runs as real subprocesses, several at a time, because each costs a
+second or two of imports; every case still has its own working directory and store.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import shutil
+from collections.abc import Callable
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import pytest
+
+from .runner import (
+    DATA_NAME,
+    N_ROWS,
+    Outcome,
+    base_request,
+    run_foldwise,
+    store_jobs,
+    write_job,
+)
+
+Mutation = Callable[[dict[str, Any]], None]
+
+
+@dataclass(frozen=True)
+class Case:
+    """One bad input and the field its refusal must name."""
+
+    id: str
+    field: str
+    mutate: Mutation | None = None
+    contains: tuple[str, ...] = ()
+    files: dict[str, bytes | str] = field(default_factory=dict)
+    # the job file as raw text instead of the mutated request (for files that are not JSON)
+    job_text: str | None = None
+    argv: tuple[str, ...] = ("select", "job.json")
+
+
+def family(**changes: Any) -> Mutation:
+    """Replace keys of the first family."""
+
+    def mutate(request: dict[str, Any]) -> None:
+        request["families"][0].update(changes)
+
+    return mutate
+
+
+def top(**changes: Any) -> Mutation:
+    """Replace top-level keys."""
+
+    def mutate(request: dict[str, Any]) -> None:
+        request.update(changes)
+
+    return mutate
+
+
+def split(which: str, drop: tuple[str, ...] = (), **changes: Any) -> Mutation:
+    """Change the outer or inner split plan."""
+
+    def mutate(request: dict[str, Any]) -> None:
+        request[which].update(changes)
+        for key in drop:
+            request[which].pop(key, None)
+
+    return mutate
+
+
+def dataset_file(name: str) -> Mutation:
+    return top(dataset={"path": name})
+
+
+# 6 grid keys with 20 values each: 20**6 = 64,000,000 candidates, refused before expansion
+HUGE_GRID = {
+    name: [i + 1 for i in range(20)]
+    for name in ("C", "tol", "max_iter", "intercept_scaling", "l1_ratio", "verbose")
+}
+
+CASES = [
+    Case(
+        "unknown-estimator",
+        "families[0].estimator",
+        family(estimator="LogisticRegresion"),
+        contains=("LogisticRegression",),
+    ),
+    Case("dotted-sklearn-name", "families[0].estimator", family(estimator="sklearn.svm.SVC")),
+    Case("dotted-os-system", "families[0].estimator", family(estimator="os.system")),
+    Case(
+        "estimator-for-other-task",
+        "families[0].estimator",
+        family(estimator="Ridge", fixed={}, grid={"alpha": [1.0]}),
+        contains=("regression",),
+    ),
+    Case("unknown-hyperparameter", "families[0].grid.Cee", family(grid={"Cee": [1.0]})),
+    Case("wrongly-typed-hyperparameter", "families[0].grid.C", family(grid={"C": ["big"]})),
+    Case("out-of-range-hyperparameter", "families[0].grid.C", family(grid={"C": [-1]})),
+    Case("grid-value-not-a-list", "families[0].grid.C", family(grid={"C": 1.0})),
+    Case(
+        "range-low-not-below-high",
+        "families[0].ranges.C.high",
+        family(grid={}, ranges={"C": {"low": 2.0, "high": 1.0}}, draws=2),
+    ),
+    Case(
+        "ranges-without-draws",
+        "families[0].draws",
+        family(grid={}, ranges={"C": {"low": 0.1, "high": 1.0}}),
+    ),
+    Case("k-of-one", "outer.k", split("outer", k=1)),
+    Case(
+        "k-above-row-count",
+        "outer.k",
+        split("outer", method="kfold", k=N_ROWS + 1),
+        contains=(str(N_ROWS),),
+    ),
+    # 24 rows per label: k=30 is below the row count but above the largest class
+    Case(
+        "stratified-k-above-largest-class",
+        "outer.k",
+        split("outer", k=30),
+        contains=("largest class",),
+    ),
+    Case("missing-target-column", "target", top(target="outcome"), contains=("outcome",)),
+    Case(
+        "constant-target",
+        "target",
+        dataset_file("constant.csv"),
+        files={"constant.csv": "x1,label\n" + "".join(f"{i},1\n" for i in range(12))},
+    ),
+    Case(
+        "partly-missing-target",
+        "target",
+        dataset_file("gaps.csv"),
+        contains=("missing",),
+        files={
+            "gaps.csv": "x1,label\n"
+            + "".join(f"{i},{'' if i % 5 == 0 else i % 2}\n" for i in range(20))
+        },
+    ),
+    Case(
+        "header-only-csv",
+        "dataset.path",
+        dataset_file("header.csv"),
+        files={"header.csv": "x1,x2,label\n"},
+    ),
+    Case(
+        "binary-junk-csv",
+        "dataset.path",
+        dataset_file("junk.csv"),
+        files={"junk.csv": bytes(range(256)) * 8},
+    ),
+    Case("missing-data-file", "dataset.path", dataset_file("absent.csv")),
+    Case("job-file-not-json", "job.json", job_text="{families: [LogisticRegression]"),
+    Case("job-file-missing", "nowhere.json", argv=("select", "nowhere.json")),
+    Case("unknown-metric", "metrics[1]", top(metrics=["accuracy", "acuracy"])),
+    Case("regression-metric-on-classification", "metrics[1]", top(metrics=["accuracy", "r2"])),
+    Case("pick-by-not-among-metrics", "pick_by", top(pick_by="f1_macro")),
+    Case("unknown-split-method", "outer.method", split("outer", method="shuffle_split")),
+    Case("group-kfold-without-groups", "outer.groups", split("outer", method="group_kfold", k=2)),
+    Case(
+        "astronomical-search-space",
+        "families",
+        top(families=[{"estimator": "LogisticRegression", "grid": HUGE_GRID}]),
+        contains=("64,000,000",),
+    ),
+    Case("repeats-without-seed", "outer.seed", split("outer", drop=("seed",), repeats=2)),
+    Case("unknown-top-level-field", "priority", top(priority="high")),
+    Case("feature-not-a-column", "features[1]", top(features=["x1", "x9"]), contains=("x9",)),
+    Case("target-also-a-feature", "features[1]", top(features=["x1", "label"])),
+    Case("zero-workers", "--workers", argv=("select", "job.json", "--workers", "0")),
+    Case(
+        "preprocess-none-with-categorical",
+        "preprocess",
+        top(preprocess="none"),
+        contains=("colour",),
+    ),
+    Case(
+        "roc-auc-on-three-classes",
+        "metrics[1]",
+        top(target="grade", metrics=["accuracy", "roc_auc"]),
+        contains=("roc_auc_ovr",),
+    ),
+    # Beyond the first catalogue: values that pass scikit-learn's constraints but are not JSON
+    # (a store key is the candidate's canonical JSON), and seeds numpy cannot take.
+    Case("infinite-hyperparameter", "families[0].grid.C", family(grid={"C": [float("inf")]})),
+    Case(
+        "nan-inside-dict-hyperparameter",
+        "families[1].fixed.metric_params",
+        lambda r: r["families"][1].update(fixed={"metric_params": {"p": float("nan")}}),
+    ),
+    Case("seed-too-large", "outer.seed", split("outer", seed=2**33)),
+]
+CASE_IDS = [c.id for c in CASES]
+assert len(set(CASE_IDS)) == len(CASE_IDS), "case ids must be unique"
+
+
+def _prepare(case: Case, folder: Path, shared_csv: Path) -> None:
+    shutil.copy(shared_csv, folder / DATA_NAME)
+    for name, content in case.files.items():
+        target = folder / name
+        if isinstance(content, bytes):
+            target.write_bytes(content)
+        else:
+            target.write_text(content, encoding="utf-8")
+    if case.job_text is not None:
+        (folder / "job.json").write_text(case.job_text, encoding="utf-8")
+        return
+    request = base_request()
+    if case.mutate is not None:
+        case.mutate(request)
+    write_job(folder, request)
+
+
+def _run(case: Case, folder: Path) -> Outcome:
+    return run_foldwise(*case.argv, cwd=folder, home=folder / "home")
+
+
+@pytest.fixture(scope="module")
+def outcomes(
+    request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory, shared_csv: Path
+) -> dict[str, Outcome]:
+    """Run every selected case of this module at once; case id -> outcome."""
+    selected = {
+        item.callspec.params["case"].id
+        for item in request.session.items
+        if getattr(item, "originalname", "") == "test_bad_request_is_refused"
+        and hasattr(item, "callspec")
+    }
+    todo = []
+    for case in CASES:
+        if case.id in selected:
+            folder = tmp_path_factory.mktemp(case.id)
+            _prepare(case, folder, shared_csv)
+            todo.append((case, folder))
+    # imports dominate each run, so one more process than cores keeps the cores busy
+    workers = min(6, (os.cpu_count() or 1) + 1)
+    with ThreadPoolExecutor(workers) as pool:
+        futures = {case.id: pool.submit(_run, case, folder) for case, folder in todo}
+        return {case_id: future.result() for case_id, future in futures.items()}
+
+
+@pytest.mark.parametrize("case", CASES, ids=CASE_IDS)
+def test_bad_request_is_refused(case: Case, outcomes: dict[str, Outcome]) -> None:
+    out = outcomes[case.id]
+    assert "Traceback" not in out.stdout + out.stderr, out.stderr
+    assert out.code == 2, f"exit {out.code}; stderr: {out.stderr}"
+    assert out.stdout == ""
+    # exactly one line, ending in a newline, "error: <field>: <sentence>"
+    assert out.stderr.endswith("\n") and out.stderr.count("\n") == 1, out.stderr
+    line = out.stderr.rstrip("\n")
+    prefix = f"error: {case.field}: "
+    assert line.startswith(prefix), f"expected field {case.field!r} in: {line}"
+    sentence = line.removeprefix(prefix)
+    # one sentence: closed by a full stop (or a question), no second sentence inside it
+    assert sentence.endswith((".", "?")), sentence
+    assert re.search(r"[.?!]\s+[A-Z]", sentence) is None, f"more than one sentence: {sentence}"
+    for part in case.contains:
+        assert part in sentence, f"{part!r} not in: {sentence}"
+    # nothing stored as succeeded; in fact no job row at all, since refusal precedes the store
+    jobs = store_jobs(out.home)
+    assert [status for _, status in jobs if status == "succeeded"] == []
+    assert jobs == []

@@ -1,0 +1,69 @@
+"""`foldwise dataset inspect`: content hash, rows and column kinds, the same for CSV and Parquet."""
+
+from __future__ import annotations
+
+import json
+import re
+from concurrent.futures import ThreadPoolExecutor
+from typing import Any
+
+import pandas as pd
+import pytest
+
+from .runner import REPO, Outcome, run_foldwise
+
+DEMO_CSV = "demo_data/pump_failures.csv"
+
+
+@pytest.fixture(scope="module")
+def inspected(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Outcome]:
+    """The demo table inspected as CSV (relative to the repo) and as Parquet, and a missing file."""
+    folder = tmp_path_factory.mktemp("inspect")
+    parquet = folder / "pump_failures.parquet"
+    pd.read_csv(REPO / DEMO_CSV).to_parquet(parquet, index=False)
+    runs = {
+        "csv": (("dataset", "inspect", DEMO_CSV, "--json"), REPO),
+        "parquet": (("dataset", "inspect", str(parquet), "--json"), folder),
+        "missing": (("dataset", "inspect", "no_such_table.csv", "--json"), folder),
+    }
+    with ThreadPoolExecutor(len(runs)) as pool:
+        futures = {
+            name: pool.submit(run_foldwise, *argv, cwd=cwd, home=folder / "home")
+            for name, (argv, cwd) in runs.items()
+        }
+        return {name: future.result() for name, future in futures.items()}
+
+
+def _description(out: Outcome) -> dict[str, Any]:
+    assert out.code == 0, out.stderr
+    parsed: dict[str, Any] = json.loads(out.stdout)
+    return parsed
+
+
+def test_csv_description(inspected: dict[str, Outcome]) -> None:
+    description = _description(inspected["csv"])
+    assert re.fullmatch(r"[0-9a-f]{64}", description["content_hash"])
+    assert description["n_rows"] == 1500
+    kinds = {col["name"]: col["kind"] for col in description["columns"]}
+    assert kinds["site"] == "categorical"
+    assert kinds["age_years"] == "numeric"
+    assert kinds["failed_within_30d"] == "numeric"
+    assert len(kinds) == description["n_columns"] == 13
+
+
+def test_parquet_copy_has_the_same_content_hash(inspected: dict[str, Outcome]) -> None:
+    # DESIGN.md: the content hash is format-independent (same values, order, names and types)
+    csv, parquet = _description(inspected["csv"]), _description(inspected["parquet"])
+    assert parquet["content_hash"] == csv["content_hash"]
+    assert parquet["columns"] == csv["columns"]
+
+
+def test_missing_file_is_refused_in_one_sentence(inspected: dict[str, Outcome]) -> None:
+    out = inspected["missing"]
+    assert out.code == 2
+    assert out.stdout == ""
+    assert "Traceback" not in out.stderr
+    assert out.stderr.endswith("\n") and out.stderr.count("\n") == 1, out.stderr
+    assert out.stderr.startswith("error: PATH.path: ") or out.stderr.startswith("error: PATH: ")
+    assert "no_such_table.csv" in out.stderr
+    assert out.stderr.rstrip().endswith(".")
