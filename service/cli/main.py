@@ -104,9 +104,9 @@ def dataset_inspect(
     from service.datasets.sources import DatasetSource, describe_table, load_table
 
     try:
-        table = load_table(DatasetSource(path=str(path)), base_dir=Path.cwd(), field="PATH")
+        table = load_table(DatasetSource(path=str(path)), base_dir=Path.cwd())
     except BadInput as exc:
-        _refuse(exc)
+        _refuse(BadInput("PATH", exc.message))
     description = describe_table(table)
     if as_json:
         sys.stdout.write(json.dumps(description) + "\n")
@@ -142,6 +142,11 @@ def demo(
     except BadInput as exc:
         _refuse(exc)
 
+
+from service.cli import workers_cmd  # noqa: E402  (foldwise worker, foldwise beat)
+
+app.command()(workers_cmd.worker)
+app.command()(workers_cmd.beat)
 
 if __name__ == "__main__":  # pragma: no cover
     app()

@@ -9,6 +9,7 @@ from __future__ import annotations
 import difflib
 import importlib
 import inspect
+import math
 from typing import Any
 
 from sklearn.base import BaseEstimator
@@ -95,6 +96,10 @@ def check_params(cls: type[BaseEstimator], params: dict[str, Any], *, field: str
             )
     constraints = getattr(cls, "_parameter_constraints", {})
     for name, value in params.items():
+        if not _finite(value):
+            raise SpecError(
+                f"{field}.{name}", "infinite and NaN numbers are not allowed; give a finite value."
+            )
         try:
             validate_parameter_constraints(
                 {name: constraints[name]} if name in constraints else {},
@@ -102,9 +107,20 @@ def check_params(cls: type[BaseEstimator], params: dict[str, Any], *, field: str
                 caller_name=cls.__name__,
             )
         except InvalidParameterError as exc:
-            raise SpecError(
-                f"{field}.{name}", f"{str(exc).rstrip('.')}; change the value."
-            ) from None
+            # scikit-learn says "... must be X. Got Y instead." -- made into one sentence
+            text = str(exc).rstrip(".").replace(". Got ", ", got ").removesuffix(" instead")
+            raise SpecError(f"{field}.{name}", f"{text}; change the value.") from None
+
+
+def _finite(value: Any) -> bool:
+    """False if a number anywhere in a JSON value is infinite or NaN (JSON cannot carry them)."""
+    if isinstance(value, float):
+        return math.isfinite(value)
+    if isinstance(value, dict):
+        return all(_finite(v) for v in value.values())
+    if isinstance(value, list | tuple):
+        return all(_finite(v) for v in value)
+    return True
 
 
 def accepts_missing_values(cls: type[BaseEstimator], params: dict[str, Any]) -> bool:

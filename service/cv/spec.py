@@ -40,7 +40,7 @@ class FamilySpec(_Strict):
     grid: dict[str, list[JsonValue]] = Field(default_factory=dict)
     ranges: dict[str, RangeSpec] = Field(default_factory=dict)
     draws: int | None = Field(default=None, ge=1)
-    draw_seed: int = Field(default=0, ge=0)
+    draw_seed: int = Field(default=0, ge=0, le=2**32 - 1)
 
     @model_validator(mode="after")
     def _consistent(self) -> FamilySpec:
@@ -71,7 +71,7 @@ class SplitSpec(_Strict):
     method: SplitMethod
     k: int = 5
     repeats: int = Field(default=1, ge=1)
-    seed: int | None = Field(default=None, ge=0)
+    seed: int | None = Field(default=None, ge=0, le=2**32 - 1)  # numpy's seed range
     groups: str | None = None
     order_by: str | None = None
 
