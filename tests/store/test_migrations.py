@@ -10,7 +10,7 @@ from alembic.runtime.migration import MigrationContext
 from alembic.script import ScriptDirectory
 from sqlalchemy import Engine, inspect
 
-from service.store.db import alembic_config, make_engine, upgrade_database
+from service.store.db import HEAD_REVISION, alembic_config, make_engine, upgrade_database
 from service.store.models import Base
 
 
@@ -90,5 +90,21 @@ def test_concurrent_upgrades_both_succeed(empty_url: str) -> None:
     engine = make_engine(empty_url)
     try:
         assert _differences(engine) == []
+    finally:
+        engine.dispose()
+
+
+def test_head_revision_constant_is_alembics_head(sqlite_url: str) -> None:
+    # upgrade_database skips Alembic when the store is at HEAD_REVISION, so the two must agree
+    head = ScriptDirectory.from_config(alembic_config(sqlite_url)).get_current_head()
+    assert head == HEAD_REVISION
+
+
+def test_a_store_behind_head_is_upgraded(sqlite_url: str) -> None:
+    command.upgrade(alembic_config(sqlite_url), "0001")
+    upgrade_database(sqlite_url)
+    engine = make_engine(sqlite_url)
+    try:
+        assert "api_token" in inspect(engine).get_table_names()
     finally:
         engine.dispose()
