@@ -1,0 +1,111 @@
+"""Fixtures for the distributed path: PostgreSQL, a private Redis database, real processes."""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+from collections.abc import Callable, Iterator
+from pathlib import Path
+from typing import Any
+
+import pytest
+import redis
+
+from service.config import load_settings
+from service.jobs.embedded import run_embedded
+
+from .stack import REPO, Stack
+
+REDIS_HOST, REDIS_PORT = "127.0.0.1", 6379
+# Short enough that the kill test waits out a lease in well under a minute: hard limit 12 s →
+# soft 10 s, lease 42 s, visibility timeout 72 s (service.config derives them). Units here take
+# about a second, so neither limit fires.
+UNIT_TIME_LIMIT = "12"
+RECONCILE_SECONDS = "2"
+REPUBLISH_AFTER = "5"
+
+
+@pytest.fixture
+def redis_url() -> Iterator[str]:
+    """A Redis database number no other running test holds, empty before and after."""
+    admin = redis.Redis(REDIS_HOST, REDIS_PORT, db=0)
+    claimed = None
+    # db 0 is left to people; a key there with an expiry claims a number, so concurrent test
+    # runs (and a crashed one, once its key expires) never share a database
+    for number in range(1, 16):
+        if admin.set(f"foldwise-test:redis-db:{number}", "1", nx=True, ex=1800):
+            claimed = number
+            break
+    if claimed is None:
+        pytest.fail("every Redis database 1-15 is claimed by another test run")
+    database = redis.Redis(REDIS_HOST, REDIS_PORT, db=claimed)
+    database.flushdb()
+    try:
+        yield f"redis://{REDIS_HOST}:{REDIS_PORT}/{claimed}"
+    finally:
+        database.flushdb()
+        database.close()
+        admin.delete(f"foldwise-test:redis-db:{claimed}")
+        admin.close()
+
+
+@pytest.fixture
+def stack(tmp_path: Path, postgresql_url: str, redis_url: str) -> Iterator[Stack]:
+    """A migrated store and the environment every process of this deployment shares."""
+    home = tmp_path / "home"
+    env = {
+        "FOLDWISE_HOME": str(home),
+        "FOLDWISE_DATABASE_URL": postgresql_url,
+        "FOLDWISE_BROKER_URL": redis_url,
+        "FOLDWISE_UNIT_TIME_LIMIT": UNIT_TIME_LIMIT,
+        "FOLDWISE_RECONCILE_SECONDS": RECONCILE_SECONDS,
+        "FOLDWISE_REPUBLISH_AFTER": REPUBLISH_AFTER,
+    }
+    # the deploy step, exactly as an operator runs it
+    subprocess.run(
+        [sys.executable, "-m", "service.cli.main", "db", "upgrade"],
+        cwd=REPO,
+        env={**os.environ, **env},
+        check=True,
+        capture_output=True,
+    )
+    deployment = Stack(env, home)
+    try:
+        yield deployment
+    finally:
+        deployment.stop()
+
+
+@pytest.fixture
+def running_stack(stack: Stack) -> Stack:
+    """Two workers (one pool process each) and one beat, all ready."""
+    workers = [stack.start_worker("w1"), stack.start_worker("w2")]
+    beat = stack.start_beat()
+    for worker in workers:
+        stack.wait_ready(worker, "ready.")
+    stack.wait_ready(beat, "beat: Starting")
+    return stack
+
+
+_REFERENCE: dict[str, dict[str, Any]] = {}
+
+
+@pytest.fixture(scope="session")
+def embedded_result(
+    tmp_path_factory: pytest.TempPathFactory,
+) -> Callable[[dict[str, Any]], dict[str, Any]]:
+    """The embedded run's result for a request, on its own SQLite home (once per request)."""
+
+    def run(request: dict[str, Any]) -> dict[str, Any]:
+        key = json.dumps(request, sort_keys=True)
+        if key not in _REFERENCE:
+            home = tmp_path_factory.mktemp("embedded")
+            settings = load_settings({"FOLDWISE_HOME": str(home)})
+            _REFERENCE[key] = run_embedded(
+                request, settings=settings, workers=1, base_dir=REPO
+            ).result
+        return _REFERENCE[key]
+
+    return run

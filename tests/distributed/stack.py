@@ -1,0 +1,221 @@
+"""A distributed foldwise on one machine for tests: real Celery worker and beat processes.
+
+Each process runs in its own session (process group), so a test can SIGKILL a worker's main
+process and its prefork children together, as a machine dying would, and teardown can end
+every group it started.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import redis
+from sqlalchemy import func, select
+
+from service.auth import Principal
+from service.config import Settings, load_settings
+from service.dispatch import UNIT_QUEUE
+from service.dispatch.base import mark_published
+from service.dispatch.celery_client import CeleryDispatcher
+from service.jobs.service import queued_unit_ids, submit_job
+from service.store.db import make_engine, make_session_factory
+from service.store.models import Job, WorkUnit
+
+REPO = Path(__file__).resolve().parents[2]
+TEAM = Principal("reliability", frozenset({"submit", "read"}))
+FINISHED = ("succeeded", "failed", "cancelled")
+
+
+@dataclass
+class Process:
+    """A started process and where its output goes."""
+
+    name: str
+    popen: subprocess.Popen[bytes]
+    log: Path
+
+    def tail(self, lines: int = 40) -> str:
+        """The end of its log, for failure messages."""
+        text = self.log.read_text(errors="replace") if self.log.exists() else ""
+        return f"--- {self.name} ({self.log}) ---\n" + "\n".join(text.splitlines()[-lines:])
+
+    def kill_group(self, sig: int = signal.SIGKILL) -> None:
+        """Signal the whole process group (the main process and its pool children)."""
+        with contextlib.suppress(ProcessLookupError):
+            os.killpg(self.popen.pid, sig)
+
+
+@dataclass
+class Stack:
+    """Environment, store handles and processes of one test's deployment."""
+
+    env: dict[str, str]
+    home: Path
+    processes: list[Process] = field(default_factory=list)
+
+    def __post_init__(self) -> None:
+        self.settings: Settings = load_settings(self.env)
+        self.engine = make_engine(self.settings.database_url)
+        self.sessions = make_session_factory(self.engine)
+
+    # processes ---------------------------------------------------------------------------
+    def start(self, name: str, *arguments: str) -> Process:
+        """Start `python -m service.cli.main ARGUMENTS` in its own process group."""
+        log = self.home / "logs" / f"{name}.log"
+        log.parent.mkdir(parents=True, exist_ok=True)
+        with log.open("wb") as out:
+            popen = subprocess.Popen(
+                [sys.executable, "-m", "service.cli.main", *arguments],
+                cwd=REPO,
+                env={**os.environ, **self.env},
+                stdout=out,
+                stderr=subprocess.STDOUT,
+                start_new_session=True,
+            )
+        process = Process(name, popen, log)
+        self.processes.append(process)
+        return process
+
+    def start_worker(self, name: str) -> Process:
+        """A worker with one pool process, named NAME@host."""
+        return self.start(name, "worker", "--concurrency", "1", "--name", f"{name}@%h")
+
+    def start_beat(self) -> Process:
+        """The one beat process, ticking the reconciler every FOLDWISE_RECONCILE_SECONDS."""
+        return self.start("beat", "beat")
+
+    def wait_ready(self, process: Process, marker: str, timeout: float = 60) -> None:
+        """Wait until `marker` appears in the process's log."""
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            if process.popen.poll() is not None:
+                raise AssertionError(f"{process.name} exited early\n{process.tail()}")
+            if marker in process.log.read_text(errors="replace"):
+                return
+            time.sleep(0.2)
+        raise AssertionError(f"{process.name} not ready after {timeout}s\n{process.tail()}")
+
+    def logs(self) -> str:
+        """Every process's log tail."""
+        return "\n".join(p.tail() for p in self.processes)
+
+    def stop(self) -> None:
+        """End every process group this stack started, and the store handles."""
+        for process in self.processes:
+            process.kill_group(signal.SIGTERM)
+        deadline = time.monotonic() + 10
+        for process in self.processes:
+            with contextlib.suppress(subprocess.TimeoutExpired):
+                process.popen.wait(timeout=max(0.1, deadline - time.monotonic()))
+            process.kill_group(signal.SIGKILL)
+            process.popen.wait(timeout=10)
+        self.engine.dispose()
+
+    # jobs --------------------------------------------------------------------------------
+    def submit(self, request: dict[str, Any]) -> str:
+        """Store a job and publish its units, as the API does: commit first, then publish."""
+        with self.sessions.begin() as session:
+            job_id = submit_job(
+                session, request, principal=TEAM, settings=self.settings, base_dir=REPO
+            ).job.id
+        with self.sessions() as session:
+            unit_ids = queued_unit_ids(session, job_id)
+        self.publish(unit_ids)
+        return job_id
+
+    def publish(self, unit_ids: list[int]) -> None:
+        """Send run_unit messages by task name and record when, as the API does."""
+        dispatcher = CeleryDispatcher(self.settings)
+        try:
+            dispatcher.publish(unit_ids)
+        finally:
+            dispatcher.close()
+        mark_published(self.sessions, unit_ids)
+
+    # broker ------------------------------------------------------------------------------
+    def redis(self) -> redis.Redis:
+        """A client on this deployment's Redis database."""
+        return redis.Redis.from_url(self.env["FOLDWISE_BROKER_URL"])
+
+    def flush_broker(self) -> None:
+        """Empty the broker's database, as a restart of a Redis without persistence does."""
+        with self.redis() as client:
+            client.flushdb()
+
+    def broker_idle(self) -> bool:
+        """No unit message is waiting or unacknowledged."""
+        with self.redis() as client:
+            # kombu's redis transport keeps delivered, unacknowledged messages in "unacked"
+            return client.llen(UNIT_QUEUE) == 0 and client.hlen("unacked") == 0
+
+    def job(self, job_id: str) -> Job:
+        """The job row as stored now."""
+        with self.sessions() as session:
+            return session.get_one(Job, job_id)
+
+    def units_done(self, job_id: str) -> int:
+        """How many of the job's units are done."""
+        with self.sessions() as session:
+            count = session.scalar(
+                select(func.count()).where(WorkUnit.job_id == job_id, WorkUnit.status == "done")
+            )
+            return int(count or 0)
+
+    def wait_finished(self, job_id: str, timeout: float) -> Job:
+        """Poll the store until the job ends; fail with the process logs if it does not."""
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline:
+            job = self.job(job_id)
+            if job.status in FINISHED:
+                assert job.status == "succeeded", f"{job.status}: {job.error}\n{self.logs()}"
+                return job
+            time.sleep(0.25)
+        units = self.unit_states(job_id)
+        raise AssertionError(f"job {job_id} unfinished after {timeout}s: {units}\n{self.logs()}")
+
+    def unit_states(self, job_id: str) -> dict[str, int]:
+        """Count of the job's units by status."""
+        with self.sessions() as session:
+            rows = session.execute(
+                select(WorkUnit.status, func.count())
+                .where(WorkUnit.job_id == job_id)
+                .group_by(WorkUnit.status)
+            )
+            return {status: int(n) for status, n in rows}
+
+
+def comparable(result: dict[str, Any]) -> dict[str, Any]:
+    """The parts of result v1 that must not depend on where or how often units ran."""
+    keys = ("outer", "estimate", "final_pick", "pick_frequency", "optimism_gap", "dataset_hash")
+    # through JSON, as both stores hand it back
+    return json.loads(json.dumps({k: result[k] for k in keys}, allow_nan=False))
+
+
+def running_units(stack: Stack, job_id: str) -> list[WorkUnit]:
+    """The job's units some worker holds right now."""
+    with stack.sessions() as session:
+        return list(
+            session.scalars(
+                select(WorkUnit).where(WorkUnit.job_id == job_id, WorkUnit.status == "running")
+            )
+        )
+
+
+def wait_until(condition: Any, timeout: float, what: str, stack: Stack) -> Any:
+    """Poll `condition()` until it returns something truthy."""
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        value = condition()
+        if value:
+            return value
+        time.sleep(0.1)
+    raise AssertionError(f"not within {timeout}s: {what}\n{stack.logs()}")

@@ -1,0 +1,97 @@
+"""The Celery app the workers and beat run (`celery -A workers.app` or `foldwise worker`)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from celery import Celery
+from celery.signals import worker_process_init
+from kombu import Exchange, Queue
+
+from service.config import Settings, load_settings
+from service.dispatch import TASK_RECONCILE, UNIT_QUEUE
+from service.dispatch.celery_client import celery_options
+from workers import state
+from workers.threads import cap_loaded_threadpools
+
+# The reconcile tick is short and must not wait behind a deep queue of long units (Celery's
+# optimizing guide: long and short work on separate queues); every worker consumes both.
+CONTROL_QUEUE = "foldwise-control"
+MAX_TASKS_PER_CHILD = 200
+MAX_MEMORY_PER_CHILD_KIB = 2 * 1024 * 1024  # a child past 2 GiB is replaced after its task
+
+
+def _queue(name: str) -> Queue:
+    return Queue(name, Exchange(name, type="direct"), routing_key=name)
+
+
+def worker_options(settings: Settings) -> dict[str, Any]:
+    """What a worker adds to the publisher's options (celery_options)."""
+    # soft < hard < lease < visibility timeout, all derived from settings.unit_time_limit: a
+    # unit that outlives the visibility timeout gets a concurrent twin (celery#5935), so the hard
+    # limit kills it first; the visibility timeout itself is in broker_transport_options.
+    assert settings.soft_time_limit < settings.unit_time_limit < settings.visibility_timeout
+    return {
+        # each queue on its own direct exchange: left to the defaults, the control queue would
+        # be bound to the unit queue's exchange and key, and receive copies of unit messages
+        "task_queues": [_queue(UNIT_QUEUE), _queue(CONTROL_QUEUE)],
+        "task_routes": {TASK_RECONCILE: {"queue": CONTROL_QUEUE}},
+        # a message is acknowledged only after its unit ran, and a worker holds one message at a
+        # time, so a dead worker strands one unit and not a prefetched batch
+        "task_acks_late": True,
+        "worker_prefetch_multiplier": 1,
+        # a child killed mid-unit (OOM, SIGKILL) requeues its message instead of acknowledging
+        # it; safe only because the claim caps attempts (MAX_ATTEMPTS), or a unit that kills its
+        # process would loop forever
+        "task_reject_on_worker_lost": True,
+        # after a broker connection loss the message can no longer be acknowledged and will be
+        # delivered again: stop the running copy rather than keep two (celery PR #6654)
+        "worker_cancel_long_running_tasks_on_connection_loss": True,
+        "task_time_limit": settings.unit_time_limit,
+        "task_soft_time_limit": settings.soft_time_limit,
+        # bound the growth of long-lived children (fitted models, allocator fragmentation)
+        "worker_max_tasks_per_child": MAX_TASKS_PER_CHILD,
+        "worker_max_memory_per_child": MAX_MEMORY_PER_CHILD_KIB,
+        # no chords, no results, no events: the store holds the state
+        "worker_send_task_events": False,
+        "beat_schedule": {
+            "reconcile": {
+                "task": TASK_RECONCILE,
+                "schedule": settings.reconcile_seconds,
+                # a tick that waited longer than one period is stale: the next one is coming
+                "options": {"queue": CONTROL_QUEUE, "expires": settings.reconcile_seconds},
+            }
+        },
+    }
+
+
+def make_celery(settings: Settings) -> Celery:
+    """A Celery app for workers and beat, configured from `settings`."""
+    if not settings.broker_url:
+        raise ValueError("a Celery app needs FOLDWISE_BROKER_URL")
+    app = Celery("foldwise", include=["workers.tasks"])
+    app.conf.update(celery_options(settings))
+    app.conf.update(worker_options(settings))
+    return app
+
+
+_thread_limits: list[Any] = []  # held for the life of the process
+
+
+@worker_process_init.connect
+def _child_started(**_: Any) -> None:
+    # every prefork child: its own connection pool, one BLAS/OpenMP thread (RELIABILITY.md)
+    state.after_fork()
+    _thread_limits.append(cap_loaded_threadpools())
+
+
+def _module_app() -> Celery:
+    settings = load_settings()
+    if not settings.broker_url:
+        # importing for lint or docs without a broker must not fail; a worker refuses to start
+        # on its own (foldwise worker checks first, celery cannot connect to "unset://")
+        return Celery("foldwise", include=["workers.tasks"])
+    return make_celery(settings)
+
+
+app = _module_app()

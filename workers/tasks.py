@@ -1,0 +1,69 @@
+"""The two tasks: run one work unit, and the reconcile tick. Ids in; the logic is in service."""
+
+from __future__ import annotations
+
+import logging
+import os
+from typing import Any
+
+from celery import Task
+
+from service.dispatch import TASK_RECONCILE, TASK_RUN_UNIT, UNIT_QUEUE
+from service.dispatch.base import mark_published
+from service.jobs.reconcile import reconcile
+from service.jobs.work import run_and_advance
+from workers import state
+from workers.app import app
+
+log = logging.getLogger(__name__)
+
+
+def publish(unit_ids: list[int]) -> None:
+    """Send one run_unit message per id, then record when (the reconciler reads that)."""
+    if not unit_ids:
+        return
+    # Celery turns a direct queue into kombu's anonymous exchange, so these land in the queue's
+    # list without the `_kombu.binding.*` key a broker flush deletes (kombu#1063).
+    for unit_id in unit_ids:
+        app.send_task(TASK_RUN_UNIT, args=[unit_id], queue=UNIT_QUEUE)
+    mark_published(state.sessions(), unit_ids)
+
+
+def worker_label(task: Task) -> str:
+    """The Celery node name and this child's pid, recorded with every score it writes."""
+    return f"{task.request.hostname}:{os.getpid()}"
+
+
+@app.task(name=TASK_RUN_UNIT, bind=True)
+def run_unit(self: Task, unit_id: int) -> str:
+    """Run unit `unit_id` and publish whatever stage it completed; a duplicate is skipped."""
+    # The claim inside run_and_advance decides: a second delivery of a finished or running
+    # unit changes no row and returns "skipped", and the message is acknowledged and dropped.
+    # Nothing here waits on another task (Celery's tasks guide): the next stage is published.
+    report, new_units = run_and_advance(
+        state.sessions(), unit_id, settings=state.settings(), worker=worker_label(self)
+    )
+    publish(new_units)
+    log.info(
+        "unit %s %s (%s fits), %s new units", unit_id, report.status, report.fits, len(new_units)
+    )
+    return report.status
+
+
+@app.task(name=TASK_RECONCILE)
+def reconcile_tick() -> dict[str, Any]:
+    """Publish again what the store says is unfinished and unowned; move stalled jobs on."""
+    found = reconcile(state.sessions(), state.settings())
+    publish(found.republish)
+    if found.republish or found.advanced or found.abandoned:
+        log.warning(
+            "reconcile: republished %s, advanced %s, gave up on %s",
+            found.republish,
+            found.advanced,
+            found.abandoned,
+        )
+    return {
+        "republished": found.republish,
+        "advanced": found.advanced,
+        "abandoned": found.abandoned,
+    }
