@@ -124,6 +124,28 @@ def describe_table(table: LoadedTable) -> dict[str, Any]:
     }
 
 
+def check_table_size(frame: pd.DataFrame, *, max_rows: int, max_columns: int, field: str) -> None:
+    """Refuse a table past the configured row and column caps (FOLDWISE_MAX_ROWS/_COLUMNS)."""
+    n_rows, n_columns = frame.shape
+    if n_rows > max_rows:
+        raise BadInput(
+            field,
+            f"the table has {n_rows} rows, more than this server accepts ({max_rows}, "
+            "FOLDWISE_MAX_ROWS); send a sample of the rows or ask for a higher cap.",
+        )
+    if n_columns > max_columns:
+        raise BadInput(
+            field,
+            f"the table has {n_columns} columns, more than this server accepts ({max_columns}, "
+            "FOLDWISE_MAX_COLUMNS); drop the columns the job does not need.",
+        )
+
+
+def table_from_frame(raw: pd.DataFrame, origin: dict[str, str], *, field: str) -> LoadedTable:
+    """Canonicalise a frame read elsewhere (an upload) into a table; BadInput names `field`."""
+    return _loaded(raw, origin, field)
+
+
 def _sample_frame(name: SampleName) -> pd.DataFrame:
     # Imported here: scikit-learn's datasets module is slow to import and most loads are files.
     from sklearn import datasets

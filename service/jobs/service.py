@@ -18,6 +18,7 @@ from sqlalchemy.orm import Session
 
 from service.auth import Principal
 from service.config import Settings
+from service.datasets.sources import check_table_size
 from service.jobs.prepare import prepare_job
 from service.jobs.submit import create_job
 from service.store.db import utcnow
@@ -78,6 +79,13 @@ def submit_job(
         visible_dataset(session, data["dataset"], principal)
     prepared = prepare_job(
         data, session=session, settings=settings, base_dir=base_dir or settings.home
+    )
+    # the caps hold for every table a service caller names, not only for uploads
+    check_table_size(
+        prepared.table.frame,
+        max_rows=settings.max_rows,
+        max_columns=settings.max_columns,
+        field="dataset",
     )
     job_id = create_job(session, prepared, settings, idempotency_key=idempotency_key)
     job = session.get_one(Job, job_id)

@@ -1,0 +1,1 @@
+"""The REST API v1 of foldwise (FastAPI), grouped by domain."""

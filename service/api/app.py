@@ -1,0 +1,111 @@
+"""The FastAPI application: routers, problem handlers, and the store and dispatcher it holds."""
+
+from __future__ import annotations
+
+import logging
+import os
+from collections.abc import AsyncIterator
+from contextlib import asynccontextmanager
+from typing import Any
+
+from fastapi import FastAPI
+from fastapi.openapi.utils import get_openapi
+
+import service
+from service.api.datasets.router import router as datasets_router
+from service.api.health.router import router as health_router
+from service.api.jobs.router import router as jobs_router
+from service.api.problems import PROBLEM_MEDIA_TYPE, install_problem_handlers
+from service.config import Settings
+from service.dispatch.base import Dispatcher
+from service.errors import BadInput
+from service.jobs.request import JobRequest
+from service.store.db import make_engine, make_session_factory
+
+log = logging.getLogger(__name__)
+JOBS_PATH = "/v1/jobs"
+
+
+def local_workers_from_env(env: dict[str, str] | None = None) -> int:
+    """FOLDWISE_LOCAL_WORKERS: processes of the embedded server's local pool (default 2)."""
+    raw = (os.environ if env is None else env).get("FOLDWISE_LOCAL_WORKERS") or "2"
+    if not raw.isdigit() or int(raw) < 1:
+        raise BadInput(
+            "FOLDWISE_LOCAL_WORKERS", f"must be a whole number of at least 1, not {raw!r}."
+        )
+    return int(raw)
+
+
+def _open_dispatcher(settings: Settings, local_workers: int) -> Dispatcher:
+    # Imported here: the local pool starts processes and Celery is slow to import.
+    if settings.broker_url:
+        from service.dispatch.celery_client import CeleryDispatcher
+
+        return CeleryDispatcher(settings)
+    from service.dispatch.local import LocalPool
+
+    return LocalPool(settings, workers=local_workers)
+
+
+def _document(app: FastAPI) -> dict[str, Any]:
+    """The OpenAPI document, with problem media types and the job request v1 body schema."""
+    if app.openapi_schema:
+        return app.openapi_schema
+    doc = get_openapi(
+        title=app.title,
+        version=app.version,
+        description=app.description,
+        routes=app.routes,
+    )
+    schemas = doc.setdefault("components", {}).setdefault("schemas", {})
+    for path in doc["paths"].values():
+        for operation in path.values():
+            for status, answer in operation.get("responses", {}).items():
+                content = answer.get("content", {})
+                if status[0] in "45" and "application/json" in content:
+                    content[PROBLEM_MEDIA_TYPE] = content.pop("application/json")
+    # The route takes the body as a plain object (so errors come from our own sentences); the
+    # document still describes job request v1, so a generated client builds it correctly.
+    request_schema = JobRequest.model_json_schema(ref_template="#/components/schemas/{model}")
+    schemas.update(request_schema.pop("$defs", {}))
+    schemas["JobRequest"] = request_schema
+    body = doc["paths"][JOBS_PATH]["post"]["requestBody"]
+    body["content"] = {"application/json": {"schema": {"$ref": "#/components/schemas/JobRequest"}}}
+    app.openapi_schema = doc
+    return doc
+
+
+def create_app(settings: Settings, *, local_workers: int | None = None) -> FastAPI:
+    """The API over the store at settings.database_url; migrations are a separate step."""
+    workers = local_workers if local_workers is not None else local_workers_from_env()
+
+    @asynccontextmanager
+    async def lifespan(app: FastAPI) -> AsyncIterator[None]:
+        # No migrations here: uvicorn runs the lifespan once per process, and several processes
+        # migrating at once is a deploy step's job (`foldwise db upgrade`).
+        engine = make_engine(settings.database_url)
+        app.state.sessions = make_session_factory(engine)
+        app.state.dispatcher = _open_dispatcher(settings, workers)
+        try:
+            yield
+        finally:
+            app.state.dispatcher.close()
+            engine.dispose()
+
+    app = FastAPI(
+        title="foldwise",
+        version=service.__version__,
+        description=(
+            "Nested cross-validation as a service: register a table, submit a selection job, "
+            "read an honest estimate of how the picked model will do on data like this data. "
+            "Every /v1 route needs a bearer token; errors are application/problem+json."
+        ),
+        lifespan=lifespan,
+    )
+    app.state.settings = settings
+    install_problem_handlers(app)
+    app.include_router(health_router)
+    app.include_router(datasets_router)
+    app.include_router(jobs_router)
+    app.openapi = lambda: _document(app)  # type: ignore[method-assign]
+    return app

@@ -1,0 +1,1 @@
+"""Datasets: register a source, upload a file, get and list by content hash."""

@@ -1,0 +1,45 @@
+"""What the dataset routes send and receive (the ORM rows stay in service.store.models)."""
+
+from __future__ import annotations
+
+from datetime import datetime
+
+from pydantic import BaseModel, Field
+
+from service.datasets.kinds import ColumnKind
+from service.datasets.sources import DatasetSource
+
+# The body of POST /v1/datasets is the same source object a job request's `dataset` may hold.
+DatasetCreate = DatasetSource
+
+
+class ColumnPublic(BaseModel):
+    """One column: its logical kind and how many values are missing and distinct."""
+
+    name: str
+    kind: ColumnKind
+    missing: int
+    distinct: int
+
+
+class DatasetSummary(BaseModel):
+    """A registered table, without its columns (what listings carry)."""
+
+    content_hash: str = Field(description="sha256 of the table's canonical serialisation.")
+    n_rows: int
+    n_columns: int
+    origin: dict[str, str] = Field(description="Where the rows first came from.")
+    created_at: datetime = Field(description="When the table was first stored.")
+
+
+class DatasetPublic(DatasetSummary):
+    """A registered table with its columns."""
+
+    columns: list[ColumnPublic]
+
+
+class DatasetList(BaseModel):
+    """A page of the datasets the caller may see, and how many there are in all."""
+
+    data: list[DatasetSummary]
+    count: int

@@ -1,0 +1,137 @@
+"""Dataset registration behind the routes: confine sources, cap sizes, store, register, read."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from service.auth import Principal
+from service.config import Settings
+from service.datasets.sources import (
+    DatasetSource,
+    LoadedTable,
+    check_table_size,
+    describe_table,
+    load_table,
+)
+from service.datasets.store import read_table, save_table
+from service.errors import BadInput
+from service.jobs.service import NotFound, register_dataset, visible_dataset
+from service.store.db import insert_ignoring_duplicates
+from service.store.models import Dataset, DatasetRegistration
+
+
+def confine_path_source(source: Any, settings: Settings, *, field: str, hint: str) -> None:
+    """Refuse a path source outright when the server has no data roots to confine it to."""
+    # resolve_dataset_path accepts any path when no roots are given (the command line's case);
+    # a server must never read arbitrary files on a caller's say-so.
+    path = source.path if isinstance(source, DatasetSource) else None
+    if isinstance(source, dict):
+        path = source.get("path")
+    if path is not None and not settings.data_roots:
+        raise BadInput(
+            f"{field}.path",
+            f"this server reads no files by path because FOLDWISE_DATA_ROOTS is not set; {hint}",
+        )
+
+
+def server_base_dir(settings: Settings) -> Path:
+    """Where relative paths in requests start: the first data root (else the server's home)."""
+    return settings.data_roots[0] if settings.data_roots else settings.home
+
+
+def check_shape(frame: pd.DataFrame, settings: Settings, *, field: str) -> None:
+    """Refuse tables past the configured row and column caps."""
+    check_table_size(
+        frame, max_rows=settings.max_rows, max_columns=settings.max_columns, field=field
+    )
+
+
+def load_source(source: DatasetSource, settings: Settings) -> LoadedTable:
+    """Load a registration body's source, confined to the data roots and capped in size."""
+    confine_path_source(
+        source, settings, field="dataset", hint="upload the file to /v1/datasets/upload instead."
+    )
+    table = load_table(
+        source,
+        base_dir=server_base_dir(settings),
+        data_roots=settings.data_roots,
+        field="dataset",
+    )
+    check_shape(table.frame, settings, field="dataset")
+    return table
+
+
+def store_table(session: Session, table: LoadedTable, *, team: str, settings: Settings) -> bool:
+    """Keep the table in the dataset store and let `team` see it; True if newly registered."""
+    save_table(table.frame, table.content_hash, settings.dataset_dir)
+    description = describe_table(table)
+    insert_ignoring_duplicates(
+        session,
+        Dataset,
+        [
+            {
+                "content_hash": table.content_hash,
+                "n_rows": description["n_rows"],
+                "n_columns": description["n_columns"],
+                # kind is what jobs read back; missing and distinct serve the API's description
+                "columns": description["columns"],
+                "origin": description["origin"],
+            }
+        ],
+    )
+    known = session.get(DatasetRegistration, (team, table.content_hash)) is not None
+    register_dataset(session, table.content_hash, team)
+    session.flush()
+    return not known
+
+
+def stored_dataset(session: Session, content_hash: str) -> Dataset:
+    """The dataset row with this hash; NotFound if there is none."""
+    dataset = session.scalars(
+        select(Dataset).where(Dataset.content_hash == content_hash)
+    ).one_or_none()
+    if dataset is None:
+        raise NotFound(f"no dataset {content_hash!r}")
+    return dataset
+
+
+def get_dataset(session: Session, content_hash: str, principal: Principal) -> Dataset:
+    """The stored dataset, if the principal's team registered it (or it is an analyst)."""
+    visible_dataset(session, content_hash, principal)
+    return stored_dataset(session, content_hash)
+
+
+def list_datasets(
+    session: Session, principal: Principal, *, limit: int, offset: int
+) -> tuple[list[Dataset], int]:
+    """A page of the datasets the principal may see, newest first, and the total."""
+    query = select(Dataset)
+    if not principal.analyst:
+        mine = select(DatasetRegistration.content_hash).where(
+            DatasetRegistration.team == principal.team
+        )
+        query = query.where(Dataset.content_hash.in_(mine))
+    total = session.scalar(select(func.count()).select_from(query.subquery()))
+    page = session.scalars(
+        query.order_by(Dataset.created_at.desc(), Dataset.id.desc()).limit(limit).offset(offset)
+    )
+    return list(page), int(total or 0)
+
+
+def column_summaries(dataset: Dataset, settings: Settings) -> list[dict[str, Any]]:
+    """Each column's kind, missing and distinct counts."""
+    columns = [dict(c) for c in dataset.columns]
+    if all("missing" in c and "distinct" in c for c in columns):
+        return columns
+    # Rows stored by a job submission carry kinds only; count from the stored table once asked.
+    frame = read_table(dataset.content_hash, settings.dataset_dir)
+    for column in columns:
+        values = frame[column["name"]]
+        column["missing"] = int(values.isna().sum())
+        column["distinct"] = int(values.nunique(dropna=True))
+    return columns

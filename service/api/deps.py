@@ -1,0 +1,105 @@
+"""Dependencies every router shares: settings, a session per request, the caller, the dispatcher."""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterator
+from typing import Annotated
+
+from fastapi import Depends, Request
+from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
+from sqlalchemy.orm import Session, sessionmaker
+
+from service.api.problems import ProblemError
+from service.auth import Principal, authenticate
+from service.config import Settings
+from service.dispatch.base import Dispatcher
+
+# auto_error=False: a missing header must become our 401 problem, not FastAPI's plain error.
+_bearer = HTTPBearer(auto_error=False, description="A token from `foldwise token create`.")
+
+
+def get_settings(request: Request) -> Settings:
+    """The settings the app was created with."""
+    settings: Settings = request.app.state.settings
+    return settings
+
+
+def get_sessions(request: Request) -> sessionmaker[Session]:
+    """The session factory the lifespan opened (for work that needs its own short sessions)."""
+    sessions: sessionmaker[Session] = request.app.state.sessions
+    return sessions
+
+
+def get_dispatcher(request: Request) -> Dispatcher:
+    """Celery or the local pool, whichever the lifespan started."""
+    dispatcher: Dispatcher = request.app.state.dispatcher
+    return dispatcher
+
+
+SettingsDep = Annotated[Settings, Depends(get_settings)]
+SessionsDep = Annotated[sessionmaker[Session], Depends(get_sessions)]
+DispatcherDep = Annotated[Dispatcher, Depends(get_dispatcher)]
+
+
+def get_session(sessions: SessionsDep) -> Iterator[Session]:
+    """One session per request: committed if the handler returns, rolled back if it raises."""
+    with sessions() as session:
+        try:
+            yield session
+            session.commit()
+        except BaseException:
+            session.rollback()
+            raise
+
+
+# scope="function": the commit runs before the response is sent, so a failed commit is a 500
+# rather than a success the store never kept (the default scope exits after sending).
+SessionDep = Annotated[Session, Depends(get_session, scope="function")]
+
+_CHALLENGE = {"WWW-Authenticate": "Bearer"}
+
+
+def get_principal(
+    sessions: SessionsDep,
+    credentials: Annotated[HTTPAuthorizationCredentials | None, Depends(_bearer)],
+) -> Principal:
+    """The caller behind the bearer token; a 401 problem without one or with a bad one."""
+    if credentials is None:
+        raise ProblemError(
+            401,
+            "send an Authorization: Bearer <token> header; `foldwise token create` makes one.",
+            headers=_CHALLENGE,
+        )
+    # A short session of its own: on SQLite every transaction takes the write lock, so the
+    # request's session should not begin until the handler needs it.
+    with sessions() as session:
+        principal = authenticate(session, credentials.credentials)
+    if principal is None:
+        raise ProblemError(
+            401,
+            "the bearer token is unknown or revoked; ask for a new one.",
+            headers={"WWW-Authenticate": 'Bearer error="invalid_token"'},
+        )
+    return principal
+
+
+PrincipalDep = Annotated[Principal, Depends(get_principal)]
+
+
+def require(scope: str) -> Callable[[Principal], Principal]:
+    """A dependency that passes the caller through if its token has `scope` (or admin)."""
+
+    def check(principal: PrincipalDep) -> Principal:
+        if scope not in principal.scopes and "admin" not in principal.scopes:
+            raise ProblemError(
+                403,
+                f"this route needs a token with the {scope!r} scope; this token has "
+                f"{', '.join(sorted(principal.scopes)) or 'none'}.",
+            )
+        return principal
+
+    return check
+
+
+ReaderDep = Annotated[Principal, Depends(require("read"))]
+SubmitterDep = Annotated[Principal, Depends(require("submit"))]

@@ -1,0 +1,104 @@
+"""Probes for the process manager and the load balancer, and metrics for Prometheus.
+
+Unauthenticated on purpose: probes and scrapers carry no tokens, and nothing here names a team,
+a dataset or a job.
+"""
+
+from __future__ import annotations
+
+import logging
+
+from fastapi import APIRouter
+from fastapi.responses import PlainTextResponse
+from pydantic import BaseModel
+from sqlalchemy import text
+
+from service.api.deps import SessionsDep, SettingsDep
+from service.api.health.metrics import CONTENT_TYPE, render_metrics
+from service.api.problems import ProblemError, problem_responses
+
+log = logging.getLogger(__name__)
+router = APIRouter(tags=["health"])
+BROKER_TIMEOUT_SECONDS = 2.0
+
+
+class Health(BaseModel):
+    """The probe's verdict and what was checked."""
+
+    status: str
+    checks: dict[str, str]
+
+
+@router.get("/healthz", response_model=Health, summary="Liveness: the process answers")
+def healthz() -> Health:
+    """Always ok while the process can answer."""
+    return Health(status="ok", checks={})
+
+
+def _ping_broker(url: str) -> None:
+    if url.startswith(("redis://", "rediss://", "unix://")):
+        import redis
+
+        client = redis.Redis.from_url(
+            url,
+            socket_connect_timeout=BROKER_TIMEOUT_SECONDS,
+            socket_timeout=BROKER_TIMEOUT_SECONDS,
+        )
+        try:
+            client.ping()
+        finally:
+            client.close()
+        return
+    from kombu import Connection
+
+    with Connection(url, connect_timeout=BROKER_TIMEOUT_SECONDS) as connection:
+        connection.ensure_connection(max_retries=1, timeout=BROKER_TIMEOUT_SECONDS)
+
+
+@router.get(
+    "/readyz",
+    response_model=Health,
+    summary="Readiness: the store answers, and the broker when one is configured",
+    responses=problem_responses(503),
+)
+def readyz(sessions: SessionsDep, settings: SettingsDep) -> Health:
+    """200 when every dependency answers; a 503 problem naming the one that does not."""
+    checks: dict[str, str] = {}
+    try:
+        with sessions() as session:
+            session.execute(text("SELECT 1"))
+        checks["database"] = "ok"
+    except Exception as exc:
+        log.warning("readiness: database unreachable: %s", exc)
+        raise ProblemError(
+            503, "the database does not answer; check FOLDWISE_DATABASE_URL."
+        ) from exc
+    if settings.broker_url:
+        try:
+            _ping_broker(settings.broker_url)
+            checks["broker"] = "ok"
+        except Exception as exc:
+            log.warning("readiness: broker unreachable: %s", exc)
+            raise ProblemError(
+                503, "the broker does not answer; check FOLDWISE_BROKER_URL and that Redis runs."
+            ) from exc
+    return Health(status="ok", checks=checks)
+
+
+@router.get(
+    "/metrics",
+    response_class=PlainTextResponse,
+    response_model=None,
+    summary="Prometheus metrics: jobs by status, units done, unit durations, queue depth",
+    responses={
+        200: {
+            "description": "Prometheus text exposition format 0.0.4.",
+            "content": {"text/plain": {"schema": {"type": "string"}}},
+        }
+    },
+)
+def metrics(sessions: SessionsDep) -> PlainTextResponse:
+    """Read from the store at every scrape."""
+    with sessions() as session:
+        body = render_metrics(session)
+    return PlainTextResponse(body, media_type=CONTENT_TYPE)

@@ -1,0 +1,1 @@
+"""Selection jobs: submit, get, list, cancel, and their fold scores."""

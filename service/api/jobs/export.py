@@ -1,0 +1,48 @@
+"""Fold scores as CSV lines, paged through with the same keyset as the JSON listing."""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+from collections.abc import Iterator
+from typing import Any
+
+from sqlalchemy.orm import Session, sessionmaker
+
+from service.api.jobs.schemas import FOLD_SCORE_COLUMNS, FoldScorePublic
+from service.jobs.service import fold_scores_page
+from service.store.models import Job
+
+PAGE = 1000
+
+
+def _cell(value: Any) -> Any:
+    # versions is a mapping; keep it one JSON cell so the CSV stays rectangular
+    return json.dumps(value, sort_keys=True) if isinstance(value, dict) else value
+
+
+def fold_score_lines(sessions: sessionmaker[Session], job_id: str) -> Iterator[str]:
+    """The header, then one line per score, cells formatted as the JSON listing formats them."""
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow(FOLD_SCORE_COLUMNS)
+    after = 0
+    while True:
+        # A short session per page: on SQLite a transaction holds the write lock, and the
+        # client may read slowly.
+        with sessions() as session:
+            job = session.get_one(Job, job_id)
+            page = fold_scores_page(session, job, after_id=after, limit=PAGE)
+            rows = [
+                FoldScorePublic.model_validate(r, from_attributes=True).model_dump(mode="json")
+                for r in page
+            ]
+        for row in rows:
+            writer.writerow([_cell(row[c]) for c in FOLD_SCORE_COLUMNS])
+        yield buffer.getvalue()
+        buffer.seek(0)
+        buffer.truncate()
+        if len(page) < PAGE:
+            return
+        after = page[-1].id

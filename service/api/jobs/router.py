@@ -1,0 +1,260 @@
+"""Job routes: submit (idempotent), get, list, cancel, and fold scores as JSON pages or CSV."""
+
+from __future__ import annotations
+
+import logging
+from datetime import UTC, datetime
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Body, Header, Path, Query, Response
+from fastapi.responses import StreamingResponse
+from sqlalchemy.exc import IntegrityError
+
+from service.api.datasets.service import confine_path_source, server_base_dir
+from service.api.deps import (
+    DispatcherDep,
+    ReaderDep,
+    SessionDep,
+    SessionsDep,
+    SettingsDep,
+    SubmitterDep,
+)
+from service.api.jobs import export
+from service.api.jobs.schemas import (
+    FoldScorePage,
+    FoldScorePublic,
+    JobLinks,
+    JobList,
+    JobProgress,
+    JobPublic,
+    JobStatus,
+    JobSummary,
+)
+from service.api.problems import problem_responses
+from service.dispatch.base import mark_published
+from service.jobs import service
+from service.store.models import Job
+
+log = logging.getLogger(__name__)
+router = APIRouter(prefix="/v1/jobs", tags=["jobs"])
+
+JSON_BODY_LIMIT = 1 << 20
+JobId = Annotated[str, Path(max_length=64, description="The job's id.")]
+IdempotencyKey = Annotated[
+    str | None,
+    Header(
+        alias="Idempotency-Key",
+        max_length=200,
+        description="Repeat a submission safely: the same key and body name the same job.",
+    ),
+]
+_ROOTS_HINT = (
+    "register the table first (POST /v1/datasets/upload or POST /v1/datasets) "
+    "and pass its content_hash as dataset."
+)
+
+
+def _summary(job: Job) -> JobSummary:
+    total = job.units_total
+    return JobSummary(
+        id=job.id,
+        status=job.status,  # a CHECK constraint keeps it one of JobStatus
+        dataset_hash=job.dataset_hash,
+        team=job.team,
+        created_at=job.created_at,
+        started_at=job.started_at,
+        finished_at=job.finished_at,
+        progress=JobProgress(
+            units_done=job.units_done,
+            units_total=total,
+            fraction=min(1.0, job.units_done / total) if total else 0.0,
+        ),
+    )
+
+
+def _public(job: Job) -> JobPublic:
+    base = f"/v1/jobs/{job.id}"
+    return JobPublic(
+        **_summary(job).model_dump(),
+        error=job.error,
+        result=job.result if job.status == "succeeded" else None,
+        links=JobLinks(
+            job=base,
+            cancel=f"{base}/cancel",
+            fold_scores=f"{base}/fold-scores",
+            fold_scores_csv=f"{base}/fold-scores.csv",
+            dataset=f"/v1/datasets/{job.dataset_hash}",
+        ),
+    )
+
+
+@router.post(
+    "",
+    response_model=JobPublic,
+    status_code=202,
+    summary="Submit a selection job (job request v1)",
+    description=(
+        "202 with `Location` once the job and its units are stored; repeating the call with "
+        "the same `Idempotency-Key` and body answers 200 with the same job, another body under "
+        "that key is a 409. Path sources are confined to FOLDWISE_DATA_ROOTS."
+    ),
+    responses={
+        200: {"model": JobPublic, "description": "The job an earlier call with this key made."},
+        **problem_responses(400, 401, 403, 404, 409, 413, 422),
+    },
+    max_body_size=JSON_BODY_LIMIT,
+)
+def submit_job(
+    body: Annotated[dict[str, Any], Body(description="Job request v1.")],
+    principal: SubmitterDep,
+    session: SessionDep,
+    sessions: SessionsDep,
+    settings: SettingsDep,
+    dispatcher: DispatcherDep,
+    response: Response,
+    idempotency_key: IdempotencyKey = None,
+) -> JobPublic:
+    """Validate and store the job, commit, then hand its first units to the workers."""
+    # Taken as a plain object so every field error comes from parse_job_request's sentences.
+    confine_path_source(body.get("dataset"), settings, field="dataset", hint=_ROOTS_HINT)
+
+    def submit() -> service.Submitted:
+        return service.submit_job(
+            session,
+            body,
+            principal=principal,
+            settings=settings,
+            idempotency_key=idempotency_key,
+            base_dir=server_base_dir(settings),
+        )
+
+    try:
+        submitted = submit()
+        session.commit()
+    except IntegrityError:
+        # Two submissions with one new key raced; the loser finds the winner's job on retry.
+        session.rollback()
+        if idempotency_key is None:
+            raise
+        submitted = submit()
+        session.commit()
+    job = submitted.job
+    if submitted.created:
+        # Published only after the commit, from the committed rows: a crash in between leaves
+        # queued units the reconciler re-publishes (RELIABILITY.md, outbox).
+        unit_ids = service.queued_unit_ids(session, job.id)
+        session.commit()
+        try:
+            dispatcher.publish(unit_ids)
+            mark_published(sessions, unit_ids)
+        except Exception:
+            log.exception("publishing job %s failed; the reconciler will publish it", job.id)
+    response.status_code = 202 if submitted.created else 200
+    response.headers["Location"] = f"/v1/jobs/{job.id}"
+    return _public(job)
+
+
+@router.get(
+    "/{job_id}",
+    response_model=JobPublic,
+    summary="Get a job: status, progress and, once succeeded, result v1",
+    responses=problem_responses(401, 403, 404, 422),
+)
+def get_job(job_id: JobId, principal: ReaderDep, session: SessionDep) -> JobPublic:
+    """Another team's job is a 404, as if it did not exist."""
+    return _public(service.get_job(session, job_id, principal))
+
+
+def _aware(moment: datetime | None) -> datetime | None:
+    # The store refuses naive datetimes; a query without an offset is read as UTC.
+    if moment is not None and moment.tzinfo is None:
+        return moment.replace(tzinfo=UTC)
+    return moment
+
+
+@router.get(
+    "",
+    response_model=JobList,
+    summary="List jobs, newest first, by dataset hash, status and creation time",
+    responses=problem_responses(401, 403, 422),
+)
+def list_jobs(
+    principal: ReaderDep,
+    session: SessionDep,
+    dataset_hash: Annotated[str | None, Query(max_length=64)] = None,
+    status: Annotated[JobStatus | None, Query()] = None,
+    created_after: Annotated[datetime | None, Query(description="Inclusive.")] = None,
+    created_before: Annotated[datetime | None, Query(description="Exclusive.")] = None,
+    limit: Annotated[int, Query(ge=1, le=200)] = 50,
+    offset: Annotated[int, Query(ge=0)] = 0,
+) -> JobList:
+    """The caller's team's jobs (an analyst's: every team's) with the total count."""
+    jobs, count = service.list_jobs(
+        session,
+        principal,
+        limit=limit,
+        offset=offset,
+        dataset_hash=dataset_hash,
+        status=status,
+        created_after=_aware(created_after),
+        created_before=_aware(created_before),
+    )
+    return JobList(data=[_summary(j) for j in jobs], count=count)
+
+
+@router.post(
+    "/{job_id}/cancel",
+    response_model=JobPublic,
+    summary="Cancel a queued or running job (finished jobs are left as they are)",
+    responses=problem_responses(401, 403, 404, 422),
+)
+def cancel_job(job_id: JobId, principal: SubmitterDep, session: SessionDep) -> JobPublic:
+    """Units stop between fits; queued units never start."""
+    job = service.cancel_job(session, service.get_job(session, job_id, principal))
+    session.commit()
+    return _public(job)
+
+
+@router.get(
+    "/{job_id}/fold-scores",
+    response_model=FoldScorePage,
+    summary="The job's fold scores in id order, keyset paginated",
+    responses=problem_responses(401, 403, 404, 422),
+)
+def list_fold_scores(
+    job_id: JobId,
+    principal: ReaderDep,
+    session: SessionDep,
+    after: Annotated[int, Query(ge=0, description="Return scores with id greater than this.")] = 0,
+    limit: Annotated[int, Query(ge=1, le=1000)] = 100,
+) -> FoldScorePage:
+    """Scores of the job's candidates on its folds, whichever job computed them."""
+    job = service.get_job(session, job_id, principal)
+    rows = service.fold_scores_page(session, job, after_id=after, limit=limit)
+    data = [FoldScorePublic.model_validate(r, from_attributes=True) for r in rows]
+    return FoldScorePage(data=data, next_after=data[-1].id if len(data) == limit else None)
+
+
+@router.get(
+    "/{job_id}/fold-scores.csv",
+    response_class=StreamingResponse,
+    response_model=None,
+    summary="The job's fold scores as CSV (the JSON listing's columns)",
+    responses={
+        200: {
+            "description": "CSV with a header row, in id order.",
+            "content": {"text/csv": {"schema": {"type": "string"}}},
+        },
+        **problem_responses(401, 403, 404, 422),
+    },
+)
+def export_fold_scores(
+    job_id: JobId, principal: ReaderDep, session: SessionDep, sessions: SessionsDep
+) -> StreamingResponse:
+    """Streamed page by page, each page read in its own short session."""
+    job = service.get_job(session, job_id, principal)
+    return StreamingResponse(
+        export.fold_score_lines(sessions, job.id),
+        media_type="text/csv; charset=utf-8",
+        headers={"Content-Disposition": f'attachment; filename="fold-scores-{job.id}.csv"'},
+    )

@@ -1,0 +1,160 @@
+"""What the job routes send (the request body is job request v1, service.jobs.request)."""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Any, Literal
+
+from pydantic import BaseModel, ConfigDict, Field
+
+JobStatus = Literal["queued", "running", "succeeded", "failed", "cancelled"]
+
+
+class _Open(BaseModel):
+    # Result v1 may gain fields; a client generated from this document must not lose them.
+    model_config = ConfigDict(extra="allow")
+
+
+class CandidatePublic(_Open):
+    """One concrete (estimator, hyperparameters) point."""
+
+    candidate_key: str
+    estimator: str
+    params: dict[str, Any]
+
+
+class OuterFoldResult(_Open):
+    """One outer fold: the inner loop's pick and its scores on the held-out rows."""
+
+    repeat: int
+    fold: int
+    n_train: int
+    n_test: int
+    pick: CandidatePublic
+    inner_mean: float = Field(description="The pick's inner mean of pick_by.")
+    scores: dict[str, float]
+
+
+class MetricEstimate(_Open):
+    """A metric over the outer folds."""
+
+    mean: float
+    std: float
+    se: float
+    values: list[float]
+
+
+class FinalPick(CandidatePublic):
+    """The inner procedure run on all rows, refit on all rows."""
+
+    inner_mean: float
+    model_sha256: str
+
+
+class PickCount(CandidatePublic):
+    """How many outer folds picked a candidate."""
+
+    count: int
+
+
+class WorkSummary(_Open):
+    """How much work the job took."""
+
+    units_total: int
+    units_computed: int
+    units_reused: int
+    fits: int
+    seconds: float
+
+
+class ResultV1(_Open):
+    """Result v1 of a succeeded job."""
+
+    dataset_hash: str
+    task: str
+    n_rows: int
+    metrics: list[str]
+    pick_by: str
+    outer: list[OuterFoldResult]
+    estimate: dict[str, MetricEstimate]
+    final_pick: FinalPick
+    pick_frequency: list[PickCount]
+    optimism_gap: float = Field(description="Final pick's inner mean minus the outer mean.")
+    work: WorkSummary
+    versions: dict[str, str]
+    cautions: list[str]
+
+
+class JobProgress(BaseModel):
+    """Units finished out of the units the job has so far (the total grows by stage)."""
+
+    units_done: int
+    units_total: int
+    fraction: float = Field(ge=0, le=1)
+
+
+class JobLinks(BaseModel):
+    """Where to go next."""
+
+    job: str
+    cancel: str
+    fold_scores: str
+    fold_scores_csv: str
+    dataset: str
+
+
+class JobSummary(BaseModel):
+    """A job without its result (what listings carry)."""
+
+    id: str
+    status: JobStatus
+    dataset_hash: str
+    team: str
+    created_at: datetime
+    started_at: datetime | None
+    finished_at: datetime | None
+    progress: JobProgress
+
+
+class JobPublic(JobSummary):
+    """A job with its error or, once succeeded, its result v1."""
+
+    error: str | None
+    result: ResultV1 | None = Field(description="Result v1 when succeeded, else null.")
+    links: JobLinks
+
+
+class JobList(BaseModel):
+    """A page of jobs and how many match in all."""
+
+    data: list[JobSummary]
+    count: int
+
+
+class FoldScorePublic(BaseModel):
+    """One stored score with its provenance; `job_id` is the job whose unit computed it."""
+
+    id: int
+    fold_fingerprint: str
+    candidate_key: str
+    metric: str
+    value: float
+    fit_seconds: float
+    score_seconds: float
+    n_train: int
+    n_test: int
+    seed: int | None
+    versions: dict[str, str]
+    worker: str
+    job_id: str
+    created_at: datetime
+
+
+class FoldScorePage(BaseModel):
+    """Scores in id order; pass `next_after` as `after` for the next page (null: no more)."""
+
+    data: list[FoldScorePublic]
+    next_after: int | None
+
+
+FOLD_SCORE_COLUMNS = tuple(FoldScorePublic.model_fields)

@@ -1,0 +1,189 @@
+"""RFC 9457 problem details: every 4xx and 5xx the API sends is `application/problem+json`."""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Mapping
+from http import HTTPStatus
+from typing import Any
+
+from fastapi import FastAPI, Request
+from fastapi.exceptions import RequestValidationError
+from fastapi.responses import JSONResponse
+from pydantic import BaseModel, Field
+from starlette.exceptions import HTTPException as StarletteHTTPException
+
+from service.errors import BadInput
+from service.jobs.request import field_path
+from service.jobs.service import Conflict, NotFound
+
+log = logging.getLogger(__name__)
+
+PROBLEM_MEDIA_TYPE = "application/problem+json"
+PROBLEM_BASE = "https://foldwise.dev/problems/"
+
+# One problem type per way a request can go wrong; clients branch on `type`, people read `detail`.
+_TYPES: dict[int, tuple[str, str]] = {
+    400: ("unreadable-body", "The request body could not be read"),
+    401: ("unauthenticated", "A valid bearer token is required"),
+    403: ("forbidden", "The token lacks the scope this route needs"),
+    404: ("not-found", "No such resource"),
+    409: ("conflict", "The request conflicts with stored state"),
+    413: ("too-large", "The request is larger than this server accepts"),
+    422: ("bad-input", "The request has a field to fix"),
+    500: ("internal", "The server failed to handle the request"),
+    503: ("unavailable", "A service this server depends on is unreachable"),
+}
+
+
+class Problem(BaseModel):
+    """An RFC 9457 problem document; `field` names the input to fix, when there is one."""
+
+    type: str = Field(description="A URI naming the kind of problem, or about:blank.")
+    title: str = Field(description="A short summary of the kind of problem.")
+    status: int = Field(description="The HTTP status code.")
+    detail: str = Field(description="What went wrong this time, and what to do about it.")
+    instance: str = Field(description="The path of the request that failed.")
+    field: str | None = Field(
+        default=None, description="The input at fault, e.g. families[0].grid.C."
+    )
+
+
+class ProblemError(Exception):
+    """Raised anywhere in the API to answer with a problem document."""
+
+    def __init__(
+        self,
+        status: int,
+        detail: str,
+        *,
+        field: str | None = None,
+        headers: Mapping[str, str] | None = None,
+    ) -> None:
+        super().__init__(detail)
+        self.status, self.detail, self.field = status, detail, field
+        self.headers = dict(headers or {})
+
+
+def problem_type(status: int) -> tuple[str, str]:
+    """The type URI and title for a status; about:blank with the reason phrase otherwise."""
+    if status in _TYPES:
+        slug, title = _TYPES[status]
+        return PROBLEM_BASE + slug, title
+    return "about:blank", HTTPStatus(status).phrase
+
+
+def problem_response(
+    request: Request,
+    status: int,
+    detail: str,
+    *,
+    field: str | None = None,
+    headers: Mapping[str, str] | None = None,
+) -> JSONResponse:
+    """A problem document as a response."""
+    kind, title = problem_type(status)
+    body = Problem(
+        type=kind, title=title, status=status, detail=detail, instance=request.url.path, field=field
+    )
+    return JSONResponse(
+        body.model_dump(exclude_none=True),
+        status_code=status,
+        media_type=PROBLEM_MEDIA_TYPE,
+        headers=dict(headers or {}),
+    )
+
+
+def problem_responses(*statuses: int) -> dict[int | str, dict[str, Any]]:
+    """The `responses=` of a route: each listed status documented as a Problem."""
+    # The OpenAPI post-processing in app.py moves these schemas under application/problem+json.
+    return {
+        status: {"model": Problem, "description": problem_type(status)[1]} for status in statuses
+    }
+
+
+def _sentence(error: Mapping[str, Any]) -> str:
+    kind, msg = str(error.get("type", "")), str(error.get("msg", "is not valid"))
+    if kind == "missing":
+        return "is required; add it."
+    if kind == "extra_forbidden":
+        return "is not a field of this request; remove it or check its spelling."
+    if kind == "value_error":
+        return msg.removeprefix("Value error, ").rstrip(".") + "."
+    text = f"{msg[0].lower()}{msg[1:]}" if msg else "is not valid"
+    if "input" in error and not isinstance(error["input"], dict | list):
+        text += f" (got {error['input']!r})"
+    return text + "."
+
+
+def _validation_problem(request: Request, exc: RequestValidationError) -> JSONResponse:
+    errors = list(exc.errors())
+    first = errors[0] if errors else {"type": "", "msg": "the request is not valid"}
+    loc = tuple(first.get("loc", ()))
+    if first.get("type") == "json_invalid":
+        ctx = first.get("ctx")
+        reason = ctx.get("error", "not JSON") if isinstance(ctx, dict) else "not JSON"
+        return problem_response(
+            request,
+            400,
+            f"the body is not valid JSON ({reason} at character {loc[-1]}); send a JSON object.",
+            field="request",
+        )
+    # loc starts with where the value came from (body, query, path, header); the rest is the field
+    field = field_path(tuple(loc[1:])) or "request"
+    if field == "request" and first.get("type") == "missing":
+        return problem_response(
+            request, 422, "the request has no body; send a JSON object.", field=field
+        )
+    if field == "request" and first.get("type") in ("dict_type", "model_attributes_type"):
+        return problem_response(
+            request,
+            422,
+            "the body must be a JSON object sent with Content-Type: application/json.",
+            field=field,
+        )
+    return problem_response(request, 422, _sentence(first), field=field)
+
+
+def install_problem_handlers(app: FastAPI) -> None:
+    """Register the handlers that turn every error into a problem document."""
+
+    async def on_problem(request: Request, exc: Exception) -> JSONResponse:
+        assert isinstance(exc, ProblemError)
+        return problem_response(
+            request, exc.status, exc.detail, field=exc.field, headers=exc.headers
+        )
+
+    async def on_http(request: Request, exc: Exception) -> JSONResponse:
+        assert isinstance(exc, StarletteHTTPException)
+        detail = exc.detail if isinstance(exc.detail, str) else HTTPStatus(exc.status_code).phrase
+        return problem_response(request, exc.status_code, detail, headers=exc.headers)
+
+    async def on_validation(request: Request, exc: Exception) -> JSONResponse:
+        assert isinstance(exc, RequestValidationError)
+        return _validation_problem(request, exc)
+
+    async def on_bad_input(request: Request, exc: Exception) -> JSONResponse:
+        assert isinstance(exc, BadInput)
+        return problem_response(request, 422, exc.message, field=exc.field or "request")
+
+    async def on_conflict(request: Request, exc: Exception) -> JSONResponse:
+        return problem_response(request, 409, str(exc))
+
+    async def on_not_found(request: Request, exc: Exception) -> JSONResponse:
+        return problem_response(request, 404, str(exc))
+
+    async def on_crash(request: Request, exc: Exception) -> JSONResponse:
+        # The traceback goes to the log only: it can hold paths and data the caller must not see.
+        log.error("unhandled error on %s %s", request.method, request.url.path, exc_info=exc)
+        return problem_response(
+            request, 500, "the server hit an unexpected error; it is logged, try again later."
+        )
+
+    app.add_exception_handler(ProblemError, on_problem)
+    app.add_exception_handler(StarletteHTTPException, on_http)
+    app.add_exception_handler(RequestValidationError, on_validation)
+    app.add_exception_handler(BadInput, on_bad_input)
+    app.add_exception_handler(Conflict, on_conflict)
+    app.add_exception_handler(NotFound, on_not_found)
+    app.add_exception_handler(Exception, on_crash)
