@@ -1,9 +1,8 @@
-"""The `foldwise` command line (embedded mode): select, dataset inspect, db upgrade, demo."""
+"""The `foldwise` command line: select, dataset inspect, db upgrade, serve, token, demo."""
 
 from __future__ import annotations
 
 import json
-import os
 import sys
 from pathlib import Path
 from typing import Annotated, Any, NoReturn
@@ -11,6 +10,8 @@ from typing import Annotated, Any, NoReturn
 import typer
 from rich.console import Console
 
+from service.cli.demo_cmd import demo
+from service.cli.server_cmd import serve, token_app
 from service.config import load_settings
 from service.errors import BadInput
 
@@ -28,7 +29,6 @@ app.add_typer(db_app, name="db")
 # wide enough for the tables when piped to a file; a terminal sets its own width
 stdout = Console(width=None if sys.stdout.isatty() else 160)
 stderr = Console(stderr=True)
-DEMO_DIR = Path(__file__).resolve().parents[2] / "demo_data"
 
 
 def _refuse(exc: BadInput) -> NoReturn:
@@ -124,24 +124,10 @@ def db_upgrade() -> None:
     stderr.print(f"store at {settings.database_url} is up to date", markup=False)
 
 
-@app.command()
-def demo(
-    workers: Annotated[int, typer.Option(help="Local worker processes.")] = min(
-        2, os.cpu_count() or 1
-    ),
-) -> None:
-    """The invented pump-failure scenario end to end: select a model, report honestly."""
-    job_file = DEMO_DIR / "pump_job.json"
-    stderr.print(
-        "Larkmere Water (an invented utility): which pumps fail within 30 days? Running nested "
-        f"cross-validation on {DEMO_DIR / 'pump_failures.csv'} ...",
-        markup=False,
-    )
-    try:
-        _select(_read_job_file(job_file), as_json=False, workers=workers, base_dir=DEMO_DIR.parent)
-    except BadInput as exc:
-        _refuse(exc)
-
+# The server-side commands live in their own modules; main only registers them.
+app.command()(serve)
+app.command()(demo)
+app.add_typer(token_app, name="token")
 
 from service.cli import workers_cmd  # noqa: E402  (foldwise worker, foldwise beat)
 

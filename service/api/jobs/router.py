@@ -32,6 +32,7 @@ from service.api.jobs.schemas import (
 )
 from service.api.problems import problem_responses
 from service.dispatch.base import mark_published
+from service.errors import BadInput
 from service.jobs import service
 from service.store.models import Job
 
@@ -119,14 +120,22 @@ def submit_job(
     confine_path_source(body.get("dataset"), settings, field="dataset", hint=_ROOTS_HINT)
 
     def submit() -> service.Submitted:
-        return service.submit_job(
-            session,
-            body,
-            principal=principal,
-            settings=settings,
-            idempotency_key=idempotency_key,
-            base_dir=server_base_dir(settings),
-        )
+        try:
+            return service.submit_job(
+                session,
+                body,
+                principal=principal,
+                settings=settings,
+                idempotency_key=idempotency_key,
+                base_dir=server_base_dir(settings),
+            )
+        except service.NotFound:
+            # The same answer whether the hash is unknown or another team's: nothing leaks.
+            raise BadInput(
+                "dataset",
+                "no dataset with this content hash is visible to your team; upload or register "
+                "the table first (POST /v1/datasets/upload) and pass the hash it returns.",
+            ) from None
 
     try:
         submitted = submit()

@@ -1,0 +1,157 @@
+"""`foldwise demo`: the invented pump-failure scenario through the REST API of a local server.
+
+It does what another team's service would do: start (here: spawn) a server, upload a table,
+submit a job by the table's content hash, follow its progress, read the result.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import socket
+import subprocess
+import sys
+import time
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from pathlib import Path
+from typing import Annotated, Any
+
+import typer
+
+from service.cli.output import fail, refuse, stderr, stdout
+from service.config import Settings, load_settings
+from service.errors import BadInput
+
+DEMO_DIR = Path(__file__).resolve().parents[2] / "demo_data"
+TABLE = DEMO_DIR / "pump_failures.csv"
+JOB = DEMO_DIR / "pump_job.json"
+START_SECONDS = 60.0
+# A quiet line every so often when stderr is not a terminal (a CI log, a pipe).
+LINE_SECONDS = 5.0
+
+
+def free_port() -> int:
+    """A TCP port nobody listens on right now (the server binds it a moment later)."""
+    with socket.socket() as probe:
+        probe.bind(("127.0.0.1", 0))
+        return int(probe.getsockname()[1])
+
+
+def _demo_token(settings: Settings) -> str:
+    from service.auth import create_token
+    from service.store.db import make_engine, make_session_factory, upgrade_database
+
+    upgrade_database(settings.database_url)
+    engine = make_engine(settings.database_url)
+    try:
+        with make_session_factory(engine).begin() as session:
+            return create_token(session, team="demo", scopes=["submit", "read"])
+    finally:
+        engine.dispose()
+
+
+@contextmanager
+def running_server(port: int, workers: int, log_path: Path) -> Iterator[str]:
+    """`foldwise serve` in a subprocess until the block ends; yields its base URL."""
+    import httpx
+
+    base = f"http://127.0.0.1:{port}"
+    command = [sys.executable, "-m", "service.cli.main", "serve", "--port", str(port)]
+    command += ["--workers-local", str(workers)]
+    log_path.parent.mkdir(parents=True, exist_ok=True)
+    with log_path.open("wb") as log:
+        server = subprocess.Popen(command, stdout=log, stderr=subprocess.STDOUT, env=os.environ)
+        try:
+            deadline = time.monotonic() + START_SECONDS
+            while True:
+                if server.poll() is not None:
+                    fail(f"the server exited with code {server.returncode}; see {log_path}.")
+                try:
+                    if httpx.get(f"{base}/healthz", timeout=1).status_code == 200:
+                        break
+                except httpx.TransportError:
+                    pass
+                if time.monotonic() > deadline:
+                    fail(f"the server did not answer within {START_SECONDS:.0f} s; see {log_path}.")
+                time.sleep(0.2)
+            yield base
+        finally:
+            server.terminate()
+            try:
+                server.wait(timeout=30)
+            except subprocess.TimeoutExpired:
+                server.kill()
+                server.wait()
+
+
+def _checked(answer: Any, what: str) -> dict[str, Any]:
+    body: dict[str, Any] = answer.json()
+    if answer.status_code >= 400:
+        fail(f"{what} was refused ({answer.status_code}): {body.get('detail', body)}")
+    return body
+
+
+def _follow(
+    client: Any, location: str, update: Callable[[int, int], None] | None
+) -> dict[str, Any]:
+    """Poll the job until it ends, reporting progress as a bar or as occasional lines."""
+    last_line, shown = 0.0, (-1, -1)
+    while True:
+        job = _checked(client.get(location), "reading the job")
+        progress = job["progress"]
+        done, total = progress["units_done"], progress["units_total"]
+        if update is not None:
+            update(done, total)
+        elif (done, total) != shown and time.monotonic() - last_line >= LINE_SECONDS:
+            stderr.print(f"  {done}/{total} units done ({job['status']})", markup=False)
+            last_line, shown = time.monotonic(), (done, total)
+        if job["status"] not in ("queued", "running"):
+            return job
+        time.sleep(0.5)
+
+
+def demo(
+    workers: Annotated[int, typer.Option(help="Local worker processes of the server.")] = min(
+        2, os.cpu_count() or 1
+    ),
+) -> None:
+    """The invented pump-failure scenario end to end through the REST API of a local server."""
+    import httpx
+
+    from service.cli.progress import unit_progress
+    from service.cli.render import print_result
+
+    try:
+        if workers < 1:
+            raise BadInput("--workers", "must be at least 1.")
+        settings = load_settings()
+        request = json.loads(JOB.read_text(encoding="utf-8"))
+    except BadInput as exc:
+        refuse(exc)
+    stderr.print(
+        "Larkmere Water (an invented utility): which pumps fail within 30 days? Starting a "
+        f"foldwise server on this machine (store in {settings.home}) ...",
+        markup=False,
+    )
+    token = _demo_token(settings)
+    port = free_port()
+    with running_server(port, workers, settings.home / "demo-server.log") as base:
+        headers = {"Authorization": f"Bearer {token}"}
+        with httpx.Client(base_url=base, headers=headers, timeout=120) as client:
+            with TABLE.open("rb") as table:
+                files = {"file": (TABLE.name, table, "text/csv")}
+                dataset = _checked(client.post("/v1/datasets/upload", files=files), "the upload")
+            stderr.print(
+                f"Uploaded {TABLE.name}: {dataset['n_rows']} rows, content hash "
+                f"{dataset['content_hash'][:12]}; submitting the job over HTTP ...",
+                markup=False,
+            )
+            request["dataset"] = dataset["content_hash"]
+            submitted = client.post("/v1/jobs", json=request)
+            job = _checked(submitted, "the job")
+            with unit_progress(stderr) as update:
+                job = _follow(client, submitted.headers["Location"], update)
+    if job["status"] != "succeeded":
+        fail(f"job {job['id']} ended {job['status']}: {job.get('error') or 'no error recorded'}")
+    print_result(stdout, job["result"], job["id"])

@@ -1,0 +1,89 @@
+"""`foldwise serve` and `foldwise token create`: the API process and its bearer tokens."""
+
+from __future__ import annotations
+
+import sys
+from typing import Annotated
+
+import typer
+from sqlalchemy.engine import make_url
+from sqlalchemy.exc import SQLAlchemyError
+
+from service.cli.output import fail, refuse, stderr
+from service.config import Settings, load_settings
+from service.errors import BadInput
+
+token_app = typer.Typer(help="Bearer tokens for the REST API.", no_args_is_help=True)
+
+
+def embedded_store(settings: Settings) -> bool:
+    """True for the one-machine default: SQLite and no broker."""
+    return settings.embedded and make_url(settings.database_url).get_backend_name() == "sqlite"
+
+
+def upgrade_if_embedded(settings: Settings) -> None:
+    """Migrate the embedded store in place; elsewhere that is the deploy's `foldwise db upgrade`."""
+    # One process owns an embedded store, so migrating at start cannot race another server.
+    if embedded_store(settings):
+        from service.store.db import upgrade_database
+
+        upgrade_database(settings.database_url)
+
+
+def serve(
+    host: Annotated[str, typer.Option(help="Interface to listen on.")] = "127.0.0.1",
+    port: Annotated[int, typer.Option(help="TCP port to listen on.")] = 8000,
+    workers_local: Annotated[
+        int | None,
+        typer.Option(
+            "--workers-local",
+            help="Local pool processes without a broker (default FOLDWISE_LOCAL_WORKERS or 2).",
+        ),
+    ] = None,
+) -> None:
+    """Run the REST API; with no broker configured, jobs run on a local process pool."""
+    import uvicorn
+
+    from service.api.app import create_app
+
+    try:
+        if workers_local is not None and workers_local < 1:
+            raise BadInput("--workers-local", "must be at least 1.")
+        settings = load_settings()
+        app = create_app(settings, local_workers=workers_local)
+    except BadInput as exc:
+        refuse(exc)
+    upgrade_if_embedded(settings)
+    uvicorn.run(app, host=host, port=port, log_level="info")
+
+
+@token_app.command("create")
+def create(
+    team: Annotated[str, typer.Option(help="The team the token acts for.")],
+    scopes: Annotated[str, typer.Option(help="Comma-separated: submit, read, admin.")],
+    analyst: Annotated[
+        bool, typer.Option("--analyst", help="May read every team's datasets and jobs.")
+    ] = False,
+) -> None:
+    """Print a new token alone on stdout; only its hash is stored, so keep it now."""
+    from service.auth import create_token, parse_scopes
+    from service.store.db import make_engine, make_session_factory
+
+    try:
+        settings = load_settings()
+        scope_list = parse_scopes(scopes)
+        upgrade_if_embedded(settings)
+        engine = make_engine(settings.database_url)
+        try:
+            with make_session_factory(engine).begin() as session:
+                token = create_token(session, team=team, scopes=scope_list, analyst=analyst)
+        finally:
+            engine.dispose()
+    except BadInput as exc:
+        refuse(exc)
+    except SQLAlchemyError as exc:
+        fail(
+            f"the store could not keep the token ({type(exc).__name__}); run `foldwise db upgrade`."
+        )
+    sys.stdout.write(token + "\n")
+    stderr.print(f"token for team {team.strip()!r} ({', '.join(scope_list)})", markup=False)
