@@ -76,7 +76,7 @@ class Stack:
             popen = subprocess.Popen(
                 [sys.executable, "-m", "service.cli.main", *arguments],
                 cwd=REPO,
-                env={**os.environ, **self.env},
+                env=self.process_env(),
                 stdout=out,
                 stderr=subprocess.STDOUT,
                 start_new_session=True,
@@ -84,6 +84,10 @@ class Stack:
         process = Process(name, popen, log)
         self.processes.append(process)
         return process
+
+    def process_env(self) -> dict[str, str]:
+        """This process's environment with the deployment's variables on top."""
+        return {**os.environ, **self.env}
 
     def start_worker(self, name: str) -> Process:
         """A worker with one pool process, named NAME@host."""
