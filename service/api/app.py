@@ -15,6 +15,7 @@ import service
 from service.api.datasets.router import router as datasets_router
 from service.api.health.router import router as health_router
 from service.api.jobs.router import router as jobs_router
+from service.api.limits import BodyCap
 from service.api.problems import PROBLEM_MEDIA_TYPE, install_problem_handlers
 from service.config import Settings
 from service.dispatch.base import Dispatcher
@@ -24,6 +25,7 @@ from service.store.db import make_engine, make_session_factory
 
 log = logging.getLogger(__name__)
 JOBS_PATH = "/v1/jobs"
+UPLOAD_PATH = "/v1/datasets/upload"
 
 
 def local_workers_from_env(env: dict[str, str] | None = None) -> int:
@@ -107,5 +109,6 @@ def create_app(settings: Settings, *, local_workers: int | None = None) -> FastA
     app.include_router(health_router)
     app.include_router(datasets_router)
     app.include_router(jobs_router)
+    app.add_middleware(BodyCap, exempt=(UPLOAD_PATH,))
     app.openapi = lambda: _document(app)  # type: ignore[method-assign]
     return app

@@ -74,17 +74,18 @@ def problem_type(status: int) -> tuple[str, str]:
 
 
 def problem_response(
-    request: Request,
+    request: Request | str,
     status: int,
     detail: str,
     *,
     field: str | None = None,
     headers: Mapping[str, str] | None = None,
 ) -> JSONResponse:
-    """A problem document as a response."""
+    """A problem document as a response; `request` may be given as its path alone."""
     kind, title = problem_type(status)
+    instance = request if isinstance(request, str) else request.url.path
     body = Problem(
-        type=kind, title=title, status=status, detail=detail, instance=request.url.path, field=field
+        type=kind, title=title, status=status, detail=detail, instance=instance, field=field
     )
     return JSONResponse(
         body.model_dump(exclude_none=True),

@@ -28,7 +28,6 @@ from service.store.models import Dataset
 
 router = APIRouter(prefix="/v1/datasets", tags=["datasets"])
 
-JSON_BODY_LIMIT = 1 << 20
 ContentHash = Annotated[
     str, Path(pattern=r"^[0-9a-f]{64}$", description="sha256 hex of the canonical table.")
 ]
@@ -71,7 +70,6 @@ def _answer(
         200: {"model": DatasetPublic, "description": "The team had registered this table."},
         **problem_responses(400, 401, 403, 413, 422),
     },
-    max_body_size=JSON_BODY_LIMIT,
 )
 def register_dataset(
     source: Annotated[DatasetCreate, Body()],

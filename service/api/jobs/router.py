@@ -39,7 +39,6 @@ from service.store.models import Job
 log = logging.getLogger(__name__)
 router = APIRouter(prefix="/v1/jobs", tags=["jobs"])
 
-JSON_BODY_LIMIT = 1 << 20
 JobId = Annotated[str, Path(max_length=64, description="The job's id.")]
 IdempotencyKey = Annotated[
     str | None,
@@ -103,7 +102,6 @@ def _public(job: Job) -> JobPublic:
         200: {"model": JobPublic, "description": "The job an earlier call with this key made."},
         **problem_responses(400, 401, 403, 404, 409, 413, 422),
     },
-    max_body_size=JSON_BODY_LIMIT,
 )
 def submit_job(
     body: Annotated[dict[str, Any], Body(description="Job request v1.")],

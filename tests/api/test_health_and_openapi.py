@@ -1,0 +1,125 @@
+"""Probes, Prometheus metrics, the OpenAPI document, and problems for unknown routes."""
+
+from __future__ import annotations
+
+import re
+from typing import Any
+
+import pytest
+
+from .server import Server
+
+# every route of API v1 and the probes, as (method, path)
+ROUTES = {
+    ("get", "/healthz"),
+    ("get", "/readyz"),
+    ("get", "/metrics"),
+    ("post", "/v1/datasets"),
+    ("get", "/v1/datasets"),
+    ("post", "/v1/datasets/upload"),
+    ("get", "/v1/datasets/{content_hash}"),
+    ("post", "/v1/jobs"),
+    ("get", "/v1/jobs"),
+    ("get", "/v1/jobs/{job_id}"),
+    ("post", "/v1/jobs/{job_id}/cancel"),
+    ("get", "/v1/jobs/{job_id}/fold-scores"),
+    ("get", "/v1/jobs/{job_id}/fold-scores.csv"),
+}
+
+
+def test_healthz_and_readyz(server: Server) -> None:
+    with server.client() as client:
+        alive = client.get("/healthz")
+        ready = client.get("/readyz")
+    assert alive.status_code == 200 and alive.json()["status"] == "ok"
+    assert ready.status_code == 200 and ready.json()["checks"] == {"database": "ok"}
+
+
+def test_metrics_in_prometheus_text_format(server: Server, finished_job: dict[str, Any]) -> None:
+    with server.client() as client:
+        answer = client.get("/metrics")
+    assert answer.status_code == 200
+    assert answer.headers["content-type"].startswith("text/plain; version=0.0.4")
+    text = answer.text
+    for name, kind in [
+        ("foldwise_jobs", "gauge"),
+        ("foldwise_units_done_total", "counter"),
+        ("foldwise_unit_seconds", "histogram"),
+        ("foldwise_queue_depth", "gauge"),
+    ]:
+        assert f"# TYPE {name} {kind}\n" in text
+    samples = dict(re.findall(r"^(\S+) (\S+)$", text, flags=re.MULTILINE))
+    assert int(samples['foldwise_jobs{status="succeeded"}']) >= 1
+    done = int(samples["foldwise_units_done_total"])
+    assert done >= finished_job["job"]["progress"]["units_done"]
+    assert int(samples['foldwise_unit_seconds_bucket{le="+Inf"}']) == done
+    assert int(samples["foldwise_unit_seconds_count"]) == done
+    buckets = [int(v) for k, v in samples.items() if k.startswith("foldwise_unit_seconds_bucket")]
+    assert buckets == sorted(buckets)  # cumulative
+    assert int(samples["foldwise_queue_depth"]) >= 0
+
+
+@pytest.fixture(scope="module")
+def document(server: Server) -> dict[str, Any]:
+    with server.client() as client:
+        answer = client.get("/openapi.json")
+    assert answer.status_code == 200
+    doc: dict[str, Any] = answer.json()
+    return doc
+
+
+def test_openapi_lists_every_route(document: dict[str, Any]) -> None:
+    listed = {(m, p) for p, ops in document["paths"].items() for m in ops}
+    assert listed == ROUTES
+
+
+@pytest.mark.parametrize(("method", "path"), sorted(ROUTES))
+def test_each_route_documents_its_answer_and_its_problems(
+    document: dict[str, Any], method: str, path: str
+) -> None:
+    operation = document["paths"][path][method]
+    assert operation["summary"] and operation["tags"]
+    answers = operation["responses"]
+    success = [s for s in answers if s.startswith("2")]
+    assert success
+    for status in success:
+        content = answers[status]["content"]
+        if "application/json" in content:
+            assert "$ref" in content["application/json"]["schema"]
+        else:
+            assert set(content) & {"text/plain", "text/csv"}
+    problems = [s for s in answers if s[0] in "45"]
+    if path.startswith("/v1/"):
+        assert {"401", "403", "422"} <= set(problems)
+        assert operation["security"] == [{"HTTPBearer": []}]
+    for status in problems:
+        schema = answers[status]["content"]["application/problem+json"]["schema"]
+        assert schema["$ref"] == "#/components/schemas/Problem"
+
+
+def test_openapi_describes_job_request_v1_and_the_upload(document: dict[str, Any]) -> None:
+    schemas = document["components"]["schemas"]
+    body = document["paths"]["/v1/jobs"]["post"]["requestBody"]["content"]["application/json"]
+    assert body["schema"] == {"$ref": "#/components/schemas/JobRequest"}
+    request = schemas["JobRequest"]
+    assert {"dataset", "target", "families", "outer", "inner", "metrics"} <= set(
+        request["properties"]
+    )
+    # every reference resolves inside the document, so a client generator can follow it
+    refs = re.findall(r'"\$ref": "#/components/schemas/([^"]+)"', str(document).replace("'", '"'))
+    assert refs and set(refs) <= set(schemas)
+    upload = document["paths"]["/v1/datasets/upload"]["post"]["requestBody"]["content"]
+    assert upload["multipart/form-data"]["schema"]["properties"]["file"]["format"] == "binary"
+    assert "Idempotency-Key" in [
+        p["name"] for p in document["paths"]["/v1/jobs"]["post"]["parameters"]
+    ]
+
+
+def test_unknown_routes_and_methods_are_problems(server: Server) -> None:
+    with server.client() as client:
+        missing = client.get("/v1/nothing-here")
+        wrong_method = client.delete("/healthz")
+    assert missing.status_code == 404 and wrong_method.status_code == 405
+    for answer in (missing, wrong_method):
+        assert answer.headers["content-type"] == "application/problem+json"
+        assert answer.json()["status"] == answer.status_code
