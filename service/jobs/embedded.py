@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import multiprocessing
 from collections.abc import Callable
-from concurrent.futures import FIRST_COMPLETED, Future, ProcessPoolExecutor, wait
+from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -18,11 +18,11 @@ from sqlalchemy.orm import Session, sessionmaker
 from threadpoolctl import threadpool_limits
 
 from service.config import Settings
-from service.jobs.advance import advance_job
-from service.jobs.execute import UnitReport, execute_unit, worker_name
+from service.jobs.execute import UnitReport, worker_name
 from service.jobs.plans import LoadedPlan, remember
 from service.jobs.prepare import prepare_job
 from service.jobs.submit import create_job
+from service.jobs.work import run_and_advance
 from service.store.db import dispose_after_fork, make_engine, make_session_factory
 from service.store.db import upgrade_database as upgrade_database
 from service.store.models import Job, WorkUnit
@@ -54,8 +54,8 @@ def _child_start(engine: Engine, settings: Settings) -> None:
     _child["settings"] = settings
 
 
-def _child_execute(unit_id: int) -> UnitReport:
-    return execute_unit(
+def _child_execute(unit_id: int) -> tuple[UnitReport, list[int]]:
+    return run_and_advance(
         _child["sessions"], unit_id, settings=_child["settings"], worker=worker_name()
     )
 
@@ -74,38 +74,38 @@ def _drive(
     sessions: sessionmaker[Session],
     job_id: str,
     settings: Settings,
-    run: Callable[[list[int]], list[Future[UnitReport]] | list[UnitReport]] | None,
     pool: ProcessPoolExecutor | None,
     total: int,
     progress: Progress | None,
 ) -> None:
+    """Run the job's queued units (here, or on `pool`) and the units each fan-in adds."""
     with sessions() as session:
         pending = _queued_units(session, job_id)
     done = 0
-    me = worker_name()
     if pool is None:
+        me = worker_name()
         while pending:
-            report = execute_unit(sessions, pending.pop(0), settings=settings, worker=me)
+            report, added = run_and_advance(sessions, pending.pop(0), settings=settings, worker=me)
             if report.status != "done":
                 return
             done += 1
             if progress:
                 progress(done, total)
-            pending += advance_job(sessions, job_id, settings)
+            pending += added
         return
     running = {pool.submit(_child_execute, uid) for uid in pending}
     while running:
         finished, running = wait(running, return_when=FIRST_COMPLETED)
         for future in finished:
-            if future.result().status != "done":
+            report, added = future.result()
+            if report.status != "done":
                 for other in running:
                     other.cancel()
                 return
             done += 1
             if progress:
                 progress(done, total)
-        for uid in advance_job(sessions, job_id, settings):
-            running.add(pool.submit(_child_execute, uid))
+            running |= {pool.submit(_child_execute, uid) for uid in added}
 
 
 def run_embedded(
@@ -141,9 +141,9 @@ def run_embedded(
                     initializer=_child_start,
                     initargs=(engine, settings),
                 ) as pool:
-                    _drive(sessions, job_id, settings, None, pool, total, progress)
+                    _drive(sessions, job_id, settings, pool, total, progress)
             else:
-                _drive(sessions, job_id, settings, None, None, total, progress)
+                _drive(sessions, job_id, settings, None, total, progress)
         except BaseException:
             cancel_job(sessions, job_id)
             raise

@@ -17,7 +17,7 @@ from datetime import timedelta
 from pathlib import Path
 from typing import Any
 
-from sqlalchemy import CursorResult, or_, update
+from sqlalchemy import CursorResult, func, or_, select, update
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
@@ -42,6 +42,8 @@ class UnitReport:
     job_id: str | None
     status: str
     fits: int = 0
+    # True when this unit was the last open one of its job: the caller should fan in
+    stage_complete: bool = False
 
 
 def worker_name() -> str:
@@ -61,6 +63,12 @@ def claim_unit(session: Session, unit_id: int, worker: str, lease: timedelta) ->
                 (WorkUnit.status == "running") & (WorkUnit.lease_until < now),
             ),
             WorkUnit.attempts < MAX_ATTEMPTS,
+            # a cancelled or failed job's message is dropped here, before any fit
+            WorkUnit.job_id.in_(
+                select(Job.id).where(
+                    Job.cancel_requested.is_(False), Job.status.in_(("queued", "running"))
+                )
+            ),
         )
         .values(
             status="running",
@@ -78,7 +86,7 @@ class _CancelCheck:
 
     def __init__(self, sessions: sessionmaker[Session], job_id: str, every: float = 1.0) -> None:
         self.sessions, self.job_id, self.every = sessions, job_id, every
-        self.checked_at = float("-inf")
+        self.checked_at = time.monotonic()  # the claim has just checked
 
     def __call__(self) -> bool:
         now = time.monotonic()
@@ -220,4 +228,7 @@ def execute_unit(
         unit.status, unit.finished_at = "done", utcnow()
         unit.fits, unit.seconds = outcome.fits, outcome.seconds
         session.execute(update(Job).where(Job.id == job_id).values(units_done=Job.units_done + 1))
-    return UnitReport(unit_id, job_id, "done", outcome.fits)
+        still_open = session.scalar(
+            select(func.count()).where(WorkUnit.job_id == job_id, WorkUnit.status != "done")
+        )
+    return UnitReport(unit_id, job_id, "done", outcome.fits, stage_complete=not still_open)

@@ -14,6 +14,6 @@ def run_and_advance(
 ) -> tuple[UnitReport, list[int]]:
     """Run unit `unit_id`; if it finished its job's stage, return the next units to publish."""
     report = execute_unit(sessions, unit_id, settings=settings, worker=worker)
-    if report.job_id is None or report.status != "done":
+    if report.job_id is None or not report.stage_complete:
         return report, []
     return report, advance_job(sessions, report.job_id, settings)
