@@ -25,6 +25,7 @@ test: lint
 
 bench: $(STAMP)
 	$(BIN)/python tests/benchmarks/bench_select.py
+	$(BIN)/python tests/benchmarks/bench_service.py
 
 clean:
 	rm -rf $(VENV) .foldwise .pytest_cache .mypy_cache .ruff_cache

@@ -49,6 +49,16 @@ class LocalPool:
         self._engine = make_engine(settings.database_url)
         self._sessions = make_session_factory(self._engine)
         context = multiprocessing.get_context("forkserver")
+        # the fork server imports the heavy libraries once; every pool process forks from it
+        # warm instead of paying seconds of imports on the first unit it runs
+        context.set_forkserver_preload(
+            [
+                "service.jobs.work",
+                "sklearn.ensemble",
+                "sklearn.linear_model",
+                "sklearn.model_selection",
+            ]
+        )
         self._pool = ProcessPoolExecutor(
             workers, mp_context=context, initializer=_child_start, initargs=(settings,)
         )
@@ -58,6 +68,8 @@ class LocalPool:
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._loop, name="foldwise-local-pool", daemon=True)
         self._thread.start()
+        for _ in range(workers):  # start the processes now rather than on the first unit
+            self._pool.submit(int)
 
     def publish(self, unit_ids: list[int]) -> None:
         """Wake the poller: the units are already queued in the store."""
