@@ -22,6 +22,7 @@ from sqlalchemy import (
     String,
     UniqueConstraint,
     false,
+    true,
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
@@ -121,6 +122,12 @@ class Job(Base):
     team: Mapped[str] = mapped_column(
         String(100), default="local", server_default="local", index=True
     )
+    # "selection" (nested CV) or "learning_curve" (a parent whose children select at sizes)
+    kind: Mapped[str] = mapped_column(String(32), default="selection", server_default="selection")
+    # plain indexed ids, not foreign keys: SQLite adds such columns without copying the table
+    parent_id: Mapped[str | None] = mapped_column(String(32), index=True)
+    schedule_id: Mapped[str | None] = mapped_column(String(32), index=True)
+    webhook_url: Mapped[str | None] = mapped_column(String(2000))
     created_at: Mapped[CreatedAt]
     started_at: Mapped[datetime | None]
     finished_at: Mapped[datetime | None]
@@ -224,6 +231,10 @@ class WorkUnit(Base):
     seconds: Mapped[float | None]
     # when the unit was last handed to a broker; the reconciler re-publishes stale ones
     published_at: Mapped[datetime | None]
+    # a unit whose every score was already stored is not fitted again: it is marked done with
+    # reused=True and the job that computed the scores (the scores themselves say so too)
+    reused: Mapped[bool] = mapped_column(Boolean, default=False, server_default=false())
+    source_job_id: Mapped[str | None] = mapped_column(String(32))
     created_at: Mapped[CreatedAt]
     started_at: Mapped[datetime | None]
     finished_at: Mapped[datetime | None]
@@ -310,3 +321,117 @@ class ApiToken(Base):
     analyst: Mapped[bool] = mapped_column(Boolean, default=False, server_default=false())
     created_at: Mapped[CreatedAt]
     revoked_at: Mapped[datetime | None]
+
+
+REFRESH_STATUSES = (
+    "pending",
+    "running",
+    "unchanged",
+    "reselected",
+    "pick_changed",
+    "degraded",
+    "failed",
+)
+AUDIT_STATUSES = ("queued", "running", "done", "failed")
+DELIVERY_STATUSES = ("pending", "delivered", "failed")
+
+
+class FoldPrediction(Base):
+    """One candidate's predictions on one fold's test rows, so a new metric needs no refit."""
+
+    __tablename__ = "fold_prediction"
+
+    dataset_hash: Mapped[Hash64] = mapped_column(primary_key=True)
+    fold_fingerprint: Mapped[Hash64] = mapped_column(
+        ForeignKey("fold.fingerprint"), primary_key=True
+    )
+    candidate_key: Mapped[Hash64] = mapped_column(
+        ForeignKey("candidate.candidate_key"), primary_key=True
+    )
+    kind: Mapped[str] = mapped_column(String(16))  # "label", "proba", "decision" or "value"
+    classes: Mapped[JsonList | None]
+    data: Mapped[bytes]  # compressed numpy arrays, float64 so metrics recompute exactly
+    job_id: Mapped[str] = mapped_column(ForeignKey("job.id"), index=True)
+    created_at: Mapped[CreatedAt]
+
+
+class Audit(Base):
+    """A recomputation of (a sample of) a job's units, compared with what the store holds."""
+
+    __tablename__ = "audit"
+    __table_args__ = (CheckConstraint(_one_of("status", AUDIT_STATUSES), name="status"),)
+
+    id: Mapped[str] = mapped_column(String(32), primary_key=True)
+    job_id: Mapped[str] = mapped_column(ForeignKey("job.id"), index=True)
+    team: Mapped[str] = mapped_column(String(100))
+    status: Mapped[Short]
+    fraction: Mapped[float]
+    seed: Mapped[int]
+    tolerance: Mapped[float]
+    report: Mapped[JsonDoc | None]
+    created_at: Mapped[CreatedAt]
+    finished_at: Mapped[datetime | None]
+
+
+class Schedule(Base):
+    """A changeable dataset source, a job template and a cron expression."""
+
+    __tablename__ = "schedule"
+
+    id: Mapped[str] = mapped_column(String(32), primary_key=True)
+    team: Mapped[str] = mapped_column(String(100), index=True)
+    source: Mapped[JsonDoc]
+    template: Mapped[JsonDoc]  # job request v1 without its dataset
+    cron: Mapped[str] = mapped_column(String(100))
+    timezone: Mapped[str] = mapped_column(String(64), default="UTC", server_default="UTC")
+    # the refresh is "degraded" when the pick_by estimate falls below this
+    threshold: Mapped[float | None]
+    webhook_url: Mapped[str | None] = mapped_column(String(2000))
+    active: Mapped[bool] = mapped_column(Boolean, default=True, server_default=true())
+    next_due_at: Mapped[datetime | None] = mapped_column(index=True)
+    created_at: Mapped[CreatedAt]
+
+
+class Refresh(Base):
+    """One firing of a schedule; (schedule, due time) is unique, so a double tick makes one."""
+
+    __tablename__ = "refresh"
+    __table_args__ = (
+        CheckConstraint(_one_of("status", REFRESH_STATUSES), name="status"),
+        UniqueConstraint("schedule_id", "due_at"),
+    )
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    schedule_id: Mapped[str] = mapped_column(ForeignKey("schedule.id"), index=True)
+    due_at: Mapped[datetime]
+    trigger: Mapped[str] = mapped_column(String(16))  # "tick" or "manual"
+    status: Mapped[Short]
+    dataset_hash: Mapped[Hash64 | None]
+    job_id: Mapped[str | None] = mapped_column(ForeignKey("job.id"))
+    previous_job_id: Mapped[str | None] = mapped_column(ForeignKey("job.id"))
+    comparison: Mapped[JsonDoc | None]
+    error: Mapped[LongText | None]
+    created_at: Mapped[CreatedAt]
+    finished_at: Mapped[datetime | None]
+
+
+class WebhookDelivery(Base):
+    """One notification and its delivery attempts (signed, retried with backoff)."""
+
+    __tablename__ = "webhook_delivery"
+    __table_args__ = (CheckConstraint(_one_of("status", DELIVERY_STATUSES), name="status"),)
+
+    id: Mapped[int] = mapped_column(primary_key=True)
+    team: Mapped[str] = mapped_column(String(100))
+    url: Mapped[str] = mapped_column(String(2000))
+    event: Mapped[str] = mapped_column(String(64))
+    job_id: Mapped[str | None] = mapped_column(ForeignKey("job.id"))
+    refresh_id: Mapped[int | None] = mapped_column(ForeignKey("refresh.id"))
+    body: Mapped[JsonDoc]
+    status: Mapped[Short]
+    attempts: Mapped[int] = mapped_column(default=0, server_default="0")
+    last_status: Mapped[int | None]
+    last_error: Mapped[LongText | None]
+    next_attempt_at: Mapped[datetime | None] = mapped_column(index=True)
+    created_at: Mapped[CreatedAt]
+    delivered_at: Mapped[datetime | None]
