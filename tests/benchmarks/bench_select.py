@@ -284,6 +284,7 @@ def probe_store(job_path: Path) -> dict[str, Any]:
         importlib.import_module(name)
     import service.jobs.embedded as embedded
     import service.jobs.execute as execute
+    import service.jobs.work as work
     import service.store.db as db
     from service.config import load_settings
 
@@ -295,13 +296,13 @@ def probe_store(job_path: Path) -> dict[str, Any]:
     clock.wrap(embedded, "upgrade_database", "migrate new store")
     clock.wrap(embedded, "prepare_job", "prepare (read, hash, validate, plan)")
     clock.wrap(embedded, "create_job", "create_job")
-    clock.wrap(embedded, "execute_unit", "execute_unit")
-    clock.wrap(embedded, "advance_job", "advance_job")
+    clock.wrap(work, "execute_unit", "execute_unit")
+    clock.wrap(work, "advance_job", "advance_job")
     clock.wrap(execute, "fit_and_score", "fit_and_score")
     clock.wrap(execute, "_record", "_record")
     clock.wrap(execute, "_save_model", "_save_model")
-    # called before every fit from inside fit_and_score: a read transaction per fit
-    clock.wrap(execute, "_cancel_requested", "_cancel_requested")
+    # the cancellation check asks the store at most once a second from inside fit_and_score
+    clock.wrap(execute._CancelCheck, "__call__", "_cancel_requested")
     job = json.loads(job_path.read_text(encoding="utf-8"))
     run_started = time.perf_counter()
     outcome = embedded.run_embedded(
