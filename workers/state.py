@@ -25,7 +25,8 @@ def sessions() -> sessionmaker[Session]:
     """A session factory on this process's own engine."""
     global _engine, _sessions
     if _sessions is None:
-        _engine = make_engine(settings().database_url)
+        # a worker's commits need not wait for the disk: see make_engine on what a crash costs
+        _engine = make_engine(settings().database_url, durable_commits=False)
         _sessions = make_session_factory(_engine)
     return _sessions
 

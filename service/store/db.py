@@ -43,13 +43,28 @@ def _dump_json(value: Any) -> str:
     return json.dumps(value, allow_nan=False, separators=(",", ":"))
 
 
-def make_engine(url: str, *, busy_timeout_ms: int = 30_000) -> Engine:
-    """An engine for `url`, tuned for SQLite's single writer or a small PostgreSQL pool."""
+def make_engine(url: str, *, busy_timeout_ms: int = 30_000, durable_commits: bool = True) -> Engine:
+    """An engine for `url`, tuned for SQLite's single writer or a small PostgreSQL pool.
+
+    `durable_commits=False` (PostgreSQL only) lets a commit return before its WAL record is
+    flushed. A server crash may then lose the last few transactions whole, never half of one:
+    fit for workers, whose lost work shows as a unit still queued or under an expired lease that
+    the reconciler hands out again; never for the API, which promises a stored job.
+    """
     parsed = make_url(url)
     if parsed.get_backend_name() != "sqlite":
-        return create_engine(
+        engine = create_engine(
             url, json_serializer=_dump_json, pool_pre_ping=True, pool_size=2, max_overflow=3
         )
+        if not durable_commits:
+
+            @event.listens_for(engine, "connect")
+            def _relaxed(dbapi_connection: Any, _record: Any) -> None:
+                with dbapi_connection.cursor() as cursor:
+                    cursor.execute("SET synchronous_commit TO off")
+                dbapi_connection.commit()
+
+        return engine
     if (
         parsed.database
         and parsed.database != ":memory:"
