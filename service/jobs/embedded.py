@@ -13,7 +13,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from sqlalchemy import Engine, select, update
+from sqlalchemy import Engine, select
 from sqlalchemy.orm import Session, sessionmaker
 from threadpoolctl import threadpool_limits
 
@@ -21,10 +21,10 @@ from service.config import Settings
 from service.jobs.execute import UnitReport, worker_name
 from service.jobs.plans import LoadedPlan, remember
 from service.jobs.prepare import prepare_job
+from service.jobs.service import cancel_job
 from service.jobs.submit import create_job
 from service.jobs.work import run_and_advance
-from service.store.db import dispose_after_fork, make_engine, make_session_factory
-from service.store.db import upgrade_database as upgrade_database
+from service.store.db import dispose_after_fork, make_engine, make_session_factory, upgrade_database
 from service.store.models import Job, WorkUnit
 
 Progress = Callable[[int, int], None]
@@ -145,7 +145,8 @@ def run_embedded(
             else:
                 _drive(sessions, job_id, settings, None, total, progress)
         except BaseException:
-            cancel_job(sessions, job_id)
+            with sessions.begin() as session:
+                cancel_job(session, session.get_one(Job, job_id))
             raise
         with sessions() as session:
             job = session.get_one(Job, job_id)
@@ -155,18 +156,3 @@ def run_embedded(
             return EmbeddedOutcome(job_id, job.result)
     finally:
         engine.dispose()
-
-
-def cancel_job(sessions: sessionmaker[Session], job_id: str) -> None:
-    """Flag a job cancelled so units stop between fits; queued units will not start."""
-    with sessions.begin() as session:
-        session.execute(
-            update(Job)
-            .where(Job.id == job_id, Job.status.in_(("queued", "running")))
-            .values(cancel_requested=True, status="cancelled")
-        )
-        session.execute(
-            update(WorkUnit)
-            .where(WorkUnit.job_id == job_id, WorkUnit.status == "queued")
-            .values(status="cancelled")
-        )
