@@ -23,6 +23,7 @@ from service.jobs.prepare import prepare_job
 from service.jobs.submit import create_job
 from service.store.db import utcnow
 from service.store.models import (
+    Candidate,
     DatasetRegistration,
     FoldScore,
     Job,
@@ -124,6 +125,8 @@ def job_query(
     status: str | None = None,
     created_after: datetime | None = None,
     created_before: datetime | None = None,
+    estimator: str | None = None,
+    schedule_id: str | None = None,
 ) -> Select[Job]:
     """Jobs the principal may see, filtered, newest first."""
     query = select(Job)
@@ -137,6 +140,16 @@ def job_query(
         query = query.where(Job.created_at >= created_after)
     if created_before:
         query = query.where(Job.created_at < created_before)
+    if estimator:
+        # a family appears in a job when any of its candidates is of that estimator class
+        families = (
+            select(JobCandidate.job_id)
+            .join(Candidate, Candidate.candidate_key == JobCandidate.candidate_key)
+            .where(Candidate.estimator == estimator)
+        )
+        query = query.where(Job.id.in_(families))
+    if schedule_id:
+        query = query.where(Job.schedule_id == schedule_id)
     return query.order_by(Job.created_at.desc(), Job.id.desc())
 
 

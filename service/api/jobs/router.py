@@ -34,6 +34,7 @@ from service.api.problems import problem_responses
 from service.dispatch.base import mark_published
 from service.errors import BadInput
 from service.jobs import service
+from service.jobs.reuse import start_if_settled
 from service.store.models import Job
 
 log = logging.getLogger(__name__)
@@ -151,6 +152,9 @@ def submit_job(
         # queued units the reconciler re-publishes (RELIABILITY.md, outbox).
         unit_ids = service.queued_unit_ids(session, job.id)
         session.commit()
+        if not unit_ids:  # every unit came from the store: move the job on here
+            unit_ids = start_if_settled(sessions, job.id, settings)
+            session.refresh(job)
         try:
             dispatcher.publish(unit_ids)
             mark_published(sessions, unit_ids)
@@ -182,7 +186,7 @@ def _aware(moment: datetime | None) -> datetime | None:
 @router.get(
     "",
     response_model=JobList,
-    summary="List jobs, newest first, by dataset hash, status and creation time",
+    summary="List jobs, newest first, by dataset hash, status, creation time, family, schedule",
     responses=problem_responses(401, 403, 422),
 )
 def list_jobs(
@@ -192,6 +196,10 @@ def list_jobs(
     status: Annotated[JobStatus | None, Query()] = None,
     created_after: Annotated[datetime | None, Query(description="Inclusive.")] = None,
     created_before: Annotated[datetime | None, Query(description="Exclusive.")] = None,
+    estimator: Annotated[
+        str | None, Query(max_length=100, description="A family among the job's candidates.")
+    ] = None,
+    schedule_id: Annotated[str | None, Query(max_length=32)] = None,
     limit: Annotated[int, Query(ge=1, le=200)] = 50,
     offset: Annotated[int, Query(ge=0)] = 0,
 ) -> JobList:
@@ -205,6 +213,8 @@ def list_jobs(
         status=status,
         created_after=_aware(created_after),
         created_before=_aware(created_before),
+        estimator=estimator,
+        schedule_id=schedule_id,
     )
     return JobList(data=[_summary(j) for j in jobs], count=count)
 

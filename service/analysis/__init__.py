@@ -1,0 +1,1 @@
+"""What analysts ask of the store: queries across jobs, comparisons, exports, history."""

@@ -1,0 +1,201 @@
+"""Statistics for comparing two selections: pure functions over per-fold outer scores.
+
+Two jobs on the same outer folds are compared fold by fold with the corrected resampled t-test of
+Nadeau & Bengio (2003, Machine Learning 52:239-281): the folds' training sets overlap, so the
+per-fold differences are correlated and the plain paired t-test is far too confident. The
+correction inflates the variance by n_test/n_train. Even so there is no unbiased estimator of the
+variance of cross-validation (Bengio & Grandvalet 2004, JMLR 5:1089-1105), so the p-value is
+approximate. Jobs on different folds can only be compared as two independent samples (Welch),
+which ignores that both were computed on the same rows: a weaker comparison, and we say so.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field
+
+from scipy import stats
+
+CORRECTED_T = "corrected_resampled_t"
+WELCH_T = "welch_t"
+
+VARIANCE_CAVEAT = (
+    "Cross-validation has no unbiased estimator of its own variance (Bengio & Grandvalet 2004), "
+    "so this p-value is approximate."
+)
+SAME_FOLDS_STATEMENT = (
+    "Both jobs were scored on the same outer folds, so they are compared fold by fold with the "
+    "corrected resampled t-test (Nadeau & Bengio 2003), which allows for the overlap between "
+    "the folds' training sets."
+)
+DIFFERENT_FOLDS_STATEMENT = (
+    "The two jobs were scored on different outer folds, so the comparison is weaker: a Welch "
+    "t-test on the two sets of outer values, which treats them as independent samples although "
+    "both come from the same rows."
+)
+SIGN_NOTE = (
+    "Differences are the first job minus the second; every metric is higher-is-better "
+    "(errors are negated), so a positive difference favours the first job."
+)
+
+
+@dataclass(frozen=True)
+class PairedTest:
+    """The corrected resampled t-test on J per-fold differences."""
+
+    n_folds: int
+    mean_difference: float
+    variance: float  # ddof=1 over the J differences
+    test_train_ratio: float
+    t: float
+    df: int
+    p_value: float  # two-sided
+    test: str = CORRECTED_T
+
+
+@dataclass(frozen=True)
+class UnpairedTest:
+    """Welch's t-test on two independent sets of outer values."""
+
+    n_left: int
+    n_right: int
+    mean_difference: float
+    t: float
+    df: float
+    p_value: float  # two-sided
+    test: str = WELCH_T
+
+
+def corrected_t_test(differences: Sequence[float], *, n_train: float, n_test: float) -> PairedTest:
+    """Nadeau & Bengio's corrected resampled t-test; t = 0 and p = 1 when every difference is 0."""
+    j = len(differences)
+    if j < 2:
+        raise ValueError("the corrected t-test needs at least two per-fold differences")
+    if n_train <= 0 or n_test <= 0:
+        raise ValueError("n_train and n_test must be positive")
+    mean = math.fsum(differences) / j
+    variance = math.fsum((d - mean) ** 2 for d in differences) / (j - 1)
+    ratio = n_test / n_train
+    df = j - 1
+    if variance == 0.0:
+        # Identical differences leave no spread to scale by. All zero is no evidence of a
+        # difference (a job compared with itself); a constant non-zero shift is the strongest.
+        t = 0.0 if mean == 0.0 else math.copysign(math.inf, mean)
+        p = 1.0 if mean == 0.0 else 0.0
+    else:
+        t = mean / math.sqrt((1.0 / j + ratio) * variance)
+        p = float(2.0 * stats.t.sf(abs(t), df))
+    return PairedTest(j, mean, variance, ratio, t, df, min(1.0, p))
+
+
+def welch_t_test(left: Sequence[float], right: Sequence[float]) -> UnpairedTest:
+    """Welch's unequal-variance t-test (two-sided) of mean(left) against mean(right)."""
+    if len(left) < 2 or len(right) < 2:
+        raise ValueError("Welch's t-test needs at least two values on each side")
+    mean_difference = math.fsum(left) / len(left) - math.fsum(right) / len(right)
+    if len(set(left)) == 1 and len(set(right)) == 1:
+        # scipy answers NaN when neither side varies; the answer is known without it
+        t = 0.0 if mean_difference == 0.0 else math.copysign(math.inf, mean_difference)
+        p = 1.0 if mean_difference == 0.0 else 0.0
+        return UnpairedTest(len(left), len(right), mean_difference, t, math.nan, p)
+    answer = stats.ttest_ind(left, right, equal_var=False)
+    df = float(getattr(answer, "df", math.nan))
+    return UnpairedTest(
+        len(left), len(right), mean_difference, float(answer.statistic), df, float(answer.pvalue)
+    )
+
+
+@dataclass(frozen=True)
+class OuterScores:
+    """One job's outer folds as a comparison needs them (result v1 plus the folds' fingerprints)."""
+
+    job_id: str
+    dataset_hash: str
+    fingerprints: list[str]  # in (repeat, fold) order
+    n_train: list[int]
+    n_test: list[int]
+    scores: dict[str, list[float]]  # metric -> per-fold values in the same order
+
+
+@dataclass(frozen=True)
+class MetricComparison:
+    """One shared metric: both jobs' per-fold values, their differences and the test."""
+
+    metric: str
+    left: list[float]
+    right: list[float]
+    left_mean: float
+    right_mean: float
+    differences: list[float] | None  # per fold, only when the folds are the same
+    test: PairedTest | UnpairedTest
+
+
+@dataclass(frozen=True)
+class Comparison:
+    """Two jobs compared on every metric they share."""
+
+    left_job: str
+    right_job: str
+    dataset_hash: str
+    same_folds: bool
+    fingerprints: list[str] | None
+    metrics: list[MetricComparison]
+    statement: str
+    caveats: list[str] = field(default_factory=list)
+
+
+def _mean(values: Sequence[float]) -> float:
+    return math.fsum(values) / len(values)
+
+
+def compare_outer_scores(left: OuterScores, right: OuterScores) -> Comparison:
+    """Compare two jobs' outer scores: paired and corrected on the same folds, Welch otherwise."""
+    if left.dataset_hash != right.dataset_hash:
+        raise ValueError("the two jobs ran on different datasets")
+    same = left.fingerprints == right.fingerprints
+    shared = [m for m in left.scores if m in right.scores]
+    results: list[MetricComparison] = []
+    for metric in shared:
+        a, b = left.scores[metric], right.scores[metric]
+        differences: list[float] | None = None
+        test: PairedTest | UnpairedTest
+        if same:
+            differences = [x - y for x, y in zip(a, b, strict=True)]
+            # The folds' sizes differ by at most a row; the mean sizes give the ratio.
+            test = corrected_t_test(
+                differences, n_train=_mean(left.n_train), n_test=_mean(left.n_test)
+            )
+        else:
+            test = welch_t_test(a, b)
+        results.append(MetricComparison(metric, a, b, _mean(a), _mean(b), differences, test))
+    return Comparison(
+        left_job=left.job_id,
+        right_job=right.job_id,
+        dataset_hash=left.dataset_hash,
+        same_folds=same,
+        fingerprints=list(left.fingerprints) if same else None,
+        metrics=results,
+        statement=SAME_FOLDS_STATEMENT if same else DIFFERENT_FOLDS_STATEMENT,
+        caveats=[VARIANCE_CAVEAT, SIGN_NOTE],
+    )
+
+
+def outer_scores_from_result(
+    job_id: str, result: Mapping[str, object], fingerprints: Sequence[str]
+) -> OuterScores:
+    """OuterScores from result v1 and the outer fold fingerprints in (repeat, fold) order."""
+    outer = result["outer"]
+    assert isinstance(outer, list)
+    if len(outer) != len(fingerprints):
+        raise ValueError("the result's outer folds and the stored outer folds disagree")
+    metrics = result["metrics"]
+    assert isinstance(metrics, list)
+    return OuterScores(
+        job_id=job_id,
+        dataset_hash=str(result["dataset_hash"]),
+        fingerprints=list(fingerprints),
+        n_train=[int(row["n_train"]) for row in outer],
+        n_test=[int(row["n_test"]) for row in outer],
+        scores={str(m): [float(row["scores"][m]) for row in outer] for m in metrics},
+    )

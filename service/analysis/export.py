@@ -1,0 +1,157 @@
+"""Fold scores as streamed CSV or Parquet, read from the store one keyset page at a time.
+
+Nothing loads a whole table: each page is read in its own short session (on SQLite a transaction
+holds the write lock, and a client may read slowly), turned into CSV lines or one Parquet row
+group, and handed on before the next page is read.
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import json
+from collections.abc import Callable, Iterator
+from datetime import datetime
+from typing import Any
+
+import pyarrow as pa
+import pyarrow.parquet as pq
+from sqlalchemy.orm import Session, sessionmaker
+
+from service.store.models import FoldScore
+
+PAGE = 1000
+
+# The columns of the JSON fold-score listing, in its order (FoldScorePublic in the API schemas).
+COLUMNS = (
+    "id",
+    "fold_fingerprint",
+    "candidate_key",
+    "metric",
+    "value",
+    "fit_seconds",
+    "score_seconds",
+    "n_train",
+    "n_test",
+    "seed",
+    "versions",
+    "worker",
+    "job_id",
+    "created_at",
+)
+PARQUET_SCHEMA = pa.schema(
+    [
+        ("id", pa.int64()),
+        ("fold_fingerprint", pa.string()),
+        ("candidate_key", pa.string()),
+        ("metric", pa.string()),
+        ("value", pa.float64()),
+        ("fit_seconds", pa.float64()),
+        ("score_seconds", pa.float64()),
+        ("n_train", pa.int64()),
+        ("n_test", pa.int64()),
+        ("seed", pa.int64()),
+        ("versions", pa.string()),  # a JSON object, as in the CSV
+        ("worker", pa.string()),
+        ("job_id", pa.string()),
+        ("created_at", pa.timestamp("us", tz="UTC")),
+    ]
+)
+
+# fetch(session, after_id, limit) -> the next page of scores in id order
+PageFetcher = Callable[[Session, int, int], list[FoldScore]]
+
+
+def score_row(score: FoldScore) -> dict[str, Any]:
+    """One score as a flat row: versions as sorted JSON text, created_at as an aware datetime."""
+    return {
+        "id": score.id,
+        "fold_fingerprint": score.fold_fingerprint,
+        "candidate_key": score.candidate_key,
+        "metric": score.metric,
+        "value": score.value,
+        "fit_seconds": score.fit_seconds,
+        "score_seconds": score.score_seconds,
+        "n_train": score.n_train,
+        "n_test": score.n_test,
+        "seed": score.seed,
+        "versions": json.dumps(score.versions, sort_keys=True),
+        "worker": score.worker,
+        "job_id": score.job_id,
+        "created_at": score.created_at,
+    }
+
+
+def score_pages(sessions: sessionmaker[Session], fetch: PageFetcher) -> Iterator[list[dict]]:
+    """Pages of flat rows, each read in its own session, until a short page ends the keyset."""
+    after = 0
+    while True:
+        with sessions() as session:
+            page = fetch(session, after, PAGE)
+            rows = [score_row(s) for s in page]
+        if rows:
+            yield rows
+        if len(page) < PAGE:
+            return
+        after = page[-1].id
+
+
+def _csv_cell(value: Any) -> Any:
+    # ISO 8601 like the JSON listing, so a reader parses both the same way
+    return value.isoformat() if isinstance(value, datetime) else value
+
+
+def csv_chunks(sessions: sessionmaker[Session], fetch: PageFetcher) -> Iterator[str]:
+    """The header, then one chunk of CSV lines per page."""
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, lineterminator="\n")
+    writer.writerow(COLUMNS)
+    yield buffer.getvalue()
+    for rows in score_pages(sessions, fetch):
+        buffer.seek(0)
+        buffer.truncate()
+        for row in rows:
+            writer.writerow([_csv_cell(row[c]) for c in COLUMNS])
+        yield buffer.getvalue()
+
+
+class _Drain(io.RawIOBase):
+    """A write-only sink that hands over what was written since the last take()."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self._chunks: list[bytes] = []
+        self._position = 0
+
+    def writable(self) -> bool:
+        return True
+
+    def write(self, data: Any) -> int:
+        chunk = bytes(data)
+        self._chunks.append(chunk)
+        self._position += len(chunk)
+        return len(chunk)
+
+    def tell(self) -> int:
+        return self._position
+
+    def take(self) -> bytes:
+        out = b"".join(self._chunks)
+        self._chunks.clear()
+        return out
+
+
+def parquet_chunks(sessions: sessionmaker[Session], fetch: PageFetcher) -> Iterator[bytes]:
+    """A Parquet file streamed as it is written: one row group per page, the footer last."""
+    # Parquet is written front to back (magic, row groups, then the footer with their offsets),
+    # so ParquetWriter needs no seek: each page's row group is sent as soon as it is written,
+    # with no temporary file and never more than one page in memory.
+    drain = _Drain()
+    writer = pq.ParquetWriter(drain, PARQUET_SCHEMA)
+    try:
+        for rows in score_pages(sessions, fetch):
+            writer.write_table(pa.Table.from_pylist(rows, schema=PARQUET_SCHEMA))
+            yield drain.take()
+    finally:
+        writer.close()
+    yield drain.take()

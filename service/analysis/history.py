@@ -1,0 +1,110 @@
+"""A dataset's history: its jobs over time with their estimates and final picks, and refreshes."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+from sqlalchemy import or_, select
+from sqlalchemy.orm import Session
+
+from service.auth import Principal
+from service.jobs.service import job_query, visible_dataset
+from service.store.models import Refresh, Schedule
+
+
+@dataclass(frozen=True)
+class HistoryPoint:
+    """One job on the dataset: when it ran and, if it succeeded, what it estimated and picked."""
+
+    job_id: str
+    status: str
+    kind: str
+    schedule_id: str | None
+    created_at: datetime
+    finished_at: datetime | None
+    pick_by: str | None
+    mean: float | None  # outer estimate of pick_by
+    se: float | None
+    final_pick: dict[str, Any] | None  # candidate_key, estimator, params
+
+
+@dataclass(frozen=True)
+class RefreshPoint:
+    """One firing of a schedule that read this dataset (or replaced it with a newer table)."""
+
+    id: int
+    schedule_id: str
+    due_at: datetime
+    status: str
+    job_id: str | None
+    previous_job_id: str | None
+    finished_at: datetime | None
+
+
+@dataclass(frozen=True)
+class DatasetHistory:
+    """Jobs oldest first, and the refreshes that touched the dataset, oldest first."""
+
+    dataset_hash: str
+    jobs: list[HistoryPoint]
+    refreshes: list[RefreshPoint]
+
+
+def _point(job: Any) -> HistoryPoint:
+    result = job.result if job.status == "succeeded" else None
+    pick_by = mean = se = final = None
+    if result:
+        pick_by = result["pick_by"]
+        estimate = result["estimate"][pick_by]
+        mean, se = float(estimate["mean"]), float(estimate["se"])
+        final = {k: result["final_pick"][k] for k in ("candidate_key", "estimator", "params")}
+    return HistoryPoint(
+        job_id=job.id,
+        status=job.status,
+        kind=job.kind,
+        schedule_id=job.schedule_id,
+        created_at=job.created_at,
+        finished_at=job.finished_at,
+        pick_by=pick_by,
+        mean=mean,
+        se=se,
+        final_pick=final,
+    )
+
+
+def dataset_history(session: Session, principal: Principal, content_hash: str) -> DatasetHistory:
+    """The dataset's visible jobs and refreshes over time (NotFound if it is not visible)."""
+    visible_dataset(session, content_hash, principal)
+    query = job_query(principal, dataset_hash=content_hash).order_by(None)
+    jobs = list(session.scalars(query))
+    jobs.sort(key=lambda j: (j.created_at, j.id))
+    job_ids = [j.id for j in jobs]
+    refresh_query = (
+        select(Refresh)
+        .join(Schedule, Schedule.id == Refresh.schedule_id)
+        .where(
+            or_(
+                Refresh.dataset_hash == content_hash,
+                Refresh.job_id.in_(job_ids),
+                Refresh.previous_job_id.in_(job_ids),
+            )
+        )
+        .order_by(Refresh.due_at, Refresh.id)
+    )
+    if not principal.analyst:
+        refresh_query = refresh_query.where(Schedule.team == principal.team)
+    refreshes = [
+        RefreshPoint(
+            id=r.id,
+            schedule_id=r.schedule_id,
+            due_at=r.due_at,
+            status=r.status,
+            job_id=r.job_id,
+            previous_job_id=r.previous_job_id,
+            finished_at=r.finished_at,
+        )
+        for r in session.scalars(refresh_query)
+    ]
+    return DatasetHistory(content_hash, [_point(j) for j in jobs], refreshes)
