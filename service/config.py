@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import json
 import os
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from datetime import timedelta
 from pathlib import Path
@@ -26,6 +28,15 @@ class Settings:
     unit_time_limit: int = 3_000
     reconcile_seconds: float = 30.0
     republish_after: float = 300.0
+    # webhooks: URL prefixes the operator allows (none: no webhooks), and the key team secrets
+    # derive from (unset: the server sends no webhooks at all)
+    webhook_allow: tuple[str, ...] = ()
+    secret_key: str | None = None
+    webhook_timeout: float = 5.0
+    webhook_backoff: float = 5.0
+    # SQL sources: connection name -> SQLAlchemy URL, set by the operator, never by a request
+    sql_connections: Mapping[str, str] = field(default_factory=dict)
+    sql_max_rows: int = 1_000_000
 
     @property
     def dataset_dir(self) -> Path:
@@ -76,6 +87,27 @@ def _number(env: dict[str, str], name: str, default: float) -> float:
     return value
 
 
+def _sql_connections(raw: str | None) -> dict[str, str]:
+    name = "FOLDWISE_SQL_CONNECTIONS"
+    if not raw or not raw.strip():
+        return {}
+    text = raw
+    if not raw.lstrip().startswith("{"):
+        try:  # not a JSON object: the path of a file holding one (keeps passwords out of env)
+            text = Path(raw).expanduser().read_text(encoding="utf-8")
+        except OSError as exc:
+            raise BadInput(name, f"is neither a JSON object nor a readable file ({exc}).") from None
+    try:
+        value = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise BadInput(name, f"is not valid JSON ({exc.msg}).") from None
+    if not isinstance(value, dict) or not all(
+        isinstance(k, str) and isinstance(v, str) for k, v in value.items()
+    ):
+        raise BadInput(name, "must be a JSON object of connection name to SQLAlchemy URL.")
+    return dict(value)
+
+
 def load_settings(env: dict[str, str] | None = None) -> Settings:
     """Read the settings from `env` (default: the process environment)."""
     env = dict(os.environ) if env is None else env
@@ -97,4 +129,12 @@ def load_settings(env: dict[str, str] | None = None) -> Settings:
         unit_time_limit=int(_number(env, "FOLDWISE_UNIT_TIME_LIMIT", 3_000)),
         reconcile_seconds=_number(env, "FOLDWISE_RECONCILE_SECONDS", 30),
         republish_after=_number(env, "FOLDWISE_REPUBLISH_AFTER", 300),
+        webhook_allow=tuple(
+            p.strip() for p in (env.get("FOLDWISE_WEBHOOK_ALLOW") or "").split(",") if p.strip()
+        ),
+        secret_key=env.get("FOLDWISE_SECRET_KEY") or None,
+        webhook_timeout=_number(env, "FOLDWISE_WEBHOOK_TIMEOUT", 5),
+        webhook_backoff=_number(env, "FOLDWISE_WEBHOOK_BACKOFF", 5),
+        sql_connections=_sql_connections(env.get("FOLDWISE_SQL_CONNECTIONS")),
+        sql_max_rows=int(_number(env, "FOLDWISE_SQL_MAX_ROWS", 1_000_000)),
     )

@@ -13,28 +13,29 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 from service.datasets.canonical import canonical_frame, content_hash
 from service.datasets.files import read_dataset_file
 from service.datasets.kinds import ColumnKind, infer_column_kinds
+from service.datasets.sql_source import SqlAccess, SqlSource, read_sql_source
 from service.errors import BadInput
 
 SampleName = Literal["breast_cancer", "wine", "iris", "diabetes"]
 
-# A `sql` source joins this tuple (and the model) when it lands; the one-of rule then covers it.
-_SOURCE_FIELDS = ("path", "sample")
+_SOURCE_FIELDS = ("path", "sample", "sql")
 
 
 class DatasetSource(BaseModel):
-    """Where a dataset's rows come from: exactly one of a file path or a bundled sample."""
+    """Where a dataset's rows come from: exactly one of a file path, a sample or a sql source."""
 
     model_config = ConfigDict(extra="forbid", frozen=True)
 
     path: str | None = Field(default=None, min_length=1)
     sample: SampleName | None = None
+    sql: SqlSource | None = None
 
     @model_validator(mode="after")
     def _exactly_one_source(self) -> DatasetSource:
         given = [name for name in _SOURCE_FIELDS if getattr(self, name) is not None]
         if len(given) != 1:
             raise ValueError(
-                "a dataset source needs exactly one of 'path' or 'sample', "
+                "a dataset source needs exactly one of 'path', 'sample' or 'sql', "
                 f"but {len(given)} were given"
             )
         return self
@@ -56,8 +57,12 @@ def load_table(
     base_dir: Path,
     data_roots: tuple[Path, ...] = (),
     field: str = "dataset",
+    sql: SqlAccess | None = None,
 ) -> LoadedTable:
     """Load a source into a canonical table; BadInput names `field` for anything wrong."""
+    if source.sql is not None:
+        raw, origin = read_sql_source(source.sql, sql or SqlAccess(), field=f"{field}.sql")
+        return _loaded(raw, origin, f"{field}.sql")
     if source.sample is not None:
         raw = _sample_frame(source.sample)
         return _loaded(raw, {"sample": source.sample}, f"{field}.sample")

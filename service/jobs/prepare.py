@@ -13,6 +13,7 @@ from service.config import Settings
 from service.cv.errors import SpecError
 from service.cv.plan import SelectionPlan, build_plan
 from service.datasets.sources import LoadedTable, load_table
+from service.datasets.sql_source import SqlAccess
 from service.datasets.store import read_table
 from service.errors import BadInput
 from service.jobs.request import JobRequest, parse_job_request
@@ -49,7 +50,12 @@ def prepare_job(data: Any, *, session: Session, settings: Settings, base_dir: Pa
     if isinstance(request.dataset, str):
         table = _registered(session, request.dataset, settings)
     else:
-        table = load_table(request.dataset, base_dir=base_dir, data_roots=settings.data_roots)
+        table = load_table(
+            request.dataset,
+            base_dir=base_dir,
+            data_roots=settings.data_roots,
+            sql=SqlAccess(settings.sql_connections, settings.sql_max_rows),
+        )
     try:
         plan = build_plan(request.spec(), table.frame, dict(table.kinds))
     except SpecError as exc:
