@@ -15,6 +15,7 @@ from service.cv.metrics import check_metrics
 from service.cv.preprocess import FeatureTable, check_preprocess, feature_table
 from service.cv.spec import SelectionSpec
 from service.cv.splits import Fold, SplitInputs, split_rows
+from service.cv.subsample import subsample_outer
 
 FINAL_SCOPE = "all"  # the inner procedure run on all rows, which gives the final pick
 
@@ -162,6 +163,10 @@ def build_plan(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) 
     all_rows = np.arange(len(y))
     n = len(y)
     outer = split_rows(spec.outer, all_rows, inputs, n_rows=n, versions=tag, field="outer")
+    strata = y if spec.task == "classification" else None  # learning curves: a share of each part
+    outer = subsample_outer(
+        outer, strata, spec.train_fraction, seed=spec.subsample_seed, n_rows=n, versions=tag
+    )
     inner = {
         fold.scope: split_rows(
             spec.inner, fold.train, inputs, n_rows=n, versions=tag, field="inner"

@@ -111,6 +111,9 @@ class SelectionSpec(_Strict):
     inner: SplitSpec
     metrics: list[str] = Field(min_length=1)
     pick_by: str | None = None
+    # a share of each outer training part (seeded, stratified for classification; subsample.py)
+    train_fraction: float = Field(default=1.0, gt=0, le=1)
+    subsample_seed: int = Field(default=0, ge=0, le=2**32 - 1)
 
     @model_validator(mode="after")
     def _consistent(self) -> SelectionSpec:
@@ -123,6 +126,12 @@ class SelectionSpec(_Strict):
             )
         if self.features is not None and not self.features:
             raise ValueError("features: is empty; list columns or use null for all but the target")
+        ordered = {"group_kfold", "time_series"} & {self.outer.method, self.inner.method}
+        if self.train_fraction < 1 and ordered:
+            raise ValueError(
+                "train_fraction: subsampling draws rows at random, which would break the groups "
+                f"or time order of {sorted(ordered)[0]}; use kfold or stratified_kfold"
+            )
         return self
 
     @property
