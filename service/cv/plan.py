@@ -18,11 +18,18 @@ from service.cv.splits import Fold, SplitInputs, split_rows
 from service.cv.subsample import subsample_outer
 
 FINAL_SCOPE = "all"  # the inner procedure run on all rows, which gives the final pick
+SCORING_VERSION = "1"  # ours, among the versions below
 
 
 def library_versions() -> dict[str, str]:
     """The versions that can change fold indices or scores."""
-    return {"scikit-learn": sklearn.__version__, "numpy": np.__version__}
+    # "foldwise-scoring" is ours: bump it when the way a unit fits or scores changes, so fold
+    # fingerprints (which embed these versions) change and old scores are no longer reused
+    return {
+        "scikit-learn": sklearn.__version__,
+        "numpy": np.__version__,
+        "foldwise-scoring": SCORING_VERSION,
+    }
 
 
 @dataclass(frozen=True)

@@ -18,6 +18,7 @@ from sklearn.pipeline import Pipeline
 from service.cv.candidates import Candidate
 from service.cv.metrics import make_scorer_set
 from service.cv.plan import FINAL_SCOPE, SelectionPlan
+from service.cv.predictions import capture
 from service.cv.preprocess import build_pipeline
 from service.cv.splits import Fold
 
@@ -73,6 +74,8 @@ def _fit_and_score_fold(
     fitted = time.perf_counter()
     scores = make_scorer_set(pipeline, metrics)(pipeline, X.iloc[fold.test], y[fold.test])
     done = time.perf_counter()
+    # kept so a later request can add a metric without refitting (service/cv/predictions.py)
+    predictions = capture(pipeline, X.iloc[fold.test], plan.spec.task)
     return {
         "fingerprint": fold.fingerprint,
         "n_train": len(fold.train),
@@ -80,6 +83,7 @@ def _fit_and_score_fold(
         "fit_seconds": fitted - started,
         "score_seconds": done - fitted,
         "scores": scores,
+        "predictions": predictions,
     }
 
 

@@ -18,6 +18,7 @@ from service.cv.plan import FINAL_SCOPE
 from service.cv.selection import pick
 from service.jobs.plans import plan_for_job
 from service.jobs.result import build_result
+from service.jobs.reuse import reuse_stored
 from service.jobs.scores import load_book
 from service.jobs.submit import unit_row
 from service.store.db import utcnow
@@ -30,6 +31,17 @@ def _open_units(session: Session, job_id: str) -> int:
             select(func.count()).where(WorkUnit.job_id == job_id, WorkUnit.status != "done")
         )
         or 0
+    )
+
+
+def queued_ids(session: Session, job_id: str) -> list[int]:
+    """The job's units still waiting to run, in id order."""
+    return list(
+        session.scalars(
+            select(WorkUnit.id)
+            .where(WorkUnit.job_id == job_id, WorkUnit.status == "queued")
+            .order_by(WorkUnit.id)
+        )
     )
 
 
@@ -46,31 +58,36 @@ def advance_job(sessions: sessionmaker[Session], job_id: str, settings: Settings
     """Move the job on if its current stage is complete; returns ids of new units to dispatch."""
     with sessions.begin() as session:
         job = session.get_one(Job, job_id)
-        if job.status != "running" or _open_units(session, job_id):
+        # a learning curve's parent has no units: its children settle it (jobs.curves)
+        if job.status != "running" or job.kind != "selection" or _open_units(session, job_id):
             return []
         loaded = plan_for_job(session, job_id, settings)
-        if job.stage == "inner":
-            if not _elect(session, job_id, "inner", "outer"):
-                return []
-            book = load_book(session, loaded)
-            picks = {scope: pick(loaded.plan, scope, book) for scope in loaded.plan.scopes}
-            session.add_all(
-                Pick(
-                    job_id=job_id,
-                    outer_repeat=fold.repeat,
-                    outer_fold=fold.index,
-                    candidate_key=picks[fold.scope].candidate.key,
-                    inner_mean=picks[fold.scope].inner_mean,
-                )
-                for fold in loaded.plan.outer
-            )
-            rows = [unit_row(job_id, r.kind, r.scope, r.candidate_key) for r in refit_units(picks)]
-            ids = session.scalars(insert(WorkUnit).returning(WorkUnit.id), rows)
-            return list(ids)
         if job.stage == "outer" and _elect(session, job_id, "outer", "aggregating"):
             book = load_book(session, loaded)
             picks = {scope: pick(loaded.plan, scope, book) for scope in loaded.plan.scopes}
             job.result = build_result(session, job, loaded, book, picks)
             job.status, job.stage, job.finished_at = "succeeded", "done", utcnow()
             assert FINAL_SCOPE in picks
-        return []
+            return []
+        if job.stage != "inner" or not _elect(session, job_id, "inner", "outer"):
+            return []
+        book = load_book(session, loaded)
+        picks = {scope: pick(loaded.plan, scope, book) for scope in loaded.plan.scopes}
+        session.add_all(
+            Pick(
+                job_id=job_id,
+                outer_repeat=fold.repeat,
+                outer_fold=fold.index,
+                candidate_key=picks[fold.scope].candidate.key,
+                inner_mean=picks[fold.scope].inner_mean,
+            )
+            for fold in loaded.plan.outer
+        )
+        rows = [unit_row(job_id, r.kind, r.scope, r.candidate_key) for r in refit_units(picks)]
+        ids = list(session.scalars(insert(WorkUnit).returning(WorkUnit.id), rows))
+        if job.request.get("reuse", True) and reuse_stored(session, job_id, loaded):
+            ids = queued_ids(session, job_id)
+    if ids:
+        return ids
+    # every refit came from the store: no unit will finish to trigger the last move
+    return advance_job(sessions, job_id, settings)

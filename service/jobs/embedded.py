@@ -21,6 +21,7 @@ from service.config import Settings
 from service.jobs.execute import UnitReport, worker_name
 from service.jobs.plans import LoadedPlan, remember
 from service.jobs.prepare import prepare_job
+from service.jobs.reuse import start_if_settled
 from service.jobs.service import cancel_job
 from service.jobs.submit import create_job
 from service.jobs.work import run_and_advance
@@ -132,6 +133,7 @@ def run_embedded(
         remember(
             job_id, LoadedPlan(prepared.plan, table.frame, dict(table.kinds), table.content_hash)
         )
+        start_if_settled(sessions, job_id, settings)  # every unit may have come from the store
         try:
             if workers > 1:
                 context = multiprocessing.get_context("fork")

@@ -27,7 +27,7 @@ from service.cv.units import UnitCancelled, UnitOutcome, UnitRef, fit_and_score
 from service.jobs.plans import LoadedPlan, plan_for_job
 from service.jobs.scores import load_book
 from service.store.db import insert_ignoring_duplicates, utcnow
-from service.store.models import FinalModel, FoldScore, Job, WorkUnit
+from service.store.models import FinalModel, FoldPrediction, FoldScore, Job, WorkUnit
 
 # A claim is a lease (settings.unit_lease): a copy that has not finished by then is presumed
 # dead and the unit may be claimed again, at most this many times in all.
@@ -141,6 +141,21 @@ def _record(
     ]
     # a redelivered copy of a finished unit inserts nothing: the key already holds the score
     insert_ignoring_duplicates(session, FoldScore, rows)
+    # the out-of-fold predictions, so a later request can add a metric without a refit
+    predictions = [
+        {
+            "dataset_hash": loaded.dataset_hash,
+            "fold_fingerprint": fold["fingerprint"],
+            "candidate_key": unit.candidate_key,
+            "kind": fold["predictions"].kind,
+            "classes": fold["predictions"].classes,
+            "data": fold["predictions"].encode(),
+            "job_id": unit.job_id,
+        }
+        for fold in outcome.folds
+        if "predictions" in fold
+    ]
+    insert_ignoring_duplicates(session, FoldPrediction, predictions)
     if outcome.model is not None:
         digest, path, size = _save_model(outcome, settings)
         final = pick(loaded.plan, FINAL_SCOPE, load_book(session, loaded))

@@ -5,7 +5,7 @@ from __future__ import annotations
 import re
 from typing import Any
 
-from pydantic import ValidationError
+from pydantic import StrictBool, ValidationError
 
 from service.cv.spec import SelectionSpec
 from service.datasets.sources import DatasetSource
@@ -16,10 +16,12 @@ class JobRequest(SelectionSpec):
     """The body of `POST /v1/jobs` and the file `foldwise select` reads."""
 
     dataset: str | DatasetSource
+    # false: fit every unit afresh even when the store already holds its scores
+    reuse: StrictBool = True
 
     def spec(self) -> SelectionSpec:
-        """The request without its dataset reference: what the engine sees."""
-        return SelectionSpec.model_validate(self.model_dump(exclude={"dataset"}))
+        """The request without its dataset reference and reuse switch: what the engine sees."""
+        return SelectionSpec.model_validate(self.model_dump(exclude={"dataset", "reuse"}))
 
 
 def field_path(loc: tuple[int | str, ...]) -> str:

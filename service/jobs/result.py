@@ -16,7 +16,7 @@ from service.cv.selection import Pick as EnginePick
 from service.cv.selection import ScoreBook, assemble
 from service.jobs.plans import LoadedPlan
 from service.store.db import utcnow
-from service.store.models import FinalModel, Job, WorkUnit
+from service.store.models import FinalModel, FoldScore, Job, WorkUnit
 
 
 def versions() -> dict[str, str]:
@@ -31,19 +31,45 @@ def versions() -> dict[str, str]:
 
 def work_summary(session: Session, job: Job) -> dict[str, Any]:
     """How much work the job took: units, fits and wall seconds since submission."""
-    done, fits = session.execute(
-        select(func.count(), func.coalesce(func.sum(WorkUnit.fits), 0)).where(
-            WorkUnit.job_id == job.id, WorkUnit.status == "done"
-        )
+    done, reused, fits = session.execute(
+        select(
+            func.count(),
+            func.count().filter(WorkUnit.reused.is_(True)),
+            func.coalesce(func.sum(WorkUnit.fits), 0),
+        ).where(WorkUnit.job_id == job.id, WorkUnit.status == "done")
     ).one()
     seconds = (utcnow() - job.created_at).total_seconds()
     return {
         "units_total": job.units_total,
-        "units_computed": int(done),
-        "units_reused": 0,
+        "units_computed": int(done) - int(reused),
+        "units_reused": int(reused),
         "fits": int(fits),
         "seconds": round(seconds, 3),
     }
+
+
+def computing_jobs(
+    session: Session, loaded: LoadedPlan, result: dict[str, Any]
+) -> list[dict[str, Any]]:
+    """For each outer row, in its order, the job that computed its scores (earlier if reused).
+
+    Kept under `work` rather than in the outer rows: those rows are the estimate, equal for
+    equal requests whichever store or job computed them.
+    """
+    fingerprints = {(f.repeat, f.index): f.fingerprint for f in loaded.plan.outer}
+    rows = []
+    for row in result["outer"]:
+        fingerprint = fingerprints[(row["repeat"], row["fold"])]
+        job_id = session.scalar(
+            select(FoldScore.job_id).where(
+                FoldScore.dataset_hash == loaded.dataset_hash,
+                FoldScore.fold_fingerprint == fingerprint,
+                FoldScore.candidate_key == row["pick"]["candidate_key"],
+                FoldScore.metric == result["pick_by"],
+            )
+        )
+        rows.append({"repeat": row["repeat"], "fold": row["fold"], "job_id": job_id})
+    return rows
 
 
 def build_result(
@@ -55,6 +81,7 @@ def build_result(
     model = session.get_one(FinalModel, job.id)
     result["final_pick"]["model_sha256"] = model.sha256
     result["work"] = work_summary(session, job)
+    result["work"]["outer_computed_by"] = computing_jobs(session, loaded, result)
     result["versions"] = versions()
     result["cautions"] = find_cautions(loaded.plan, loaded.frame, loaded.kinds)
     return result

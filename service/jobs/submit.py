@@ -14,7 +14,9 @@ from service.cv.plan import FINAL_SCOPE
 from service.cv.splits import Fold as PlanFold
 from service.cv.units import inner_units
 from service.datasets.store import save_table
+from service.jobs.plans import LoadedPlan
 from service.jobs.prepare import PreparedJob
+from service.jobs.reuse import reuse_stored
 from service.store.db import insert_ignoring_duplicates
 from service.store.models import Candidate, Dataset, Fold, Job, JobCandidate, JobFold, WorkUnit
 
@@ -157,4 +159,9 @@ def create_job(
         insert(WorkUnit),
         [unit_row(job_id, u.kind, u.scope, u.candidate_key) for u in first_units],
     )
+    if prepared.request.reuse:
+        # units the store already answers are done now; if all are, the caller must call
+        # reuse.start_if_settled after its commit (no unit will finish to trigger the fan-in)
+        loaded = LoadedPlan(plan, table.frame, dict(table.kinds), table.content_hash)
+        reuse_stored(session, job_id, loaded)
     return job_id
