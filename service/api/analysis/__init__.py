@@ -1,0 +1,1 @@
+"""Routes for analysts: queries across jobs, exports, comparisons, history."""

@@ -1,0 +1,1 @@
+"""Analysts' side: queries, exports, comparisons and the command line, against a live server."""
