@@ -146,3 +146,12 @@ def test_history_lists_jobs_oldest_first_with_estimates_and_refreshes(seeded: Se
     assert body["refreshes"][0]["job_id"] == seeded.jobs["C"]["id"]
     # the refresh belongs to lab's schedule; the analyst sees it too, the other team not at all
     assert _get(seeded, seeded.analyst, f"/v1/datasets/{iris}/history")["refreshes"]
+
+
+def test_an_analyst_sees_every_teams_scores_of_a_dataset(seeded: Seeded) -> None:
+    wine = seeded.jobs["D"]["dataset_hash"]
+    expected = _sql(seeded, _PLAN_SCORES.format(extra=""), h=wine, team="other")
+    rows = _all_pages(seeded, seeded.analyst, f"/v1/datasets/{wine}/fold-scores", limit=1000)
+    assert [r["id"] for r in rows] == expected and expected
+    with seeded.server.client(seeded.lab) as client:
+        assert client.get(f"/v1/datasets/{wine}/fold-scores").status_code == 404

@@ -24,6 +24,13 @@ ROUTES = {
     ("post", "/v1/jobs/{job_id}/cancel"),
     ("get", "/v1/jobs/{job_id}/fold-scores"),
     ("get", "/v1/jobs/{job_id}/fold-scores.csv"),
+    ("get", "/v1/jobs/{job_id}/fold-scores.parquet"),
+    ("get", "/v1/datasets/{content_hash}/jobs"),
+    ("get", "/v1/datasets/{content_hash}/fold-scores"),
+    ("get", "/v1/datasets/{content_hash}/fold-scores.csv"),
+    ("get", "/v1/datasets/{content_hash}/fold-scores.parquet"),
+    ("get", "/v1/datasets/{content_hash}/history"),
+    ("get", "/v1/compare"),
 }
 
 
@@ -87,7 +94,7 @@ def test_each_route_documents_its_answer_and_its_problems(
         if "application/json" in content:
             assert "$ref" in content["application/json"]["schema"]
         else:
-            assert set(content) & {"text/plain", "text/csv"}
+            assert set(content) & {"text/plain", "text/csv", "application/vnd.apache.parquet"}
     problems = [s for s in answers if s[0] in "45"]
     if path.startswith("/v1/"):
         assert {"401", "403", "422"} <= set(problems)

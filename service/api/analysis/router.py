@@ -114,7 +114,10 @@ def _stream(chunks: Iterator[Any], media_type: str, filename: str) -> StreamingR
     response_class=StreamingResponse,
     response_model=None,
     summary="A dataset's fold scores across jobs as CSV (the JSON listing's columns)",
-    responses={200: {"description": "CSV, id order.", "content": _CSV}, **problem_responses(404)},
+    responses={
+        200: {"description": "CSV, id order.", "content": _CSV},
+        **problem_responses(401, 403, 404, 422),
+    },
 )
 def export_dataset_csv(
     content_hash: ContentHash,
@@ -142,7 +145,10 @@ def export_dataset_csv(
     response_class=StreamingResponse,
     response_model=None,
     summary="A dataset's fold scores across jobs as Parquet",
-    responses={200: {"description": "One row group per page.", "content": _PARQUET}},
+    responses={
+        200: {"description": "One row group per page.", "content": _PARQUET},
+        **problem_responses(401, 403, 404, 422),
+    },
 )
 def export_dataset_parquet(
     content_hash: ContentHash,
@@ -170,7 +176,10 @@ def export_dataset_parquet(
     response_class=StreamingResponse,
     response_model=None,
     summary="The job's fold scores as Parquet (the JSON listing's columns)",
-    responses={200: {"description": "One row group per page.", "content": _PARQUET}},
+    responses={
+        200: {"description": "One row group per page.", "content": _PARQUET},
+        **problem_responses(401, 403, 404, 422),
+    },
 )
 def export_job_parquet(
     job_id: JobId, principal: ReaderDep, session: SessionDep, sessions: SessionsDep
