@@ -19,6 +19,10 @@ from workers.threads import cap_loaded_threadpools
 CONTROL_QUEUE = "foldwise-control"
 MAX_TASKS_PER_CHILD = 200
 MAX_MEMORY_PER_CHILD_KIB = 2 * 1024 * 1024  # a child past 2 GiB is replaced after its task
+# Schedules and webhooks: found in the store by a tick, never kept in beat's own config.
+TASK_SCHEDULE_TICK = "foldwise.schedule_tick"
+TASK_DELIVERY_TICK = "foldwise.delivery_tick"
+TICK_SECONDS = 60.0
 
 
 def _queue(name: str) -> Queue:
@@ -35,7 +39,10 @@ def worker_options(settings: Settings) -> dict[str, Any]:
         # each queue on its own direct exchange: left to the defaults, the control queue would
         # be bound to the unit queue's exchange and key, and receive copies of unit messages
         "task_queues": [_queue(UNIT_QUEUE), _queue(CONTROL_QUEUE)],
-        "task_routes": {TASK_RECONCILE: {"queue": CONTROL_QUEUE}},
+        "task_routes": {
+            name: {"queue": CONTROL_QUEUE}
+            for name in (TASK_RECONCILE, TASK_SCHEDULE_TICK, TASK_DELIVERY_TICK)
+        },
         # a message is acknowledged only after its unit ran, and a worker holds one message at a
         # time, so a dead worker strands one unit and not a prefetched batch
         "task_acks_late": True,
@@ -60,7 +67,18 @@ def worker_options(settings: Settings) -> dict[str, Any]:
                 "schedule": settings.reconcile_seconds,
                 # a tick that waited longer than one period is stale: the next one is coming
                 "options": {"queue": CONTROL_QUEUE, "expires": settings.reconcile_seconds},
-            }
+            },
+            **{
+                name: {
+                    "task": task,
+                    "schedule": TICK_SECONDS,
+                    "options": {"queue": CONTROL_QUEUE, "expires": TICK_SECONDS},
+                }
+                for name, task in (
+                    ("schedules", TASK_SCHEDULE_TICK),
+                    ("webhooks", TASK_DELIVERY_TICK),
+                )
+            },
         },
     }
 

@@ -1,4 +1,5 @@
-"""The two tasks: run one work unit, and the reconcile tick. Ids in; the logic is in service."""
+"""The tasks: run one work unit, and the reconcile, schedule and delivery ticks. Ids in; the logic
+is in service."""
 
 from __future__ import annotations
 
@@ -12,8 +13,10 @@ from service.dispatch import TASK_RECONCILE, TASK_RUN_UNIT, UNIT_QUEUE
 from service.dispatch.base import mark_published
 from service.jobs.reconcile import reconcile
 from service.jobs.work import run_and_advance
+from service.notify.delivery import deliver_due
+from service.schedules.tick import tick_schedules
 from workers import state
-from workers.app import app
+from workers.app import TASK_DELIVERY_TICK, TASK_SCHEDULE_TICK, app
 
 log = logging.getLogger(__name__)
 
@@ -67,3 +70,18 @@ def reconcile_tick() -> dict[str, Any]:
         "advanced": found.advanced,
         "abandoned": found.abandoned,
     }
+
+
+@app.task(name=TASK_SCHEDULE_TICK)
+def schedule_tick() -> dict[str, Any]:
+    """Refresh due schedules and finish refreshes whose job ended; publish new jobs' units."""
+    report = tick_schedules(state.sessions(), state.settings())
+    publish(report.units)
+    return {"refreshes": report.refreshes, "finished": report.finished}
+
+
+@app.task(name=TASK_DELIVERY_TICK)
+def delivery_tick() -> dict[str, Any]:
+    """Send the webhook deliveries that are due (signed, one attempt each)."""
+    report = deliver_due(state.sessions(), state.settings())
+    return {"delivered": report.delivered, "retried": report.retried, "gave_up": report.gave_up}

@@ -18,6 +18,7 @@ from service.api.health.router import router as health_router
 from service.api.jobs.router import router as jobs_router
 from service.api.limits import BodyCap
 from service.api.problems import PROBLEM_MEDIA_TYPE, install_problem_handlers
+from service.api.schedules.router import router as schedules_router
 from service.config import Settings
 from service.dispatch.base import Dispatcher
 from service.errors import BadInput
@@ -110,6 +111,7 @@ def create_app(settings: Settings, *, local_workers: int | None = None) -> FastA
     app.include_router(health_router)
     app.include_router(datasets_router)
     app.include_router(jobs_router)
+    app.include_router(schedules_router)
     app.include_router(analysis_router)
     app.add_middleware(BodyCap, exempt=(UPLOAD_PATH,))
     app.openapi = lambda: _document(app)  # type: ignore[method-assign]

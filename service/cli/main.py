@@ -134,6 +134,10 @@ from service.cli import workers_cmd  # noqa: E402  (foldwise worker, foldwise be
 app.command()(workers_cmd.worker)
 app.command()(workers_cmd.beat)
 
+from service.cli.webhook_cmd import webhook_secret  # noqa: E402  (foldwise webhook-secret)
+
+app.command("webhook-secret")(webhook_secret)
+
 from service.cli import analyst_cmd  # noqa: E402  (login, jobs, result, scores, compare, report)
 
 for _command in analyst_cmd.COMMANDS:

@@ -19,6 +19,8 @@ from service.config import Settings
 from service.jobs.execute import UnitReport, worker_name
 from service.jobs.reconcile import reconcile
 from service.jobs.work import run_and_advance
+from service.notify.delivery import deliver_due
+from service.schedules.tick import tick_schedules
 from service.store.db import make_engine, make_session_factory
 from service.store.models import Job, WorkUnit
 
@@ -68,6 +70,12 @@ class LocalPool:
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._loop, name="foldwise-local-pool", daemon=True)
         self._thread.start()
+        # schedules and webhooks tick in a thread of their own: a slow receiver must not hold
+        # up the handing out of units
+        self._ticker = threading.Thread(
+            target=self._ticks, name="foldwise-local-ticks", daemon=True
+        )
+        self._ticker.start()
         for _ in range(workers):  # start the processes now rather than on the first unit
             self._pool.submit(int)
 
@@ -102,6 +110,16 @@ class LocalPool:
             self._wake.wait(self.poll_seconds)
             self._wake.clear()
 
+    def _ticks(self) -> None:
+        # what the Celery beat's schedule and delivery ticks do in the distributed mode
+        while not self._stop.wait(self.poll_seconds):
+            try:
+                if tick_schedules(self._sessions, self.settings).units:
+                    self._wake.set()
+                deliver_due(self._sessions, self.settings)
+            except Exception:  # keep serving: the next tick retries from the store
+                log.exception("local schedule or delivery tick failed")
+
     def _finished(self, unit_id: int) -> Any:
         def done(future: Future[UnitReport]) -> None:
             with self._lock:
@@ -117,5 +135,6 @@ class LocalPool:
         self._stop.set()
         self._wake.set()
         self._thread.join(timeout=10)
+        self._ticker.join(timeout=10)
         self._pool.shutdown(wait=True, cancel_futures=True)
         self._engine.dispose()

@@ -21,6 +21,7 @@ from service.jobs.result import build_result
 from service.jobs.reuse import reuse_stored
 from service.jobs.scores import load_book
 from service.jobs.submit import unit_row
+from service.notify.outbox import queue_job_notice
 from service.store.db import utcnow
 from service.store.models import Job, Pick, WorkUnit
 
@@ -67,6 +68,7 @@ def advance_job(sessions: sessionmaker[Session], job_id: str, settings: Settings
             picks = {scope: pick(loaded.plan, scope, book) for scope in loaded.plan.scopes}
             job.result = build_result(session, job, loaded, book, picks)
             job.status, job.stage, job.finished_at = "succeeded", "done", utcnow()
+            queue_job_notice(session, job_id)
             assert FINAL_SCOPE in picks
             return []
         if job.stage != "inner" or not _elect(session, job_id, "inner", "outer"):

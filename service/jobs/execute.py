@@ -26,6 +26,7 @@ from service.cv.selection import pick
 from service.cv.units import UnitCancelled, UnitOutcome, UnitRef, fit_and_score
 from service.jobs.plans import LoadedPlan, plan_for_job
 from service.jobs.scores import load_book
+from service.notify.outbox import queue_job_notice
 from service.store.db import insert_ignoring_duplicates, utcnow
 from service.store.models import FinalModel, FoldPrediction, FoldScore, Job, WorkUnit
 
@@ -195,7 +196,7 @@ def _finish(
         unit.fits, unit.seconds = fits, seconds
         if status == "failed":
             first_line = (error or "").strip().splitlines()[-1] if error else "unknown error"
-            session.execute(
+            ended = session.scalar(
                 update(Job)
                 .where(Job.id == unit.job_id, Job.status.in_(("queued", "running")))
                 .values(
@@ -203,7 +204,10 @@ def _finish(
                     finished_at=utcnow(),
                     error=f"unit {unit_id} ({unit.kind} {unit.scope}) failed: {first_line}",
                 )
+                .returning(Job.id)
             )
+            if ended is not None:  # this call made the job fail: its notice goes with it
+                queue_job_notice(session, ended)
             # the job cannot succeed any more: units not yet started need not start
             session.execute(
                 update(WorkUnit)

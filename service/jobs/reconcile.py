@@ -17,6 +17,7 @@ from sqlalchemy.orm import Session, sessionmaker
 from service.config import Settings
 from service.jobs.advance import advance_job
 from service.jobs.execute import MAX_ATTEMPTS
+from service.notify.outbox import queue_job_notice
 from service.store.db import utcnow
 from service.store.models import Job, WorkUnit
 
@@ -46,7 +47,7 @@ def _give_up(session: Session) -> list[int]:
         unit = session.get_one(WorkUnit, unit_id)
         unit.status, unit.finished_at = "failed", now
         unit.error = f"gave up after {unit.attempts} attempts whose worker died or timed out"
-        session.execute(
+        ended = session.scalar(
             update(Job)
             .where(Job.id == unit.job_id, Job.status.in_(("queued", "running")))
             .values(
@@ -54,7 +55,10 @@ def _give_up(session: Session) -> list[int]:
                 finished_at=now,
                 error=f"unit {unit_id} ({unit.kind} {unit.scope}): {unit.error}",
             )
+            .returning(Job.id)
         )
+        if ended is not None:  # this call made the job fail: its notice goes with it
+            queue_job_notice(session, ended)
     return dead
 
 

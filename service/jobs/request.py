@@ -5,7 +5,7 @@ from __future__ import annotations
 import re
 from typing import Any
 
-from pydantic import StrictBool, ValidationError
+from pydantic import Field, StrictBool, ValidationError
 
 from service.cv.spec import SelectionSpec
 from service.datasets.sources import DatasetSource
@@ -18,10 +18,13 @@ class JobRequest(SelectionSpec):
     dataset: str | DatasetSource
     # false: fit every unit afresh even when the store already holds its scores
     reuse: StrictBool = True
+    # a URL notified when the job ends; must lie under the operator's FOLDWISE_WEBHOOK_ALLOW
+    webhook: str | None = Field(default=None, min_length=1, max_length=2000)
 
     def spec(self) -> SelectionSpec:
         """The request without its dataset reference and reuse switch: what the engine sees."""
-        return SelectionSpec.model_validate(self.model_dump(exclude={"dataset", "reuse"}))
+        service_fields = {"dataset", "reuse", "webhook"}
+        return SelectionSpec.model_validate(self.model_dump(exclude=service_fields))
 
 
 def field_path(loc: tuple[int | str, ...]) -> str:

@@ -21,6 +21,8 @@ from service.config import Settings
 from service.datasets.sources import check_table_size
 from service.jobs.prepare import prepare_job
 from service.jobs.submit import create_job
+from service.notify.outbox import queue_job_notice
+from service.notify.targets import check_webhook_target
 from service.store.db import utcnow
 from service.store.models import (
     Candidate,
@@ -81,6 +83,8 @@ def submit_job(
     prepared = prepare_job(
         data, session=session, settings=settings, base_dir=base_dir or settings.home
     )
+    if prepared.request.webhook is not None:
+        check_webhook_target(prepared.request.webhook, settings, field="webhook")
     # the caps hold for every table a service caller names, not only for uploads
     check_table_size(
         prepared.table.frame,
@@ -91,6 +95,7 @@ def submit_job(
     job_id = create_job(session, prepared, settings, idempotency_key=idempotency_key)
     job = session.get_one(Job, job_id)
     job.team, job.request_hash = principal.team, body_hash
+    job.webhook_url = prepared.request.webhook
     register_dataset(session, prepared.table.content_hash, principal.team)
     session.flush()
     return Submitted(job, True)
@@ -167,6 +172,7 @@ def cancel_job(session: Session, job: Job) -> Job:
     """Flag a queued or running job cancelled; units stop between fits."""
     if job.status in ("queued", "running"):
         job.cancel_requested, job.status, job.finished_at = True, "cancelled", utcnow()
+        queue_job_notice(session, job.id)
         session.execute(
             update(WorkUnit)
             .where(WorkUnit.job_id == job.id, WorkUnit.status == "queued")

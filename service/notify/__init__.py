@@ -1,0 +1,1 @@
+"""Webhooks: allow-listed targets, per-team HMAC signatures, a delivery outbox with backoff."""

@@ -1,0 +1,152 @@
+"""Schedules behind the routes: create (validated against today's data), get, list, refreshes."""
+
+from __future__ import annotations
+
+import uuid
+from pathlib import Path
+from typing import Any
+
+from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
+from sqlalchemy import func, select
+from sqlalchemy.orm import Session
+
+from service.auth import Principal
+from service.config import Settings
+from service.datasets.sources import DatasetSource, check_table_size
+from service.errors import BadInput
+from service.jobs.prepare import PreparedJob, prepare_job
+from service.jobs.request import bad_input_from
+from service.jobs.service import NotFound
+from service.notify.targets import check_webhook_target
+from service.schedules.cron import next_after, parse_cron, zone
+from service.store.db import utcnow
+from service.store.models import Refresh, Schedule
+
+
+class ScheduleRequest(BaseModel):
+    """The body of `POST /v1/schedules`."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    source: DatasetSource
+    template: dict[str, Any]
+    cron: str = Field(min_length=1, max_length=100)
+    timezone: str = Field(default="UTC", min_length=1, max_length=64)
+    threshold: float | None = Field(default=None, allow_inf_nan=False)
+    webhook: str | None = Field(default=None, min_length=1, max_length=2000)
+
+    @field_validator("source")
+    @classmethod
+    def _changeable(cls, source: DatasetSource) -> DatasetSource:
+        if source.sample is not None:
+            raise ValueError(
+                "a bundled sample never changes; give a {'path': ...} or {'sql': ...} source"
+            )
+        return source
+
+
+def base_dir(settings: Settings) -> Path:
+    """Where a schedule's relative paths start: the first data root, as for job requests."""
+    return settings.data_roots[0] if settings.data_roots else settings.home
+
+
+def job_body(schedule: Schedule) -> dict[str, Any]:
+    """The job request a refresh submits: the template with the source as its dataset."""
+    return {**schedule.template, "dataset": schedule.source}
+
+
+def _prepare(body: dict[str, Any], session: Session, settings: Settings) -> PreparedJob:
+    try:
+        prepared = prepare_job(
+            body, session=session, settings=settings, base_dir=base_dir(settings)
+        )
+    except BadInput as exc:
+        # the template's fields are named as they sit in the schedule body
+        if exc.field.startswith("dataset"):
+            field = "source" + exc.field.removeprefix("dataset")
+        else:
+            field = f"template.{exc.field}"
+        raise BadInput(field, exc.message) from None
+    check_table_size(
+        prepared.table.frame,
+        max_rows=settings.max_rows,
+        max_columns=settings.max_columns,
+        field="source",
+    )
+    return prepared
+
+
+def create_schedule(
+    session: Session, data: Any, *, principal: Principal, settings: Settings
+) -> Schedule:
+    """Validate everything (the template prepared against the current data), then store."""
+    if not isinstance(data, dict):
+        raise BadInput("request", "a schedule must be a JSON object; see the README example.")
+    try:
+        request = ScheduleRequest.model_validate(data)
+    except ValidationError as exc:
+        raise bad_input_from(exc) from None
+    if "dataset" in request.template:
+        raise BadInput(
+            "template.dataset", "a template has no dataset: the schedule's source is it."
+        )
+    if request.source.path is not None and not settings.data_roots:
+        raise BadInput(
+            "source.path",
+            "this server reads no files by path because FOLDWISE_DATA_ROOTS is not set; "
+            "use a sql source or ask the operator for a data root.",
+        )
+    cron = parse_cron(request.cron)
+    tz = zone(request.timezone)
+    if request.webhook is not None:
+        check_webhook_target(request.webhook, settings, field="webhook")
+    source = request.source.model_dump(exclude_none=True)
+    _prepare({**request.template, "dataset": source}, session, settings)
+    schedule = Schedule(
+        id=uuid.uuid4().hex,
+        team=principal.team,
+        source=source,
+        template=request.template,
+        cron=cron.text,
+        timezone=request.timezone,
+        threshold=request.threshold,
+        webhook_url=request.webhook,
+        next_due_at=next_after(cron, utcnow(), tz),
+    )
+    session.add(schedule)
+    session.flush()
+    return schedule
+
+
+def get_schedule(session: Session, schedule_id: str, principal: Principal) -> Schedule:
+    """The schedule, if the principal may see it."""
+    schedule = session.get(Schedule, schedule_id)
+    if schedule is None or not principal.may_see(schedule.team):
+        raise NotFound(f"no schedule {schedule_id!r}")
+    return schedule
+
+
+def list_schedules(
+    session: Session, principal: Principal, *, limit: int, offset: int
+) -> tuple[list[Schedule], int]:
+    """A page of the principal's schedules, newest first, and the total count."""
+    query = select(Schedule)
+    if not principal.analyst:
+        query = query.where(Schedule.team == principal.team)
+    total = session.scalar(select(func.count()).select_from(query.subquery()))
+    rows = session.scalars(
+        query.order_by(Schedule.created_at.desc(), Schedule.id).limit(limit).offset(offset)
+    )
+    return list(rows), int(total or 0)
+
+
+def list_refreshes(
+    session: Session, schedule: Schedule, *, limit: int, offset: int
+) -> tuple[list[Refresh], int]:
+    """A page of the schedule's refreshes, newest due time first, and the total count."""
+    query = select(Refresh).where(Refresh.schedule_id == schedule.id)
+    total = session.scalar(select(func.count()).select_from(query.subquery()))
+    rows = session.scalars(
+        query.order_by(Refresh.due_at.desc(), Refresh.id.desc()).limit(limit).offset(offset)
+    )
+    return list(rows), int(total or 0)
