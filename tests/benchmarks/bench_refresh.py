@@ -104,7 +104,8 @@ def main() -> int:
         f"(goal < {GOAL_SECONDS:.1f} s: {'met' if median < GOAL_SECONDS else 'NOT met'})"
     )
     print(
-        f"in-process parts (median of 3): read CSV {read_s:.3f} s, canonicalise + hash {hash_s:.3f} s"
+        f"in-process parts (median of 3): read CSV {read_s:.3f} s, "
+        f"canonicalise + hash {hash_s:.3f} s"
     )
     return 0
 
