@@ -24,6 +24,7 @@ from service.dispatch.base import Dispatcher
 from service.errors import BadInput
 from service.jobs.request import JobRequest
 from service.store.db import make_engine, make_session_factory
+from service.web.router import router as reports_router
 
 log = logging.getLogger(__name__)
 JOBS_PATH = "/v1/jobs"
@@ -113,6 +114,7 @@ def create_app(settings: Settings, *, local_workers: int | None = None) -> FastA
     app.include_router(jobs_router)
     app.include_router(schedules_router)
     app.include_router(analysis_router)
+    app.include_router(reports_router)
     app.add_middleware(BodyCap, exempt=(UPLOAD_PATH,))
     app.openapi = lambda: _document(app)  # type: ignore[method-assign]
     return app

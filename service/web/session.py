@@ -1,0 +1,88 @@
+"""The report pages' session cookie: a signed token id and expiry, never the token itself.
+
+The value is `<token id>.<expiry unix seconds>.<hex HMAC-SHA256>` under FOLDWISE_SECRET_KEY. With no
+key set (the embedded default) each server process draws a random key at start: sessions then end
+when the server restarts, and several API processes would not accept each other's cookies, so a
+deployment with more than one process must set the key.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import hmac
+import os
+import secrets
+import time
+from dataclasses import dataclass
+
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from service.auth import Principal, hash_token
+from service.store.models import ApiToken
+
+COOKIE = "foldwise_session"
+LIFETIME_SECONDS = 8 * 3600
+_PROCESS_KEY = secrets.token_bytes(32)
+
+
+def secret_key(env: dict[str, str] | None = None) -> bytes:
+    """FOLDWISE_SECRET_KEY as bytes, or this process's random key when it is unset."""
+    raw = (os.environ if env is None else env).get("FOLDWISE_SECRET_KEY")
+    return raw.encode() if raw else _PROCESS_KEY
+
+
+def _mac(key: bytes, body: str) -> str:
+    return hmac.new(key, body.encode(), hashlib.sha256).hexdigest()
+
+
+def sign(key: bytes, token_id: int, *, now: float | None = None) -> str:
+    """A cookie value for the token with this id, valid for LIFETIME_SECONDS."""
+    expires = int((time.time() if now is None else now) + LIFETIME_SECONDS)
+    body = f"{token_id}.{expires}"
+    return f"{body}.{_mac(key, body)}"
+
+
+def verify(key: bytes, value: str, *, now: float | None = None) -> int | None:
+    """The token id of a well-signed, unexpired cookie value, else None."""
+    parts = value.split(".")
+    if len(parts) != 3 or not parts[0].isdigit() or not parts[1].isdigit():
+        return None
+    body = f"{parts[0]}.{parts[1]}"
+    if not hmac.compare_digest(_mac(key, body), parts[2]):
+        return None
+    if int(parts[1]) < (time.time() if now is None else now):
+        return None
+    return int(parts[0])
+
+
+@dataclass(frozen=True)
+class Reader:
+    """A signed-in reader: the token row's id and the principal it acts as."""
+
+    token_id: int
+    principal: Principal
+
+
+def _may_read(scopes: list[str]) -> bool:
+    return "read" in scopes or "admin" in scopes
+
+
+def reader_for_token(session: Session, token: str) -> Reader | None:
+    """The reader behind a pasted token, if it is valid, unrevoked and may read."""
+    row = session.scalars(
+        select(ApiToken).where(
+            ApiToken.token_hash == hash_token(token.strip()), ApiToken.revoked_at.is_(None)
+        )
+    ).one_or_none()
+    if row is None or not _may_read(list(row.scopes)):
+        return None
+    return Reader(row.id, Principal(row.team, frozenset(row.scopes), bool(row.analyst)))
+
+
+def reader_for_id(session: Session, token_id: int) -> Reader | None:
+    """The reader of a cookie's token id; a token revoked since sign-in no longer reads."""
+    row = session.get(ApiToken, token_id)
+    if row is None or row.revoked_at is not None or not _may_read(list(row.scopes)):
+        return None
+    return Reader(row.id, Principal(row.team, frozenset(row.scopes), bool(row.analyst)))
