@@ -18,6 +18,7 @@ from service.datasets.sources import (
     describe_table,
     load_table,
 )
+from service.datasets.sql_source import SqlAccess
 from service.datasets.store import read_table, save_table
 from service.errors import BadInput
 from service.jobs.service import NotFound, register_dataset, visible_dataset
@@ -61,6 +62,7 @@ def load_source(source: DatasetSource, settings: Settings) -> LoadedTable:
         base_dir=server_base_dir(settings),
         data_roots=settings.data_roots,
         field="dataset",
+        sql=SqlAccess(settings.sql_connections, settings.sql_max_rows),
     )
     check_shape(table.frame, settings, field="dataset")
     return table
