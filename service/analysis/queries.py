@@ -8,7 +8,7 @@ from __future__ import annotations
 
 from typing import Literal
 
-from sqlalchemy import Select, exists, func, select
+from sqlalchemy import Select, func, select, tuple_
 from sqlalchemy.orm import Session
 
 from service.analysis.compare import Comparison, compare_outer_scores, outer_scores_from_result
@@ -46,18 +46,19 @@ def dataset_fold_score_query(
     # A score belongs to a job's plan when the job has both its fold and its candidate; the
     # score may have been computed by another job (reuse), so job_id alone would miss it. The
     # role comes from job_fold too: one fold can be outer in one job and final inner in another.
+    # Written as one uncorrelated (fold, candidate) set so the database builds it once per page
+    # (a hashed subplan) instead of probing it row by row.
     in_plan = (
-        select(JobFold.job_id)
-        .join(
-            JobCandidate,
-            (JobCandidate.job_id == JobFold.job_id)
-            & (JobCandidate.candidate_key == FoldScore.candidate_key),
-        )
-        .where(JobFold.job_id.in_(jobs), JobFold.fingerprint == FoldScore.fold_fingerprint)
+        select(JobFold.fingerprint, JobCandidate.candidate_key)
+        .join(JobCandidate, JobCandidate.job_id == JobFold.job_id)
+        .where(JobFold.job_id.in_(jobs))
     )
     if role is not None:
         in_plan = in_plan.where(JobFold.role == role)
-    query = select(FoldScore).where(FoldScore.dataset_hash == content_hash, exists(in_plan))
+    query = select(FoldScore).where(
+        FoldScore.dataset_hash == content_hash,
+        tuple_(FoldScore.fold_fingerprint, FoldScore.candidate_key).in_(in_plan),
+    )
     if candidate_key is not None:
         query = query.where(FoldScore.candidate_key == candidate_key)
     if metric is not None:
