@@ -57,6 +57,7 @@ def _read_job_file(path: Path) -> Any:
 
 
 def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path) -> None:
+    from service.cli.curve_render import print_curve
     from service.cli.progress import unit_progress
     from service.cli.render import print_result
     from service.jobs.embedded import JobFailed, run_embedded
@@ -74,7 +75,10 @@ def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path) -> None:
     if as_json:
         sys.stdout.write(json.dumps(outcome.result, allow_nan=False) + "\n")
     else:
-        print_result(stdout, outcome.result, outcome.job_id)
+        if outcome.result.get("kind") == "learning_curve":
+            print_curve(stdout, outcome.result, outcome.job_id)
+        else:
+            print_result(stdout, outcome.result, outcome.job_id)
 
 
 @app.command()

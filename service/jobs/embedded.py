@@ -18,6 +18,7 @@ from sqlalchemy.orm import Session, sessionmaker
 from threadpoolctl import threadpool_limits
 
 from service.config import Settings
+from service.jobs.curves import is_curve_request, without_selection_kind
 from service.jobs.execute import UnitReport, worker_name
 from service.jobs.plans import LoadedPlan, remember
 from service.jobs.prepare import prepare_job
@@ -118,6 +119,13 @@ def run_embedded(
     progress: Progress | None = None,
 ) -> EmbeddedOutcome:
     """Validate, store and run a job here; raises BadInput (nothing stored) or JobFailed."""
+    if is_curve_request(data):  # one selection job per size, each driven as below
+        from service.jobs.curves_embedded import run_embedded_curve  # which imports this module
+
+        return run_embedded_curve(
+            data, settings=settings, workers=workers, base_dir=base_dir, progress=progress
+        )
+    data = without_selection_kind(data)
     upgrade_database(settings.database_url)
     engine = make_engine(settings.database_url)
     sessions = make_session_factory(engine)

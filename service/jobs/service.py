@@ -19,8 +19,7 @@ from sqlalchemy.orm import Session
 from service.auth import Principal
 from service.config import Settings
 from service.datasets.sources import check_table_size
-from service.jobs.prepare import prepare_job
-from service.jobs.submit import create_job
+from service.jobs.curves import create_submission, prepare_submission
 from service.notify.outbox import queue_job_notice
 from service.notify.targets import check_webhook_target
 from service.store.db import utcnow
@@ -80,7 +79,7 @@ def submit_job(
             return Submitted(earlier, False)
     if isinstance(data, dict) and isinstance(data.get("dataset"), str):
         visible_dataset(session, data["dataset"], principal)
-    prepared = prepare_job(
+    prepared = prepare_submission(
         data, session=session, settings=settings, base_dir=base_dir or settings.home
     )
     if prepared.request.webhook is not None:
@@ -92,7 +91,9 @@ def submit_job(
         max_columns=settings.max_columns,
         field="dataset",
     )
-    job_id = create_job(session, prepared, settings, idempotency_key=idempotency_key)
+    job_id = create_submission(
+        session, prepared, settings, idempotency_key=idempotency_key, team=principal.team
+    )
     job = session.get_one(Job, job_id)
     job.team, job.request_hash = principal.team, body_hash
     job.webhook_url = prepared.request.webhook
@@ -178,6 +179,8 @@ def cancel_job(session: Session, job: Job) -> Job:
             .where(WorkUnit.job_id == job.id, WorkUnit.status == "queued")
             .values(status="cancelled")
         )
+        for child in session.scalars(select(Job).where(Job.parent_id == job.id)).all():
+            cancel_job(session, child)  # a learning curve's selections stop with it
     return job
 
 

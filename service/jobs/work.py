@@ -6,6 +6,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
 from service.jobs.advance import advance_job
+from service.jobs.curves import settle_parent
 from service.jobs.execute import UnitReport, execute_unit
 
 
@@ -15,5 +16,10 @@ def run_and_advance(
     """Run unit `unit_id`; if it finished its job's stage, return the next units to publish."""
     report = execute_unit(sessions, unit_id, settings=settings, worker=worker)
     if report.job_id is None or not report.stage_complete:
+        if report.job_id is not None and report.status == "failed":
+            settle_parent(sessions, report.job_id)  # a learning curve fails with its child
         return report, []
-    return report, advance_job(sessions, report.job_id, settings)
+    added = advance_job(sessions, report.job_id, settings)
+    if not added:  # the job may have finished: its learning curve, if any, may be complete
+        settle_parent(sessions, report.job_id)
+    return report, added

@@ -34,6 +34,7 @@ from service.api.problems import problem_responses
 from service.dispatch.base import mark_published
 from service.errors import BadInput
 from service.jobs import service
+from service.jobs.curves import CURVE_KIND, start_children
 from service.jobs.reuse import start_if_settled
 from service.store.models import Job
 
@@ -60,6 +61,8 @@ def _summary(job: Job) -> JobSummary:
     return JobSummary(
         id=job.id,
         status=job.status,  # a CHECK constraint keeps it one of JobStatus
+        kind=job.kind,
+        parent_id=job.parent_id,
         dataset_hash=job.dataset_hash,
         team=job.team,
         created_at=job.created_at,
@@ -155,6 +158,11 @@ def submit_job(
         if not unit_ids:  # every unit came from the store: move the job on here
             unit_ids = start_if_settled(sessions, job.id, settings)
             session.refresh(job)
+        if job.kind == CURVE_KIND:  # the selections at each size carry the units
+            session.commit()  # SQLite: let go of the write lock before other sessions write
+            unit_ids += start_children(sessions, job.id, settings)
+            session.refresh(job)
+            session.commit()
         try:
             dispatcher.publish(unit_ids)
             mark_published(sessions, unit_ids)

@@ -7,6 +7,8 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
+from service.api.jobs.curve_schemas import CurveResult
+
 JobStatus = Literal["queued", "running", "succeeded", "failed", "cancelled"]
 
 
@@ -108,6 +110,10 @@ class JobSummary(BaseModel):
 
     id: str
     status: JobStatus
+    kind: str = Field(default="selection", description="selection, or learning_curve.")
+    parent_id: str | None = Field(
+        default=None, description="The learning curve this job is one size of."
+    )
     dataset_hash: str
     team: str
     created_at: datetime
@@ -120,7 +126,9 @@ class JobPublic(JobSummary):
     """A job with its error or, once succeeded, its result v1."""
 
     error: str | None
-    result: ResultV1 | None = Field(description="Result v1 when succeeded, else null.")
+    result: ResultV1 | CurveResult | None = Field(
+        description="Result v1 (a learning curve: its curve) when succeeded, else null."
+    )
     links: JobLinks
 
 

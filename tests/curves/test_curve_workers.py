@@ -1,0 +1,71 @@
+"""A learning curve on the distributed path: `foldwise serve` publishing to two Celery workers.
+
+The stack (PostgreSQL store, a private Redis database, real worker processes) is the one the
+distributed tests use; its fixtures are imported from there rather than copied.
+"""
+
+from __future__ import annotations
+
+import socket
+import subprocess
+import sys
+import time
+
+import httpx
+from distributed.conftest import redis_url, running_stack, stack  # noqa: F401 (fixtures)
+from distributed.stack import REPO, Stack, wait_until
+from sqlalchemy import select
+
+from service.store.models import WorkUnit
+
+from .requests import curve
+
+
+def _free_port() -> int:
+    with socket.socket() as probe:
+        probe.bind(("127.0.0.1", 0))
+        return int(probe.getsockname()[1])
+
+
+def _healthy(base: str) -> bool:
+    try:
+        return httpx.get(f"{base}/healthz", timeout=1).status_code == 200
+    except httpx.HTTPError:
+        return False
+
+
+def test_a_curve_over_rest_runs_every_size_on_the_workers(running_stack: Stack) -> None:  # noqa: F811
+    live = running_stack
+    port = _free_port()
+    base = f"http://127.0.0.1:{port}"
+    live.start("api", "serve", "--host", "127.0.0.1", "--port", str(port))
+    wait_until(lambda: _healthy(base), 60, "the API answering /healthz", live)
+    command = ["token", "create", "--team", "curves", "--scopes", "submit,read"]
+    token = subprocess.run(
+        [sys.executable, "-m", "service.cli.main", *command],
+        cwd=REPO,
+        env=live.process_env(),
+        check=True,
+        capture_output=True,
+        text=True,
+    ).stdout.strip()
+    with httpx.Client(base_url=base, headers={"Authorization": f"Bearer {token}"}) as client:
+        submitted = client.post("/v1/jobs", json=curve(sizes=[0.25, 1.0]), timeout=60)
+        assert submitted.status_code == 202, submitted.text
+        deadline = time.monotonic() + 120
+        while True:
+            parent = client.get(submitted.headers["location"], timeout=30).json()
+            if parent["status"] not in ("queued", "running") or time.monotonic() > deadline:
+                break
+            time.sleep(0.5)
+    assert parent["status"] == "succeeded", f"{parent}\n{live.logs()}"
+    points = parent["result"]["points"]
+    assert [p["size"] for p in points] == [0.25, 1.0]
+    # the API published the children's units and the workers ran all of them
+    with live.sessions() as session:
+        runners = set(
+            session.scalars(
+                select(WorkUnit.worker).where(WorkUnit.job_id.in_(parent["result"]["jobs"]))
+            )
+        )
+    assert runners and {str(r).split("@", 1)[0] for r in runners} <= {"w1", "w2"}
