@@ -17,8 +17,8 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from sqlalchemy import CursorResult, select, update
-from sqlalchemy.orm import Session, sessionmaker
+from sqlalchemy import CursorResult, exists, or_, select, update
+from sqlalchemy.orm import Session, aliased, sessionmaker
 
 from service.config import Settings
 from service.cv.errors import SpecError
@@ -332,3 +332,25 @@ def start_children(sessions: sessionmaker[Session], job_id: str, settings: Setti
         ids += queued[child] or start_if_settled(sessions, child, settings)
     settle_curve(sessions, job_id)
     return ids
+
+
+def settle_live_curves(sessions: sessionmaker[Session]) -> list[str]:
+    """Settle live curves whose sizes have all ended or one broke; returns their ids.
+
+    Whoever ends a size settles its curve, but a size can end without such a caller (the
+    reconciler gives up on a unit, or moves a stalled job on): the reconciler's tick heals that.
+    """
+    child = aliased(Job)
+    ended_or_broken = or_(
+        ~exists().where(child.parent_id == Job.id, child.status.in_(_LIVE)),
+        exists().where(child.parent_id == Job.id, child.status.in_(("failed", "cancelled"))),
+    )
+    with sessions() as session:
+        due = list(
+            session.scalars(
+                select(Job.id).where(Job.kind == CURVE_KIND, Job.status.in_(_LIVE), ended_or_broken)
+            )
+        )
+    for parent_id in due:
+        settle_curve(sessions, parent_id)
+    return due

@@ -16,6 +16,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
 from service.jobs.advance import advance_job
+from service.jobs.curves import settle_live_curves
 from service.jobs.execute import MAX_ATTEMPTS
 from service.notify.outbox import queue_job_notice
 from service.store.db import utcnow
@@ -114,6 +115,7 @@ def reconcile(sessions: sessionmaker[Session], settings: Settings) -> Reconciled
         stalled = _stalled(session)
     for job_id in stalled:
         advance_job(sessions, job_id, settings)
+    settle_live_curves(sessions)  # learning curves whose sizes ended without settling them
     with sessions() as session:
         republish = _lost(session, settings)
     return Reconciled(republish, stalled, abandoned)

@@ -16,6 +16,7 @@ from service.cv.spec import SelectionSpec
 from service.cv.subsample import kept_count
 from service.datasets.sources import DatasetSource, load_table
 from service.jobs.embedded import JobFailed, run_embedded
+from service.jobs.reconcile import reconcile
 from service.store.db import make_engine, make_session_factory
 from service.store.models import Job, WorkUnit
 
@@ -124,3 +125,32 @@ def test_a_failed_size_fails_the_curve(tmp_path: Path) -> None:
         statuses = set(session.scalars(select(WorkUnit.status)))
     engine.dispose()
     assert "queued" not in statuses
+
+
+def test_the_reconciler_settles_a_curve_whose_sizes_ended_unnoticed(tmp_path: Path) -> None:
+    settings = _settings(tmp_path)
+    outcome = run_embedded(curve(sizes=[0.5, 1.0]), settings=settings)
+    engine = make_engine(settings.database_url)
+    sessions = make_session_factory(engine)
+    try:
+        # as if the process that finished the last size died before settling the curve
+        with sessions.begin() as session:
+            parent = session.get_one(Job, outcome.job_id)
+            parent.status, parent.stage, parent.result = "running", "aggregating", None
+        reconcile(sessions, settings)
+        with sessions() as session:
+            parent = session.get_one(Job, outcome.job_id)
+            assert parent.status == "succeeded" and parent.result == outcome.result
+        # and a size that failed unnoticed (the reconciler gave up on it) fails the curve
+        with sessions.begin() as session:
+            parent = session.get_one(Job, outcome.job_id)
+            parent.status, parent.result = "running", None
+            child = session.get_one(Job, outcome.result["jobs"][0])
+            child.status, child.error = "failed", "unit 1 (inner r0f0): gave up"
+        reconcile(sessions, settings)
+        with sessions() as session:
+            parent = session.get_one(Job, outcome.job_id)
+            assert parent.status == "failed" and parent.result is None
+            assert parent.error is not None and "size 0.5" in parent.error
+    finally:
+        engine.dispose()
