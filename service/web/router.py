@@ -171,6 +171,8 @@ def job_report(job_id: str, request: Request, sessions: SessionsDep) -> Response
             job = get_job(session, job_id[:64], reader.principal)
         except NotFound:
             return _missing(reader, "job")
+        if job.kind == "learning_curve":
+            return _page("learning.html", reader=reader, **views.learning_page(job))
         context = views.job_page(session, job)
         return _page("job.html", started=started, reader=reader, **context)
 

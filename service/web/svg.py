@@ -307,3 +307,47 @@ def difference_dots(points: Sequence[Point], *, label: str) -> Markup:
         )
     parts.append("</svg>")
     return Markup("".join(parts))
+
+
+def band_chart(
+    x_labels: Sequence[str],
+    means: Sequence[float],
+    spreads: Sequence[float],
+    *,
+    label: str,
+    y_title: str,
+) -> Markup:
+    """A mean line with a ± spread band over ordinal x slots (a learning curve's error by size)."""
+    height = 280
+    low, high = padded_range(
+        [m - s for m, s in zip(means, spreads, strict=True)]
+        + [m + s for m, s in zip(means, spreads, strict=True)]
+    )
+    y = Scale(low, high, height - PAD_BOTTOM, PAD_TOP)
+    step = (WIDTH - PAD_LEFT - PAD_RIGHT) / max(1, len(x_labels))
+    xs = [PAD_LEFT + step * (i + 0.5) for i in range(len(x_labels))]
+    parts = _open(height, label)
+    _y_axis(parts, y, PAD_LEFT, WIDTH - PAD_RIGHT)
+    upper = [f"{x:.1f},{y(m + s):.1f}" for x, m, s in zip(xs, means, spreads, strict=True)]
+    lower = [f"{x:.1f},{y(m - s):.1f}" for x, m, s in zip(xs, means, spreads, strict=True)]
+    middle = " ".join(f"{x:.1f},{y(m):.1f}" for x, m in zip(xs, means, strict=True))
+    parts.append(
+        f'<polygon data-kind="spread" points="{" ".join(upper + lower[::-1])}" '
+        f'fill="{SERIES[0]}" fill-opacity="0.15"/>'
+        f'<polyline points="{middle}" '
+        f'fill="none" stroke="{SERIES[0]}" stroke-width="2"/>'
+    )
+    for x, name, m, s in zip(xs, x_labels, means, spreads, strict=True):
+        parts.append(
+            f'<circle data-kind="curve-point" data-value="{m!r}" cx="{x:.1f}" cy="{y(m):.1f}" '
+            f'r="5" fill="{SERIES[0]}"><title>{escape(name)}: {_fmt(m)} ± {_fmt(s)}</title>'
+            f'</circle><text x="{x:.1f}" y="{height - PAD_BOTTOM + 18}" text-anchor="middle" '
+            f'font-size="12" fill="{MUTED}">{escape(name)}</text>'
+        )
+    parts.append(
+        f'<text x="14" y="{(height - PAD_BOTTOM + PAD_TOP) / 2:.0f}" font-size="12" '
+        f'fill="{MUTED}" text-anchor="middle" '
+        f'transform="rotate(-90 14 {(height - PAD_BOTTOM + PAD_TOP) / 2:.0f})">'
+        f"{escape(y_title)}</text></svg>"
+    )
+    return Markup("".join(parts))

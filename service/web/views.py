@@ -36,6 +36,25 @@ def describe(candidate: dict[str, Any]) -> str:
     return f"{candidate['estimator']}({params})"
 
 
+def learning_page(job: Job) -> dict[str, Any]:
+    """Context of a learning-curve job: estimated error against training size, with its spread."""
+    result = job.result if job.status == "succeeded" else None
+    context: dict[str, Any] = {"title": f"learning curve {job.id[:12]}", "job": job}
+    context["result"] = result
+    if result:
+        points = sorted(result["points"], key=lambda p: p["size"])
+        labels = [f"{p['size']:.0%}" for p in points]
+        context["points"] = points
+        context["chart"] = svg.band_chart(
+            labels,
+            [p["error"]["mean"] for p in points],
+            [p["error"]["std"] for p in points],
+            label=f"Estimated error ({result['error_formula']}) against training size",
+            y_title=result["error_formula"],
+        )
+    return context
+
+
 def job_page(session: Session, job: Job) -> dict[str, Any]:
     """Context of the job page: result v1 drawn, plus inner-score curves from SQL aggregates."""
     result = job.result if job.status == "succeeded" else None

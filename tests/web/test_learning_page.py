@@ -1,0 +1,30 @@
+"""A learning-curve job's report: one mark per training size, its error as the store holds it."""
+
+from __future__ import annotations
+
+import copy
+from typing import Any
+
+from .conftest import IRIS_JOB
+from .live import LiveServer
+from .pages import marks, sign_in, watch_console
+
+
+def test_learning_curve_page_draws_one_point_per_size(
+    browser: Any, server: LiveServer, owner_token: str
+) -> None:
+    """Error against training size, in size order, each point linked to the selection behind it."""
+    request = copy.deepcopy(IRIS_JOB)
+    request["families"] = [IRIS_JOB["families"][1]]  # logistic regression alone: quick
+    request.update(kind="learning_curve", sizes=[0.25, 0.5, 1.0])
+    job_id = server.submit_and_wait(owner_token, request)
+    result = server.job(owner_token, job_id)["result"]
+    page = browser.new_page()
+    errors = watch_console(page)
+    sign_in(page, server.base_url, owner_token, f"/reports/jobs/{job_id}")
+    points = marks(page, "curve-point")
+    expected = [p["error"]["mean"] for p in sorted(result["points"], key=lambda p: p["size"])]
+    assert [float(p["value"]) for p in points] == expected
+    for point in result["points"]:
+        assert page.locator(f'a[href="/reports/jobs/{point["job_id"]}"]').count() == 1
+    assert errors == []
