@@ -219,3 +219,17 @@ def test_another_teams_schedule_is_not_found(live: Server, client: httpx.Client)
     with live.client(live.token("other-team")) as other:
         assert other.get(f"/v1/schedules/{sid}").status_code == 404
         assert other.post(f"/v1/schedules/{sid}/refresh").status_code == 404
+
+
+def test_webhook_secret_without_a_key_exits_2_with_one_sentence(live: Server) -> None:
+    env = {k: v for k, v in live.env.items() if k != "FOLDWISE_SECRET_KEY"}
+    done = subprocess.run(
+        [sys.executable, "-m", "service.cli.main", "webhook-secret", "--team", TEAM],
+        env=env,
+        cwd=REPO,
+        capture_output=True,
+        text=True,
+    )
+    assert done.returncode == 2 and done.stdout == ""
+    assert done.stderr.startswith("error: FOLDWISE_SECRET_KEY: is not set")
+    assert done.stderr.count("\n") == 1 and "Traceback" not in done.stderr
