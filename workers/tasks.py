@@ -9,8 +9,9 @@ from typing import Any
 
 from celery import Task
 
-from service.dispatch import TASK_RECONCILE, TASK_RUN_UNIT, UNIT_QUEUE
+from service.dispatch import TASK_RECONCILE, TASK_RUN_AUDIT, TASK_RUN_UNIT, UNIT_QUEUE
 from service.dispatch.base import mark_published
+from service.jobs.audit import run_audit
 from service.jobs.reconcile import reconcile
 from service.jobs.work import run_and_advance
 from service.notify.delivery import deliver_due
@@ -85,3 +86,9 @@ def delivery_tick() -> dict[str, Any]:
     """Send the webhook deliveries that are due (signed, one attempt each)."""
     report = deliver_due(state.sessions(), state.settings())
     return {"delivered": report.delivered, "retried": report.retried, "gave_up": report.gave_up}
+
+
+@app.task(name=TASK_RUN_AUDIT)
+def run_audit_task(audit_id: str) -> str:
+    """Recompute a queued audit's sample and store its report; a duplicate is skipped."""
+    return run_audit(state.sessions(), audit_id, state.settings())

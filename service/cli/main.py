@@ -138,6 +138,10 @@ from service.cli import workers_cmd  # noqa: E402  (foldwise worker, foldwise be
 app.command()(workers_cmd.worker)
 app.command()(workers_cmd.beat)
 
+from service.cli.audit_cmd import audit  # noqa: E402  (foldwise audit)
+
+app.command()(audit)
+
 from service.cli.webhook_cmd import webhook_secret  # noqa: E402  (foldwise webhook-secret)
 
 app.command("webhook-secret")(webhook_secret)

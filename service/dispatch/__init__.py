@@ -5,4 +5,5 @@ server. Only ids cross this boundary; the store holds everything else."""
 # (service never imports workers: it sends by name).
 TASK_RUN_UNIT = "foldwise.run_unit"
 TASK_RECONCILE = "foldwise.reconcile"
+TASK_RUN_AUDIT = "foldwise.run_audit"
 UNIT_QUEUE = "foldwise-units"

@@ -17,6 +17,9 @@ class Dispatcher(Protocol):
     def publish(self, unit_ids: list[int]) -> None:
         """Hand these queued units over for running (at least once)."""
 
+    def publish_audit(self, audit_id: str) -> None:
+        """Hand a queued audit over for running (it recomputes in a worker, not in the API)."""
+
     def close(self) -> None:
         """Release connections, processes and threads."""
 

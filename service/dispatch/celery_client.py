@@ -7,7 +7,7 @@ from typing import Any
 from celery import Celery
 
 from service.config import Settings
-from service.dispatch import TASK_RUN_UNIT, UNIT_QUEUE
+from service.dispatch import TASK_RUN_AUDIT, TASK_RUN_UNIT, UNIT_QUEUE
 
 
 def celery_options(settings: Settings) -> dict[str, Any]:
@@ -38,6 +38,10 @@ class CeleryDispatcher:
         """Send each id; a lost message is healed by the reconciler, not retried here."""
         for unit_id in unit_ids:
             self.app.send_task(TASK_RUN_UNIT, args=[unit_id], queue=UNIT_QUEUE)
+
+    def publish_audit(self, audit_id: str) -> None:
+        """Send one run_audit message; the audit row's status says whether it ran."""
+        self.app.send_task(TASK_RUN_AUDIT, args=[audit_id], queue=UNIT_QUEUE)
 
     def close(self) -> None:
         """Close the broker connection pool."""

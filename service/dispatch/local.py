@@ -16,6 +16,7 @@ from sqlalchemy import select
 from threadpoolctl import threadpool_limits
 
 from service.config import Settings
+from service.jobs.audit import run_audit
 from service.jobs.execute import UnitReport, worker_name
 from service.jobs.reconcile import reconcile
 from service.jobs.work import run_and_advance
@@ -40,6 +41,10 @@ def _child_run(unit_id: int) -> UnitReport:
         _child["sessions"], unit_id, settings=_child["settings"], worker=worker_name()
     )
     return report
+
+
+def _child_audit(audit_id: str) -> str:
+    return run_audit(_child["sessions"], audit_id, _child["settings"])
 
 
 class LocalPool:
@@ -82,6 +87,11 @@ class LocalPool:
     def publish(self, unit_ids: list[int]) -> None:
         """Wake the poller: the units are already queued in the store."""
         self._wake.set()
+
+    def publish_audit(self, audit_id: str) -> None:
+        """Recompute the audit on a pool process (fits stay out of the API process)."""
+        future = self._pool.submit(_child_audit, audit_id)
+        future.add_done_callback(_log_crash(f"audit {audit_id}"))
 
     def _queued(self) -> list[int]:
         with self._sessions() as session:
@@ -138,3 +148,11 @@ class LocalPool:
         self._ticker.join(timeout=10)
         self._pool.shutdown(wait=True, cancel_futures=True)
         self._engine.dispose()
+
+
+def _log_crash(what: str) -> Any:
+    def done(future: Future[str]) -> None:
+        if future.exception() is not None:
+            log.error("%s crashed its process: %s", what, future.exception())
+
+    return done

@@ -1,0 +1,1 @@
+"""Audit and provenance routes."""

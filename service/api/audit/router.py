@@ -1,0 +1,83 @@
+"""Audit routes (recompute stored scores and compare) and a job's provenance trail."""
+
+from __future__ import annotations
+
+import logging
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Body, Path, Response
+
+from service.api.audit.schemas import AuditPublic, Provenance
+from service.api.deps import DispatcherDep, ReaderDep, SessionDep
+from service.api.problems import problem_responses
+from service.jobs import service
+from service.jobs.audit import audit_view, check_audit_request, request_audit
+from service.jobs.provenance import provenance
+from service.store.models import Audit
+
+log = logging.getLogger(__name__)
+router = APIRouter(prefix="/v1", tags=["audits"])
+
+JobId = Annotated[str, Path(max_length=64, description="The job's id.")]
+AuditId = Annotated[str, Path(max_length=64, description="The audit's id.")]
+AUDIT_BODY = Body(
+    description=(
+        'Optional: {"fraction": 0 < f <= 1 (default 1.0), "seed": int (default 0), '
+        '"tolerance": float >= 0 (default 0)}.'
+    ),
+)
+
+
+@router.post(
+    "/jobs/{job_id}/audit",
+    response_model=AuditPublic,
+    status_code=202,
+    summary="Recompute a sample (or all) of a succeeded job's units and compare with the store",
+    responses=problem_responses(401, 403, 404, 422),
+)
+def start_audit(
+    job_id: JobId,
+    principal: ReaderDep,
+    session: SessionDep,
+    dispatcher: DispatcherDep,
+    response: Response,
+    body: Annotated[dict[str, Any] | None, AUDIT_BODY] = None,
+) -> AuditPublic:
+    """202 with Location /v1/audits/{id}; the recomputation runs on a worker."""
+    fraction, seed, tolerance = check_audit_request(body)
+    job = service.get_job(session, job_id, principal)
+    audit = request_audit(
+        session, job, fraction=fraction, seed=seed, tolerance=tolerance, team=principal.team
+    )
+    session.commit()  # the worker must find the row
+    try:
+        dispatcher.publish_audit(audit.id)
+    except Exception:
+        log.exception("publishing audit %s failed; it stays queued", audit.id)
+    response.headers["Location"] = f"/v1/audits/{audit.id}"
+    return AuditPublic(**audit_view(audit))
+
+
+@router.get(
+    "/audits/{audit_id}",
+    response_model=AuditPublic,
+    summary="An audit: status and, once done, the comparison of every recomputed score",
+    responses=problem_responses(401, 403, 404, 422),
+)
+def get_audit(audit_id: AuditId, principal: ReaderDep, session: SessionDep) -> AuditPublic:
+    """Another team's audit is a 404."""
+    audit = session.get(Audit, audit_id)
+    if audit is None or not principal.may_see(audit.team):
+        raise service.NotFound(f"no audit {audit_id!r}")
+    return AuditPublic(**audit_view(audit))
+
+
+@router.get(
+    "/jobs/{job_id}/provenance",
+    response_model=Provenance,
+    summary="The job's whole trail: table, request, candidates, folds, units, scores, model",
+    responses=problem_responses(401, 403, 404, 422),
+)
+def get_provenance(job_id: JobId, principal: ReaderDep, session: SessionDep) -> Provenance:
+    """Who computed what, with which versions, and what audits found."""
+    return Provenance(**provenance(session, service.get_job(session, job_id, principal)))

@@ -1,0 +1,190 @@
+"""A job's whole trail, read from the store: table, request, candidates, folds, units, scores,
+final model and audits."""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+from sqlalchemy import select
+from sqlalchemy.orm import Session
+
+from service.store.models import (
+    Audit,
+    Candidate,
+    Dataset,
+    DatasetRegistration,
+    FinalModel,
+    Fold,
+    FoldScore,
+    Job,
+    JobCandidate,
+    JobFold,
+    WorkUnit,
+)
+
+
+def _when(moment: Any) -> str | None:
+    return moment.isoformat() if moment is not None else None
+
+
+def _dataset(session: Session, job: Job) -> dict[str, Any]:
+    dataset = session.scalars(select(Dataset).where(Dataset.content_hash == job.dataset_hash)).one()
+    teams = session.scalars(
+        select(DatasetRegistration.team)
+        .where(DatasetRegistration.content_hash == job.dataset_hash)
+        .order_by(DatasetRegistration.created_at)
+    )
+    return {
+        "content_hash": dataset.content_hash,
+        "n_rows": dataset.n_rows,
+        "n_columns": dataset.n_columns,
+        "origin": dataset.origin,
+        "registered_by": list(teams),
+        "stored_at": _when(dataset.created_at),
+    }
+
+
+def _candidates(session: Session, job_id: str) -> list[dict[str, Any]]:
+    rows = session.execute(
+        select(JobCandidate.position, Candidate)
+        .join(Candidate, Candidate.candidate_key == JobCandidate.candidate_key)
+        .where(JobCandidate.job_id == job_id)
+        .order_by(JobCandidate.position)
+    )
+    return [
+        {
+            "position": position,
+            "candidate_key": c.candidate_key,
+            "estimator": c.estimator,
+            "params": c.params,
+            "preprocess": c.preprocess,
+        }
+        for position, c in rows
+    ]
+
+
+def _folds(session: Session, job_id: str) -> list[dict[str, Any]]:
+    rows = session.execute(
+        select(JobFold, Fold)
+        .join(Fold, Fold.fingerprint == JobFold.fingerprint)
+        .where(JobFold.job_id == job_id)
+        .order_by(JobFold.role, JobFold.scope, JobFold.repeat, JobFold.fold_index)
+    )
+    return [
+        {
+            "fingerprint": jf.fingerprint,
+            "role": jf.role,
+            "scope": jf.scope,
+            "repeat": jf.repeat,
+            "fold": jf.fold_index,
+            "n_train": fold.n_train,
+            "n_test": fold.n_test,
+            "versions": fold.versions,
+        }
+        for jf, fold in rows
+    ]
+
+
+def _units(session: Session, job_id: str) -> list[dict[str, Any]]:
+    units = session.scalars(select(WorkUnit).where(WorkUnit.job_id == job_id).order_by(WorkUnit.id))
+    return [
+        {
+            "id": u.id,
+            "kind": u.kind,
+            "scope": u.scope,
+            "candidate_key": u.candidate_key,
+            "status": u.status,
+            "worker": u.worker,
+            "attempts": u.attempts,
+            "fits": u.fits,
+            "seconds": u.seconds,
+            "reused": u.reused,
+            "source_job_id": u.source_job_id,
+            "created_at": _when(u.created_at),
+            "started_at": _when(u.started_at),
+            "finished_at": _when(u.finished_at),
+        }
+        for u in units
+    ]
+
+
+def _score_summary(session: Session, job: Job) -> list[dict[str, Any]]:
+    """The job's scores grouped by who computed them: job, worker and versions."""
+    folds = select(JobFold.fingerprint).where(JobFold.job_id == job.id)
+    keys = select(JobCandidate.candidate_key).where(JobCandidate.job_id == job.id)
+    # versions are JSON, which neither store groups by portably: count them here
+    merged: dict[tuple[str, str, str], dict[str, Any]] = {}
+    counts = session.execute(
+        select(FoldScore.job_id, FoldScore.worker, FoldScore.versions).where(
+            FoldScore.dataset_hash == job.dataset_hash,
+            FoldScore.fold_fingerprint.in_(folds),
+            FoldScore.candidate_key.in_(keys),
+        )
+    )
+    for job_id, worker, versions in counts:
+        key = (job_id, worker, json.dumps(versions, sort_keys=True))
+        entry = merged.setdefault(
+            key, {"job_id": job_id, "worker": worker, "versions": versions, "scores": 0}
+        )
+        entry["scores"] += 1
+    return sorted(merged.values(), key=lambda e: (e["job_id"], e["worker"]))
+
+
+def _final_model(session: Session, job_id: str) -> dict[str, Any] | None:
+    model = session.get(FinalModel, job_id)
+    if model is None:
+        return None
+    return {
+        "candidate_key": model.candidate_key,
+        "sha256": model.sha256,
+        "path": model.path,
+        "size_bytes": model.size_bytes,
+        "inner_mean": model.inner_mean,
+        "stored_at": _when(model.created_at),
+    }
+
+
+def _audits(session: Session, job_id: str) -> list[dict[str, Any]]:
+    audits = session.scalars(select(Audit).where(Audit.job_id == job_id).order_by(Audit.created_at))
+    out = []
+    for audit in audits:
+        report = audit.report or {}
+        out.append(
+            {
+                "id": audit.id,
+                "status": audit.status,
+                "fraction": audit.fraction,
+                "seed": audit.seed,
+                "tolerance": audit.tolerance,
+                "created_at": _when(audit.created_at),
+                "finished_at": _when(audit.finished_at),
+                **{
+                    k: report.get(k)
+                    for k in ("scores_checked", "identical", "within_tolerance", "differing")
+                },
+            }
+        )
+    return out
+
+
+def provenance(session: Session, job: Job) -> dict[str, Any]:
+    """The whole trail of a job, as GET /v1/jobs/{id}/provenance shows it."""
+    return {
+        "job": {
+            "id": job.id,
+            "status": job.status,
+            "team": job.team,
+            "created_at": _when(job.created_at),
+            "started_at": _when(job.started_at),
+            "finished_at": _when(job.finished_at),
+        },
+        "dataset": _dataset(session, job),
+        "request": job.request,
+        "candidates": _candidates(session, job.id),
+        "folds": _folds(session, job.id),
+        "units": _units(session, job.id),
+        "fold_scores": _score_summary(session, job),
+        "final_model": _final_model(session, job.id),
+        "audits": _audits(session, job.id),
+    }
