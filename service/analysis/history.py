@@ -55,7 +55,8 @@ class DatasetHistory:
 def _point(job: Any) -> HistoryPoint:
     result = job.result if job.status == "succeeded" else None
     pick_by = mean = se = final = None
-    if result:
+    # a learning curve's parent has no single estimate or pick; it shows as a job without them
+    if result and "final_pick" in result and result.get("pick_by") in result.get("estimate", {}):
         pick_by = result["pick_by"]
         estimate = result["estimate"][pick_by]
         mean, se = float(estimate["mean"]), float(estimate["se"])

@@ -106,6 +106,9 @@ def _comparable(session: Session, principal: Principal, job_id: str) -> Job:
         raise BadInput(
             "jobs", f"job {job_id!r} is {job.status}; only succeeded jobs can be compared."
         )
+    if job.kind != "selection" or "outer" not in job.result:
+        # a learning curve's parent holds sizes, not outer folds; its children are selections
+        raise BadInput("jobs", f"job {job_id!r} is a {job.kind} job; compare two selection jobs.")
     return job
 
 
