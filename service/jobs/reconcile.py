@@ -15,9 +15,9 @@ from sqlalchemy import and_, func, or_, select, update
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
-from service.jobs.advance import advance_job
 from service.jobs.curves import settle_live_curves
 from service.jobs.execute import MAX_ATTEMPTS
+from service.jobs.reuse import start_if_settled
 from service.notify.outbox import queue_job_notice
 from service.store.db import utcnow
 from service.store.models import Job, WorkUnit
@@ -101,7 +101,11 @@ def _stalled(session: Session) -> list[str]:
     return list(
         session.scalars(
             select(Job.id).where(
-                Job.status == "running", Job.stage.in_(("inner", "outer")), open_units == 0
+                # queued with nothing open: every unit came from the store and the creator did
+                # not get to start it (reuse.start_if_settled)
+                Job.status.in_(("queued", "running")),
+                Job.stage.in_(("inner", "outer")),
+                open_units == 0,
             )
         )
     )
@@ -114,7 +118,7 @@ def reconcile(sessions: sessionmaker[Session], settings: Settings) -> Reconciled
     with sessions() as session:
         stalled = _stalled(session)
     for job_id in stalled:
-        advance_job(sessions, job_id, settings)
+        start_if_settled(sessions, job_id, settings)  # marks it running, then advance_job
     settle_live_curves(sessions)  # learning curves whose sizes ended without settling them
     with sessions() as session:
         republish = _lost(session, settings)

@@ -8,9 +8,12 @@ from typing import Any
 from sqlalchemy import delete, select
 from sqlalchemy.orm import Session, sessionmaker
 
+from service.auth import Principal
 from service.config import Settings, load_settings
 from service.jobs.embedded import run_embedded
-from service.store.models import FoldPrediction, FoldScore, JobCandidate, Pick, WorkUnit
+from service.jobs.reconcile import reconcile
+from service.jobs.service import submit_job
+from service.store.models import FoldPrediction, FoldScore, Job, JobCandidate, Pick, WorkUnit
 
 from .conftest import count_scores, make_request, with_grid
 
@@ -146,3 +149,25 @@ def test_reuse_false_recomputes_every_unit(
     _same_estimate(first.result, again.result)
     # existing rows stay; the recomputed copies collide with their keys and are not inserted
     assert count_scores(pg_sessions) == stored
+
+
+def test_the_reconciler_finishes_a_fully_reused_job_nobody_started(
+    pg_settings: Settings, pg_sessions: sessionmaker[Session]
+) -> None:
+    first = run_embedded(make_request(), settings=pg_settings)
+    # submitted as a service does, but the process "dies" before starting the settled job
+    with pg_sessions.begin() as session:
+        job_id = submit_job(
+            session,
+            make_request(),
+            principal=Principal("local", frozenset({"submit"})),
+            settings=pg_settings,
+        ).job.id
+    with pg_sessions() as session:
+        assert session.get_one(Job, job_id).status == "queued"
+    reconcile(pg_sessions, pg_settings)
+    with pg_sessions() as session:
+        job = session.get_one(Job, job_id)
+        assert job.status == "succeeded"
+        assert job.result is not None and job.result["work"]["fits"] == 0
+        assert job.result["outer"] == first.result["outer"]
