@@ -5,13 +5,16 @@ from __future__ import annotations
 import json
 import sys
 from pathlib import Path
-from typing import Annotated, Any, NoReturn
+from typing import Annotated, Any
 
 import typer
-from rich.console import Console
 
+from service.cli import analyst_cmd, workers_cmd
+from service.cli.audit_cmd import audit
 from service.cli.demo_cmd import demo
+from service.cli.output import fail, refuse, stderr, stdout
 from service.cli.server_cmd import serve, token_app
+from service.cli.webhook_cmd import webhook_secret
 from service.config import load_settings
 from service.errors import BadInput
 
@@ -25,20 +28,6 @@ dataset_app = typer.Typer(help="Registered tables.", no_args_is_help=True)
 db_app = typer.Typer(help="The store's schema.", no_args_is_help=True)
 app.add_typer(dataset_app, name="dataset")
 app.add_typer(db_app, name="db")
-
-# wide enough for the tables when piped to a file; a terminal sets its own width
-stdout = Console(width=None if sys.stdout.isatty() else 160)
-stderr = Console(stderr=True)
-
-
-def _refuse(exc: BadInput) -> NoReturn:
-    stderr.print(f"error: {exc}", markup=False, highlight=False, soft_wrap=True)
-    raise typer.Exit(2)
-
-
-def _fail(message: str) -> NoReturn:
-    stderr.print(f"failed: {message}", markup=False, highlight=False, soft_wrap=True)
-    raise typer.Exit(1)
 
 
 def _read_job_file(path: Path) -> Any:
@@ -71,7 +60,7 @@ def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path) -> None:
                 job, settings=settings, workers=workers, base_dir=base_dir, progress=progress
             )
     except JobFailed as exc:
-        _fail(str(exc))
+        fail(str(exc))
     if as_json:
         sys.stdout.write(json.dumps(outcome.result, allow_nan=False) + "\n")
     else:
@@ -93,9 +82,9 @@ def select(
     try:
         _select(_read_job_file(job_file), as_json=as_json, workers=workers, base_dir=Path.cwd())
     except BadInput as exc:
-        _refuse(exc)
+        refuse(exc)
     except KeyboardInterrupt:
-        _fail("interrupted; the job is marked cancelled.")
+        fail("interrupted; the job is marked cancelled.")
 
 
 @dataset_app.command("inspect")
@@ -110,7 +99,7 @@ def dataset_inspect(
     try:
         table = load_table(DatasetSource(path=str(path)), base_dir=Path.cwd())
     except BadInput as exc:
-        _refuse(BadInput("PATH", exc.message))
+        refuse(BadInput("PATH", exc.message))
     description = describe_table(table)
     if as_json:
         sys.stdout.write(json.dumps(description) + "\n")
@@ -128,26 +117,14 @@ def db_upgrade() -> None:
     stderr.print(f"store at {settings.database_url} is up to date", markup=False)
 
 
-# The server-side commands live in their own modules; main only registers them.
+# The other commands live in their own modules; main only registers them.
 app.command()(serve)
 app.command()(demo)
 app.add_typer(token_app, name="token")
-
-from service.cli import workers_cmd  # noqa: E402  (foldwise worker, foldwise beat)
-
 app.command()(workers_cmd.worker)
 app.command()(workers_cmd.beat)
-
-from service.cli.audit_cmd import audit  # noqa: E402  (foldwise audit)
-
 app.command()(audit)
-
-from service.cli.webhook_cmd import webhook_secret  # noqa: E402  (foldwise webhook-secret)
-
 app.command("webhook-secret")(webhook_secret)
-
-from service.cli import analyst_cmd  # noqa: E402  (login, jobs, result, scores, compare, report)
-
 for _command in analyst_cmd.COMMANDS:
     app.command()(_command)
 
