@@ -118,8 +118,12 @@ def test_a_flushed_broker_is_healed_by_the_reconciler(
         republished = session.scalars(
             select(WorkUnit.published_at).where(WorkUnit.id.in_(waiting))
         ).all()
-    # only the beat tick publishes after the flush: no message for these units survived it
-    assert all(at is not None and at > flushed_at for at in republished)
+    # only the beat tick publishes after the flush: no message in Redis survived it. Each of the
+    # two workers may already hold one message it took before the flush (prefetch 1) for a unit
+    # still queued in the store; those run without a second publish.
+    after = [at for at in republished if at is not None and at > flushed_at]
+    assert after, "no unit was published again after the flush"
+    assert len(waiting) - len(after) <= 2
     assert _score_rows(stack, job) == expected_scores(request, _candidates(stack, job_id))
     assert _duplicated_keys(stack) == []
 
