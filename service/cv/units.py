@@ -18,7 +18,7 @@ from sklearn.pipeline import Pipeline
 from service.cv.candidates import Candidate
 from service.cv.metrics import make_scorer_set
 from service.cv.plan import FINAL_SCOPE, SelectionPlan
-from service.cv.predictions import capture
+from service.cv.predictions import capture, score_stored
 from service.cv.preprocess import build_pipeline
 from service.cv.splits import Fold
 
@@ -72,10 +72,14 @@ def _fit_and_score_fold(
     # a fit that fails raises (scikit-learn's error_score="raise"): a failed unit keeps the text
     pipeline.fit(X.iloc[fold.train], y[fold.train])
     fitted = time.perf_counter()
-    scores = make_scorer_set(pipeline, metrics)(pipeline, X.iloc[fold.test], y[fold.test])
+    X_test, y_test = X.iloc[fold.test], y[fold.test]
+    # each response is computed once: kept so a later request can add a metric without a refit
+    # (service/cv/predictions.py), and handed to scikit-learn's own scorers from there
+    predictions = capture(pipeline, X_test, plan.spec.task)
+    scores = score_stored(predictions, y_test, metrics)
+    if scores is None:  # a scorer wants a response the model did not offer: let it say so
+        scores = make_scorer_set(pipeline, metrics)(pipeline, X_test, y_test)
     done = time.perf_counter()
-    # kept so a later request can add a metric without refitting (service/cv/predictions.py)
-    predictions = capture(pipeline, X.iloc[fold.test], plan.spec.task)
     return {
         "fingerprint": fold.fingerprint,
         "n_train": len(fold.train),
