@@ -34,6 +34,8 @@ test: lint $(CHROMIUM)
 bench: $(STAMP)
 	$(BIN)/python tests/benchmarks/bench_select.py
 	$(BIN)/python tests/benchmarks/bench_service.py
+	$(BIN)/python tests/benchmarks/bench_reuse.py
+	$(BIN)/python tests/benchmarks/bench_refresh.py
 
 clean:
 	rm -rf $(VENV) .foldwise .pytest_cache .mypy_cache .ruff_cache
