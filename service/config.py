@@ -8,8 +8,33 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field
 from datetime import timedelta
 from pathlib import Path
+from typing import Any
 
 from service.errors import BadInput
+
+# Only drivers whose one-statement rule foldwise relies on: psycopg 3 declares a server-side
+# cursor through the extended query protocol, and Python's sqlite3 runs one statement per call.
+_SQL_DRIVERS = {
+    "postgresql+psycopg": "postgresql+psycopg",
+    "postgresql": "postgresql+psycopg",
+    "sqlite": "sqlite",
+    "sqlite+pysqlite": "sqlite",
+}
+EVERY_TEAM = "*"
+
+
+@dataclass(frozen=True)
+class SqlConnection:
+    """A named database the operator lets sources read: its URL and the teams that may use it."""
+
+    url: str
+    # None: every team ("teams": "*"); empty: no team, only the local command line
+    teams: frozenset[str] | None = frozenset()
+
+    def usable_by(self, team: str | None) -> bool:
+        """Whether `team` may read it; team None is the local command line, which holds the
+        configuration itself."""
+        return team is None or self.teams is None or team in self.teams
 
 
 @dataclass(frozen=True)
@@ -34,9 +59,11 @@ class Settings:
     secret_key: str | None = None
     webhook_timeout: float = 5.0
     webhook_backoff: float = 5.0
-    # SQL sources: connection name -> SQLAlchemy URL, set by the operator, never by a request
-    sql_connections: Mapping[str, str] = field(default_factory=dict)
+    # SQL sources: connection name -> URL and the teams that may use it, set by the operator,
+    # never by a request; and the most rows and bytes of values one source may bring in
+    sql_connections: Mapping[str, SqlConnection] = field(default_factory=dict)
     sql_max_rows: int = 1_000_000
+    sql_max_bytes: int = 200 * 1024 * 1024
 
     @property
     def dataset_dir(self) -> Path:
@@ -87,7 +114,37 @@ def _number(env: dict[str, str], name: str, default: float) -> float:
     return value
 
 
-def _sql_connections(raw: str | None) -> dict[str, str]:
+def _sql_url(name: str, key: str, url: Any) -> str:
+    if not isinstance(url, str) or "://" not in url:
+        raise BadInput(
+            name, f"connection {key!r} needs a URL string such as postgresql+psycopg://..."
+        )
+    scheme, rest = url.split("://", 1)
+    if scheme not in _SQL_DRIVERS:
+        raise BadInput(
+            name,
+            f"connection {key!r} uses {scheme!r}; foldwise reads sql sources only from "
+            "postgresql+psycopg:// or sqlite:// URLs.",
+        )
+    return f"{_SQL_DRIVERS[scheme]}://{rest}"
+
+
+def _sql_connection(name: str, key: str, value: Any) -> SqlConnection:
+    if isinstance(value, str):  # the plain form names no team: usable from the command line only
+        return SqlConnection(_sql_url(name, key, value), frozenset())
+    if not isinstance(value, dict) or set(value) - {"url", "teams"} or "url" not in value:
+        raise BadInput(name, f'connection {key!r} must be a URL or {{"url": ..., "teams": [...]}}.')
+    teams = value.get("teams", [])
+    if teams == EVERY_TEAM:
+        return SqlConnection(_sql_url(name, key, value["url"]), None)
+    if not isinstance(teams, list) or not all(isinstance(t, str) and t.strip() for t in teams):
+        raise BadInput(
+            name, f'connection {key!r}: "teams" must be a list of team names, or "*" for all.'
+        )
+    return SqlConnection(_sql_url(name, key, value["url"]), frozenset(t.strip() for t in teams))
+
+
+def _sql_connections(raw: str | None) -> dict[str, SqlConnection]:
     name = "FOLDWISE_SQL_CONNECTIONS"
     if not raw or not raw.strip():
         return {}
@@ -101,11 +158,9 @@ def _sql_connections(raw: str | None) -> dict[str, str]:
         value = json.loads(text)
     except json.JSONDecodeError as exc:
         raise BadInput(name, f"is not valid JSON ({exc.msg}).") from None
-    if not isinstance(value, dict) or not all(
-        isinstance(k, str) and isinstance(v, str) for k, v in value.items()
-    ):
-        raise BadInput(name, "must be a JSON object of connection name to SQLAlchemy URL.")
-    return dict(value)
+    if not isinstance(value, dict):
+        raise BadInput(name, "must be a JSON object of connection name to URL (and teams).")
+    return {str(key): _sql_connection(name, str(key), item) for key, item in value.items()}
 
 
 def load_settings(env: dict[str, str] | None = None) -> Settings:
@@ -137,4 +192,5 @@ def load_settings(env: dict[str, str] | None = None) -> Settings:
         webhook_backoff=_number(env, "FOLDWISE_WEBHOOK_BACKOFF", 5),
         sql_connections=_sql_connections(env.get("FOLDWISE_SQL_CONNECTIONS")),
         sql_max_rows=int(_number(env, "FOLDWISE_SQL_MAX_ROWS", 1_000_000)),
+        sql_max_bytes=int(_number(env, "FOLDWISE_SQL_MAX_MB", 200) * 1024 * 1024),
     )

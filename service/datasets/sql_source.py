@@ -1,8 +1,10 @@
 """`{"sql": ...}` sources: a table or a query on a connection the operator configured by name.
 
-A request never carries a URL: it names a connection from FOLDWISE_SQL_CONNECTIONS. Table names
-are checked as (schema.)identifier and quoted by the dialect; queries run inside a read-only
-transaction (PostgreSQL refuses any write in it) with a row cap and a statement timeout.
+A request never carries a URL: it names a connection from FOLDWISE_SQL_CONNECTIONS that the
+caller's team is listed on. Table names are checked as (schema.)identifier and quoted by the
+dialect; a query runs as one statement (the driver refuses a second) inside a read-only
+transaction (PostgreSQL refuses any write in it), with a statement timeout, and its rows are
+counted against the row and byte caps while they are fetched.
 """
 
 from __future__ import annotations
@@ -15,12 +17,12 @@ from dataclasses import dataclass, field
 import pandas as pd
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 from sqlalchemy import Connection, Engine, create_engine, text
-from sqlalchemy.exc import SQLAlchemyError
 
+from service.config import Settings, SqlConnection
+from service.datasets.sql_fetch import DRIVER_ERRORS, STATEMENT_TIMEOUT_MS, read_rows
 from service.errors import BadInput
 
 _IDENTIFIER = re.compile(r"^[A-Za-z_][A-Za-z0-9_]{0,62}$")
-STATEMENT_TIMEOUT_MS = 120_000
 
 
 class SqlSource(BaseModel):
@@ -41,10 +43,22 @@ class SqlSource(BaseModel):
 
 @dataclass(frozen=True)
 class SqlAccess:
-    """What the operator allows: named connections and the most rows one source may return."""
+    """What the operator allows one caller: its usable connections and the caps of one source."""
 
-    connections: Mapping[str, str] = field(default_factory=dict)
+    connections: Mapping[str, SqlConnection] = field(default_factory=dict)
     max_rows: int = 1_000_000
+    max_bytes: int = 200 * 1024 * 1024
+    # the caller's team; None is the local command line, which holds the configuration itself
+    team: str | None = None
+
+    @classmethod
+    def for_team(cls, settings: Settings, team: str | None) -> SqlAccess:
+        """The operator's connections and caps, as `team` may use them."""
+        return cls(settings.sql_connections, settings.sql_max_rows, settings.sql_max_bytes, team)
+
+    def usable(self) -> dict[str, str]:
+        """Connection name -> URL, for the connections this caller's team may use."""
+        return {n: c.url for n, c in self.connections.items() if c.usable_by(self.team)}
 
 
 _engines: dict[str, Engine] = {}
@@ -87,13 +101,15 @@ def read_sql_source(
     source: SqlSource, access: SqlAccess, *, field: str
 ) -> tuple[pd.DataFrame, dict[str, str]]:
     """The rows of a sql source as a frame (not yet canonical) and its origin."""
-    url = access.connections.get(source.connection)
+    usable = access.usable()
+    url = usable.get(source.connection)
     if url is None:
-        known = ", ".join(sorted(access.connections)) or "none are configured"
+        # a connection the team may not use gets the same answer as one that does not exist
+        known = ", ".join(sorted(usable)) or "none are configured for your team"
         raise BadInput(
             f"{field}.connection",
             f"{source.connection!r} is not a configured SQL connection ({known}); the operator "
-            "names connections in FOLDWISE_SQL_CONNECTIONS.",
+            "names connections and their teams in FOLDWISE_SQL_CONNECTIONS.",
         )
     engine = _engine(url)
     inner_field = f"{field}.table" if source.table is not None else f"{field}.query"
@@ -102,32 +118,23 @@ def read_sql_source(
         with engine.connect() as connection:
             _read_only(connection)
             if source.table is not None:
-                inner = (
-                    f"SELECT * FROM {table_name_sql(source.table, connection, field=inner_field)}"
-                )
+                quoted = table_name_sql(source.table, connection, field=inner_field)
+                statement = f"SELECT * FROM {quoted}"
             else:
                 assert source.query is not None
-                inner = source.query.strip().rstrip(";")
-            # Wrapping keeps it one statement (a second one is a syntax error) and caps the rows:
-            # one more than the cap tells "too many" from "exactly the cap".
-            capped = f"SELECT * FROM ({inner}) AS foldwise_source LIMIT {access.max_rows + 1}"
-            result = connection.execute(text(capped))
-            columns = list(result.keys())
-            # coerce_float: NUMERIC arrives as Decimal, which must read as the number it is
-            frame = pd.DataFrame.from_records(result.fetchall(), columns=columns, coerce_float=True)
+                statement = source.query.strip().rstrip(";").rstrip()
+            # The statement is sent as the caller wrote it (never wrapped in a string a closing
+            # parenthesis could escape); the driver refuses a second statement, see read_rows.
+            columns, rows = read_rows(connection, statement, access, field=inner_field)
     except BadInput:
         raise
-    except SQLAlchemyError as exc:
+    except DRIVER_ERRORS as exc:
         reason = str(getattr(exc, "orig", None) or exc).strip().splitlines()[0]
         raise BadInput(
             inner_field, f"the database refused it ({reason}); check the name or the query."
         ) from None
-    if len(frame) > access.max_rows:
-        raise BadInput(
-            inner_field,
-            f"returns more than {access.max_rows} rows (FOLDWISE_SQL_MAX_ROWS); "
-            "select fewer rows in the query.",
-        )
+    # coerce_float: NUMERIC arrives as Decimal, which must read as the number it is
+    frame = pd.DataFrame.from_records(rows, columns=columns, coerce_float=True)
     origin = {"sql_connection": source.connection}
-    origin.update({"sql_table": source.table} if source.table else {"sql_query": inner})
+    origin.update({"sql_table": source.table} if source.table else {"sql_query": statement})
     return frame, origin

@@ -98,7 +98,12 @@ def _child_body(data: dict[str, Any], size: float) -> dict[str, Any]:
 
 
 def prepare_curve(
-    data: dict[str, Any], *, session: Session, settings: Settings, base_dir: Path
+    data: dict[str, Any],
+    *,
+    session: Session,
+    settings: Settings,
+    base_dir: Path,
+    team: str | None = None,
 ) -> PreparedCurve:
     """Parse and plan every size of a learning-curve request; raises BadInput, stores nothing."""
     if "train_fraction" in data:
@@ -108,7 +113,7 @@ def prepare_curve(
     sizes = check_sizes(data["sizes"])
     # planned once at full size first, so a problem of the request itself keeps its own field
     whole = prepare_job(
-        _child_body(data, 1.0), session=session, settings=settings, base_dir=base_dir
+        _child_body(data, 1.0), session=session, settings=settings, base_dir=base_dir, team=team
     )
     table = whole.table
     children = []
@@ -133,13 +138,17 @@ def without_selection_kind(data: Any) -> Any:
 
 
 def prepare_submission(
-    data: Any, *, session: Session, settings: Settings, base_dir: Path
+    data: Any, *, session: Session, settings: Settings, base_dir: Path, team: str | None = None
 ) -> PreparedJob | PreparedCurve:
-    """A selection job or a learning curve, whichever the body asks for."""
+    """A selection job or a learning curve, whichever the body asks for, for `team`."""
     if is_curve_request(data):
-        return prepare_curve(data, session=session, settings=settings, base_dir=base_dir)
+        return prepare_curve(data, session=session, settings=settings, base_dir=base_dir, team=team)
     return prepare_job(
-        without_selection_kind(data), session=session, settings=settings, base_dir=base_dir
+        without_selection_kind(data),
+        session=session,
+        settings=settings,
+        base_dir=base_dir,
+        team=team,
     )
 
 

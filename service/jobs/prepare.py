@@ -44,8 +44,10 @@ def _registered(session: Session, content_hash: str, settings: Settings) -> Load
     return LoadedTable(frame, kinds, content_hash, dict(dataset.origin))
 
 
-def prepare_job(data: Any, *, session: Session, settings: Settings, base_dir: Path) -> PreparedJob:
-    """Parse, load and plan a job request; raises BadInput with the field to fix."""
+def prepare_job(
+    data: Any, *, session: Session, settings: Settings, base_dir: Path, team: str | None = None
+) -> PreparedJob:
+    """Parse, load and plan a job request for `team` (None: the local command line)."""
     request = parse_job_request(data)
     if isinstance(request.dataset, str):
         table = _registered(session, request.dataset, settings)
@@ -54,7 +56,7 @@ def prepare_job(data: Any, *, session: Session, settings: Settings, base_dir: Pa
             request.dataset,
             base_dir=base_dir,
             data_roots=settings.data_roots,
-            sql=SqlAccess(settings.sql_connections, settings.sql_max_rows),
+            sql=SqlAccess.for_team(settings, team),
         )
     try:
         plan = build_plan(request.spec(), table.frame, dict(table.kinds))

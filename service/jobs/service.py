@@ -80,7 +80,11 @@ def submit_job(
     if isinstance(data, dict) and isinstance(data.get("dataset"), str):
         visible_dataset(session, data["dataset"], principal)
     prepared = prepare_submission(
-        data, session=session, settings=settings, base_dir=base_dir or settings.home
+        data,
+        session=session,
+        settings=settings,
+        base_dir=base_dir or settings.home,
+        team=principal.team,
     )
     if prepared.request.webhook is not None:
         check_webhook_target(prepared.request.webhook, settings, field="webhook")

@@ -55,10 +55,10 @@ def job_body(schedule: Schedule) -> dict[str, Any]:
     return {**schedule.template, "dataset": schedule.source}
 
 
-def _prepare(body: dict[str, Any], session: Session, settings: Settings) -> PreparedJob:
+def _prepare(body: dict[str, Any], session: Session, settings: Settings, team: str) -> PreparedJob:
     try:
         prepared = prepare_job(
-            body, session=session, settings=settings, base_dir=base_dir(settings)
+            body, session=session, settings=settings, base_dir=base_dir(settings), team=team
         )
     except BadInput as exc:
         # the template's fields are named as they sit in the schedule body
@@ -101,7 +101,7 @@ def create_schedule(
     if request.webhook is not None:
         check_webhook_target(request.webhook, settings, field="webhook")
     source = request.source.model_dump(exclude_none=True)
-    _prepare({**request.template, "dataset": source}, session, settings)
+    _prepare({**request.template, "dataset": source}, session, settings, principal.team)
     schedule = Schedule(
         id=uuid.uuid4().hex,
         team=principal.team,

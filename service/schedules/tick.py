@@ -117,7 +117,7 @@ def refresh_schedule(
             base_dir=base_dir(settings),
             data_roots=settings.data_roots,
             field="source",
-            sql=SqlAccess(settings.sql_connections, settings.sql_max_rows),
+            sql=SqlAccess.for_team(settings, schedule.team),
         )
     except BadInput as exc:
         refresh.error = f"the source could not be read: {exc}"

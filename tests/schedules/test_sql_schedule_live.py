@@ -50,7 +50,7 @@ def _wait(client: httpx.Client, sid: str, rid: int) -> dict[str, Any]:
 
 def test_sql_source_schedule(postgresql_url: str, tmp_path: Path) -> None:
     _insert(postgresql_url, 0, 90)
-    connections = json.dumps({"plant": postgresql_url})
+    connections = json.dumps({"plant": {"url": postgresql_url, "teams": ["plant"]}})
     with (
         running_server(
             tmp_path, tmp_path / "server.log", FOLDWISE_SQL_CONNECTIONS=connections

@@ -7,6 +7,7 @@ from pathlib import Path
 import pytest
 from sqlalchemy import create_engine, text
 
+from service.config import SqlConnection
 from service.datasets.sources import DatasetSource, load_table
 from service.datasets.sql_source import SqlAccess
 from service.errors import BadInput
@@ -41,7 +42,7 @@ def access(postgresql_url: str) -> SqlAccess:
         )
         connection.execute(text("CREATE SEQUENCE plant.counter"))
     engine.dispose()
-    return SqlAccess({"plant": postgresql_url}, max_rows=10)
+    return SqlAccess({"plant": SqlConnection(postgresql_url, None)}, max_rows=10)
 
 
 def _sql(access: SqlAccess, **sql: str) -> str:

@@ -80,7 +80,7 @@ def register_dataset(
 ) -> DatasetPublic:
     """Load, check and store the table, and register it for the caller's team."""
     # Loaded before the session is first used, so no transaction is open while a file is read.
-    table = service.load_source(source, settings)
+    table = service.load_source(source, settings, team=principal.team)
     created = service.store_table(session, table, team=principal.team, settings=settings)
     return _answer(session, table.content_hash, created, settings, response)
 

@@ -52,7 +52,7 @@ def check_shape(frame: pd.DataFrame, settings: Settings, *, field: str) -> None:
     )
 
 
-def load_source(source: DatasetSource, settings: Settings) -> LoadedTable:
+def load_source(source: DatasetSource, settings: Settings, *, team: str) -> LoadedTable:
     """Load a registration body's source, confined to the data roots and capped in size."""
     confine_path_source(
         source, settings, field="dataset", hint="upload the file to /v1/datasets/upload instead."
@@ -62,7 +62,7 @@ def load_source(source: DatasetSource, settings: Settings) -> LoadedTable:
         base_dir=server_base_dir(settings),
         data_roots=settings.data_roots,
         field="dataset",
-        sql=SqlAccess(settings.sql_connections, settings.sql_max_rows),
+        sql=SqlAccess.for_team(settings, team),
     )
     check_shape(table.frame, settings, field="dataset")
     return table
