@@ -21,6 +21,7 @@ from service.api.limits import BodyCap
 from service.api.problems import PROBLEM_MEDIA_TYPE, install_problem_handlers
 from service.api.schedules.router import router as schedules_router
 from service.config import Settings
+from service.datasets.sql_roles import start_role_check
 from service.dispatch.base import Dispatcher
 from service.errors import BadInput
 from service.jobs.request import JobRequest
@@ -92,6 +93,7 @@ def create_app(settings: Settings, *, local_workers: int | None = None) -> FastA
         engine = make_engine(settings.database_url)
         app.state.sessions = make_session_factory(engine)
         app.state.dispatcher = _open_dispatcher(settings, workers)
+        app.state.sql_roles = start_role_check(settings.sql_connections)
         try:
             yield
         finally:

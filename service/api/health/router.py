@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import logging
 
-from fastapi import APIRouter
+from fastapi import APIRouter, Request
 from fastapi.responses import PlainTextResponse
 from pydantic import BaseModel
 from sqlalchemy import text
@@ -61,9 +61,13 @@ def _ping_broker(url: str) -> None:
     summary="Readiness: the store answers, and the broker when one is configured",
     responses=problem_responses(503),
 )
-def readyz(sessions: SessionsDep, settings: SettingsDep) -> Health:
+def readyz(request: Request, sessions: SessionsDep, settings: SettingsDep) -> Health:
     """200 when every dependency answers; a 503 problem naming the one that does not."""
     checks: dict[str, str] = {}
+    roles = getattr(request.app.state, "sql_roles", None)
+    if settings.sql_connections and roles is not None:
+        # a warning, not unreadiness: the reads are confined either way (service/datasets/sql_*)
+        checks["sql_connections"] = roles.summary()
     try:
         with sessions() as session:
             session.execute(text("SELECT 1"))
