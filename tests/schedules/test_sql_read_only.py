@@ -7,6 +7,7 @@ SQLite: a file database with the same tables.
 
 from __future__ import annotations
 
+import json
 import sqlite3
 from collections.abc import Iterator
 from pathlib import Path
@@ -14,7 +15,7 @@ from pathlib import Path
 import pytest
 from sqlalchemy import create_engine, text
 
-from service.config import SqlConnection
+from service.config import SqlConnection, load_settings
 from service.datasets.sources import DatasetSource, load_table
 from service.datasets.sql_source import SqlAccess
 from service.errors import BadInput
@@ -198,3 +199,39 @@ def test_sqlite_reads_under_the_caps(lite: tuple[SqlAccess, Path]) -> None:
     assert "more than 1 MB of values (FOLDWISE_SQL_MAX_MB)" in problem.message
     # the authorizer is gone after the read: the connection's pool can be used as before
     assert _load(access, "lite", table="t")[0] == (1, 0)
+
+
+def test_connections_are_read_with_their_teams() -> None:
+    raw = json.dumps(
+        {
+            "a": {"url": "postgresql://u@h/db", "teams": ["t1", "t2"]},
+            "b": {"url": "sqlite:///x.sqlite", "teams": "*"},
+            "c": "postgresql+psycopg://u@h/db",
+        }
+    )
+    settings = load_settings({"FOLDWISE_SQL_CONNECTIONS": raw, "FOLDWISE_SQL_MAX_MB": "0.5"})
+    a, b, c = (settings.sql_connections[n] for n in "abc")
+    assert a.url == "postgresql+psycopg://u@h/db"  # the driver whose one-statement rule we use
+    assert a.usable_by("t1") and not a.usable_by("t3")
+    assert b.usable_by("anyone")
+    assert not c.usable_by("t1") and c.usable_by(None)  # None: the local command line
+    assert settings.sql_max_bytes == MB // 2
+    assert load_settings({}).sql_max_bytes == 200 * MB
+
+
+@pytest.mark.parametrize(
+    ("value", "words"),
+    [
+        ({"a": "mysql://u@h/db"}, "only from postgresql+psycopg:// or sqlite://"),
+        ({"a": "postgresql+psycopg2://u@h/db"}, "only from postgresql+psycopg:// or sqlite://"),
+        ({"a": {"url": "sqlite:///x", "teams": "t1"}}, '"teams" must be a list'),
+        ({"a": {"url": "sqlite:///x", "teams": [""]}}, '"teams" must be a list'),
+        ({"a": {"url": "sqlite:///x", "team": ["t1"]}}, "must be a URL or"),
+        ({"a": 3}, "must be a URL or"),
+    ],
+)
+def test_bad_connections_are_refused_at_start(value: object, words: str) -> None:
+    with pytest.raises(BadInput) as caught:
+        load_settings({"FOLDWISE_SQL_CONNECTIONS": json.dumps(value)})
+    assert caught.value.field == "FOLDWISE_SQL_CONNECTIONS"
+    assert words in caught.value.message
