@@ -8,6 +8,7 @@ A unit is one candidate over the folds of one scope:
 
 from __future__ import annotations
 
+import math
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -27,6 +28,38 @@ UnitKind = Literal["inner", "outer_refit", "final_refit"]
 
 class UnitCancelled(Exception):
     """Raised between fits when the caller's stop check says the job was cancelled."""
+
+
+class NonFiniteScore(ValueError):
+    """A fold score that came out NaN or infinite; the message names metric, candidate, fold."""
+
+
+def fold_name(plan: SelectionPlan, ref: UnitRef, fold: Fold) -> str:
+    """Which fold, in words: an outer fold, or an inner fold of an outer fold or of all rows."""
+    if ref.kind == "outer_refit":
+        return f"outer fold {fold.scope}"
+    where = "all rows" if ref.scope == FINAL_SCOPE else f"outer fold {ref.scope}"
+    return f"inner fold {fold.scope} of {where}"
+
+
+def check_finite(
+    scores: dict[str, float], plan: SelectionPlan, ref: UnitRef, fold: Fold
+) -> dict[str, float]:
+    """The scores if every one is a finite number; NonFiniteScore naming the first that is not."""
+    # The rule: a NaN or infinite fold score is never stored, and no mean is taken over it; the
+    # unit fails, and with it the job, because a pick or an estimate that skipped it would be
+    # computed over other folds than the ones the request fixed.
+    for metric, value in scores.items():
+        if not math.isfinite(value):
+            candidate = plan.candidate(ref.candidate_key)
+            rows = len(fold.test)
+            raise NonFiniteScore(
+                f"{metric} came out as {value} for candidate {candidate.estimator} "
+                f"{candidate.params} (key {candidate.key[:12]}) on {fold_name(plan, ref, fold)} "
+                f"({rows} test row{'' if rows == 1 else 's'}), so scikit-learn could not score "
+                "it there; give the test folds more rows (a smaller k) or pick another metric."
+            )
+    return scores
 
 
 @dataclass(frozen=True)
@@ -64,7 +97,7 @@ def inner_units(plan: SelectionPlan) -> list[UnitRef]:
 
 
 def _fit_and_score_fold(
-    candidate: Candidate, plan: SelectionPlan, fold: Fold, metrics: list[str]
+    candidate: Candidate, plan: SelectionPlan, ref: UnitRef, fold: Fold, metrics: list[str]
 ) -> dict[str, Any]:
     pipeline = build_pipeline(candidate, plan.table, plan.spec.task)
     X, y = plan.table.X, plan.y
@@ -79,6 +112,7 @@ def _fit_and_score_fold(
     scores = score_stored(predictions, y_test, metrics)
     if scores is None:  # a scorer wants a response the model did not offer: let it say so
         scores = make_scorer_set(pipeline, metrics)(pipeline, X_test, y_test)
+    check_finite(scores, plan, ref, fold)
     done = time.perf_counter()
     return {
         "fingerprint": fold.fingerprint,
@@ -108,5 +142,5 @@ def fit_and_score(
     for fold in unit_folds(plan, ref):
         if should_stop and should_stop():
             raise UnitCancelled(ref)
-        outcomes.append(_fit_and_score_fold(candidate, plan, fold, plan.spec.metrics))
+        outcomes.append(_fit_and_score_fold(candidate, plan, ref, fold, plan.spec.metrics))
     return UnitOutcome(ref, outcomes, len(outcomes), time.perf_counter() - started)

@@ -23,7 +23,13 @@ from sqlalchemy.orm import Session, sessionmaker
 from service.config import Settings
 from service.cv.plan import FINAL_SCOPE
 from service.cv.selection import pick
-from service.cv.units import UnitCancelled, UnitOutcome, UnitRef, fit_and_score
+from service.cv.units import (
+    NonFiniteScore,
+    UnitCancelled,
+    UnitOutcome,
+    UnitRef,
+    fit_and_score,
+)
 from service.jobs.plans import LoadedPlan, plan_for_job
 from service.jobs.scores import load_book
 from service.notify.outbox import queue_job_notice
@@ -238,6 +244,9 @@ def execute_unit(
     except UnitCancelled:
         _finish(sessions, unit_id, "cancelled", None)
         return UnitReport(unit_id, job_id, "cancelled")
+    except NonFiniteScore as exc:  # its sentence is the whole story: no traceback to read
+        _finish(sessions, unit_id, "failed", str(exc))
+        return UnitReport(unit_id, job_id, "failed")
     except Exception:
         _finish(sessions, unit_id, "failed", traceback.format_exc())
         return UnitReport(unit_id, job_id, "failed")

@@ -33,7 +33,7 @@ class Reconciled:
 
 
 def _give_up(session: Session) -> list[int]:
-    # a unit whose every attempt died (its lease ran out each time) is a poison unit
+    # a unit whose every attempt died (its lease ran out each time): a crash, said as one
     now = utcnow()
     dead = list(
         session.scalars(
@@ -47,19 +47,28 @@ def _give_up(session: Session) -> list[int]:
     for unit_id in dead:
         unit = session.get_one(WorkUnit, unit_id)
         unit.status, unit.finished_at = "failed", now
-        unit.error = f"gave up after {unit.attempts} attempts whose worker died or timed out"
+        # every claim ended with the lease running out and nothing recorded: the process died
+        # (a fit that raises, or the soft time limit, records its own failure instead)
+        unit.error = (
+            f"the worker process running unit {unit_id} ({unit.kind} {unit.scope}) died "
+            f"{unit.attempts} times (killed, out of memory, or stopped at the hard time limit "
+            f"FOLDWISE_UNIT_TIME_LIMIT), last on {unit.worker or 'an unknown worker'}; "
+            "see that machine's worker log."
+        )
         ended = session.scalar(
             update(Job)
             .where(Job.id == unit.job_id, Job.status.in_(("queued", "running")))
-            .values(
-                status="failed",
-                finished_at=now,
-                error=f"unit {unit_id} ({unit.kind} {unit.scope}): {unit.error}",
-            )
+            .values(status="failed", finished_at=now, error=unit.error)
             .returning(Job.id)
         )
         if ended is not None:  # this call made the job fail: its notice goes with it
             queue_job_notice(session, ended)
+        # the job cannot succeed any more: units not yet started need not start
+        session.execute(
+            update(WorkUnit)
+            .where(WorkUnit.job_id == unit.job_id, WorkUnit.status == "queued")
+            .values(status="cancelled")
+        )
     return dead
 
 

@@ -10,6 +10,7 @@ predictions; a final refit takes the model file of an earlier job with the same 
 
 from __future__ import annotations
 
+import math
 from collections import Counter
 from pathlib import Path
 from typing import Any
@@ -75,8 +76,10 @@ def _from_predictions(
         predictions = StoredPredictions.decode(stored.data, plan.spec.task, stored.classes)
         fold = folds[fingerprint]
         scores = score_stored(predictions, plan.y[fold.test], metrics)
-        if scores is None:
-            return None  # a metric needs a response these predictions do not have: refit
+        if scores is None or not all(math.isfinite(v) for v in scores.values()):
+            # a metric needs a response these predictions do not have, or is not a number
+            # there: refit, and let the unit say what failed (service/cv/units.check_finite)
+            return None
         sources[stored.job_id] += 1
         rows += [
             {
