@@ -86,8 +86,9 @@ def submit_job(
         base_dir=base_dir or settings.home,
         team=principal.team,
     )
-    if prepared.request.webhook is not None:
-        check_webhook_target(prepared.request.webhook, settings, field="webhook")
+    webhook = None
+    if prepared.request.webhook is not None:  # kept as it will be sent: parsed and normalised
+        webhook = check_webhook_target(prepared.request.webhook, settings, field="webhook")
     # the caps hold for every table a service caller names, not only for uploads
     check_table_size(
         prepared.table.frame,
@@ -100,7 +101,7 @@ def submit_job(
     )
     job = session.get_one(Job, job_id)
     job.team, job.request_hash = principal.team, body_hash
-    job.webhook_url = prepared.request.webhook
+    job.webhook_url = webhook
     register_dataset(session, prepared.table.content_hash, principal.team)
     session.flush()
     return Submitted(job, True)

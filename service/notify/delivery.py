@@ -17,7 +17,9 @@ from sqlalchemy import CursorResult, select, update
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
+from service.errors import BadInput
 from service.notify.signing import SIGNATURE_HEADER, body_bytes, signature, team_secret
+from service.notify.targets import check_webhook_target
 from service.store.db import utcnow
 from service.store.models import WebhookDelivery
 
@@ -59,7 +61,7 @@ def _post(
     headers = {"Content-Type": "application/json", SIGNATURE_HEADER: sig}
     try:
         answer = client.post(url, content=payload, headers=headers)
-    except httpx.HTTPError as exc:
+    except (httpx.HTTPError, httpx.InvalidURL) as exc:
         return None, f"{type(exc).__name__}: {exc}"
     if 200 <= answer.status_code < 300:
         return answer.status_code, None
@@ -89,22 +91,56 @@ def deliver_due(
     delivered = retried = gave_up = 0
     with httpx.Client(timeout=settings.webhook_timeout, follow_redirects=False) as client:
         for delivery_id, team, url, body in mine:
-            payload = body_bytes(body)
-            sig = signature(team_secret(settings.secret_key, team), payload)
-            status, error = _post(client, url, payload, sig)
-            with sessions.begin() as session:
-                row = session.get_one(WebhookDelivery, delivery_id)
-                row.attempts += 1
-                row.last_status, row.last_error = status, error
-                if error is None:
-                    row.status, row.delivered_at, row.next_attempt_at = "delivered", utcnow(), None
-                    delivered += 1
-                elif row.attempts >= MAX_ATTEMPTS:
-                    row.status, row.next_attempt_at = "failed", None
-                    gave_up += 1
-                else:
-                    row.next_attempt_at = now + backoff(settings, row.attempts)
-                    retried += 1
-            if error is not None:
-                log.warning("webhook %s to %s failed: %s", delivery_id, url, error)
+            # one row's trouble (a URL no request could send, a store hiccup) is recorded on that
+            # row and never keeps the others of this tick from going out
+            try:
+                outcome = _attempt(sessions, settings, client, delivery_id, team, url, body, now)
+            except Exception:
+                log.exception("webhook %s could not be attempted", delivery_id)
+                continue
+            delivered += outcome == "delivered"
+            retried += outcome == "retried"
+            gave_up += outcome == "failed"
     return DeliveryReport(delivered, retried, gave_up)
+
+
+def _attempt(
+    sessions: sessionmaker[Session],
+    settings: Settings,
+    client: httpx.Client,
+    delivery_id: int,
+    team: str,
+    url: str,
+    body: Any,
+    now: datetime,
+) -> str:
+    assert settings.secret_key is not None  # deliver_due sends nothing without it
+    final = False
+    status: int | None
+    error: str | None
+    try:
+        # checked again as it is sent: a row may predate a rule, or the operator may have
+        # removed its prefix since; such a URL never becomes sendable, so no retry
+        target = check_webhook_target(url, settings, field="url")
+    except BadInput as exc:
+        status, error, final = None, f"not sent: the URL {exc.message}", True
+    else:
+        payload = body_bytes(body)
+        sig = signature(team_secret(settings.secret_key, team), payload)
+        status, error = _post(client, target, payload, sig)
+    with sessions.begin() as session:
+        row = session.get_one(WebhookDelivery, delivery_id)
+        row.attempts += 1
+        row.last_status, row.last_error = status, error
+        if error is None:
+            row.status, row.delivered_at, row.next_attempt_at = "delivered", utcnow(), None
+            outcome = "delivered"
+        elif final or row.attempts >= MAX_ATTEMPTS:
+            row.status, row.next_attempt_at = "failed", None
+            outcome = "failed"
+        else:
+            row.next_attempt_at = now + backoff(settings, row.attempts)
+            outcome = "retried"
+    if error is not None:
+        log.warning("webhook %s to %r failed: %s", delivery_id, url, error)
+    return outcome

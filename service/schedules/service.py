@@ -98,8 +98,9 @@ def create_schedule(
         )
     cron = parse_cron(request.cron)
     tz = zone(request.timezone)
-    if request.webhook is not None:
-        check_webhook_target(request.webhook, settings, field="webhook")
+    webhook = None
+    if request.webhook is not None:  # kept as it will be sent: parsed and normalised
+        webhook = check_webhook_target(request.webhook, settings, field="webhook")
     source = request.source.model_dump(exclude_none=True)
     _prepare({**request.template, "dataset": source}, session, settings, principal.team)
     schedule = Schedule(
@@ -110,7 +111,7 @@ def create_schedule(
         cron=cron.text,
         timezone=request.timezone,
         threshold=request.threshold,
-        webhook_url=request.webhook,
+        webhook_url=webhook,
         next_due_at=next_after(cron, utcnow(), tz),
     )
     session.add(schedule)
