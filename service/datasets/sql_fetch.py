@@ -7,15 +7,17 @@ one SQL statement" (PostgreSQL manual, Message Flow, Extended Query); and `DECLA
 accepts only a SELECT or VALUES. Python's sqlite3 refuses a second statement in one `execute`
 ("You can only execute one statement at a time"), and an authorizer lets a statement read only.
 
-Rows come in batches sized so that a batch of rows as large as the largest seen so far still
-fits in what is left of the byte cap: the caps hold while fetching, not after.
+Rows are counted one at a time as they arrive (PostgreSQL: FETCH in libpq's single-row mode;
+SQLite: one step per row), so the caps hold while fetching, not after: at most one row past a cap
+is ever read, and a row cannot be larger than PostgreSQL's 1 GB field limit.
 """
 
 from __future__ import annotations
 
 import sqlite3
 import time
-from typing import Any
+from collections.abc import Generator, Iterator
+from typing import Any, cast
 
 import psycopg
 from sqlalchemy import Connection
@@ -24,8 +26,7 @@ from sqlalchemy.exc import SQLAlchemyError
 from service.errors import BadInput
 
 STATEMENT_TIMEOUT_MS = 120_000
-# the most rows one FETCH asks for; fewer when rows are large (see _batch)
-FETCH_ROWS = 5_000
+CURSOR = "foldwise_source"
 # what one number, date or boolean is counted as; text and bytes count their length
 SCALAR_BYTES = 8
 DRIVER_ERRORS = (SQLAlchemyError, psycopg.Error, sqlite3.Error)
@@ -62,40 +63,44 @@ def _too_many_bytes(max_bytes: int) -> str:
     )
 
 
-def _fetch(cursor: Any, *, max_rows: int, max_bytes: int, field: str) -> list[tuple[Any, ...]]:
-    rows: list[tuple[Any, ...]] = []
-    used, largest = 0, 1
+def _collect(
+    rows: Iterator[Any], *, max_rows: int, max_bytes: int, field: str
+) -> list[tuple[Any, ...]]:
+    kept: list[tuple[Any, ...]] = []
+    used = 0
     deadline = time.monotonic() + STATEMENT_TIMEOUT_MS / 1000
-    while True:
-        # one more row than the cap tells "too many" from "exactly the cap"
-        batch = max(1, min(FETCH_ROWS, (max_bytes - used) // largest, max_rows + 1 - len(rows)))
-        chunk = cursor.fetchmany(batch)
-        if not chunk:
-            return rows
-        for row in chunk:
-            size = row_bytes(row)
-            used, largest = used + size, max(largest, size)
+    for row in rows:
+        used += row_bytes(row)
         if used > max_bytes:
             raise BadInput(field, _too_many_bytes(max_bytes))
-        rows.extend(tuple(row) for row in chunk)
-        if len(rows) > max_rows:
+        kept.append(tuple(row))
+        if len(kept) > max_rows:
             raise BadInput(field, _too_many_rows(max_rows))
-        # each FETCH has its own statement timeout: the whole read is held to one as well
-        if time.monotonic() > deadline:
+        # the statement timeout covers the DECLARE and the FETCH; this covers the reading too
+        if len(kept) % 1000 == 0 and time.monotonic() > deadline:
             raise BadInput(
                 field,
                 f"took longer than {STATEMENT_TIMEOUT_MS // 1000} s to read; select fewer rows.",
             )
+    return kept
 
 
 def _read_postgresql(
     driver: psycopg.Connection[Any], statement: str, max_rows: int, max_bytes: int, field: str
 ) -> tuple[list[str], list[tuple[Any, ...]]]:
-    # a named cursor: DECLARE via the extended protocol (one statement only), FETCH in batches
-    with driver.cursor(name="foldwise_source") as cursor:
-        cursor.execute(statement)
-        columns = [column.name for column in cursor.description or []]
-        return columns, _fetch(cursor, max_rows=max_rows, max_bytes=max_bytes, field=field)
+    # DECLARE through the extended protocol: one statement, and only a SELECT or VALUES
+    with driver.cursor(name=CURSOR) as declared:
+        declared.execute(statement)
+        columns = [column.name for column in declared.description or []]
+        # then FETCH in single-row mode: each row is counted as it arrives, and leaving early
+        # cancels the rest (psycopg's Cursor.stream), so at most one row past a cap is held
+        with driver.cursor() as reader:
+            fetch = f"FETCH FORWARD {max_rows + 1} FROM {CURSOR}"  # one past the cap: "too many"
+            rows = cast(Generator[Any, None, None], reader.stream(fetch))
+            try:
+                return columns, _collect(rows, max_rows=max_rows, max_bytes=max_bytes, field=field)
+            finally:
+                rows.close()
 
 
 def _only_reads(action: int, *_: Any) -> int:
@@ -114,7 +119,9 @@ def _read_sqlite(
         try:
             cursor.execute(statement)
             columns = [column[0] for column in cursor.description or []]
-            return columns, _fetch(cursor, max_rows=max_rows, max_bytes=max_bytes, field=field)
+            # sqlite3 steps one row at a time as the cursor is iterated
+            rows = iter(cursor)
+            return columns, _collect(rows, max_rows=max_rows, max_bytes=max_bytes, field=field)
         finally:
             cursor.close()
     finally:
