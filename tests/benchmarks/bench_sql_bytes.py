@@ -21,8 +21,8 @@ from pathlib import Path
 import psycopg
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
-from api.server import running_server  # noqa: E402
-from conftest import PG_ADMIN, PG_URL  # noqa: E402
+from api.server import running_server
+from conftest import PG_ADMIN, PG_URL
 
 QUERY = "SELECT repeat('x', 10000000) AS wide, n % 2 AS y FROM generate_series(1, 30) AS n"
 
@@ -71,14 +71,17 @@ def main() -> None:
             pid = _server_pid(live.base_url.rsplit(":", 1)[1])
             before = _memory_mb(pid)
             started = time.monotonic()
-            answer = client.post("/v1/datasets", json={"sql": {"connection": "src", "query": QUERY}})
+            source = {"sql": {"connection": "src", "query": QUERY}}
+            answer = client.post("/v1/datasets", json=source)
             seconds = time.monotonic() - started
             time.sleep(1)
             after = _memory_mb(pid)
             print(f"FOLDWISE_SQL_MAX_MB={args.mb}: HTTP {answer.status_code} in {seconds:.1f} s")
             print(f"  {answer.json().get('detail', '')}")
-            print(f"  API resident memory before {before['VmRSS']:.0f} MB, after {after['VmRSS']:.0f}")
-            print(f"  MB, peak {after['VmHWM']:.0f} MB")
+            print(
+                f"  API resident memory: before {before['VmRSS']:.0f} MB, "
+                f"after {after['VmRSS']:.0f} MB, peak {after['VmHWM']:.0f} MB"
+            )
     finally:
         with psycopg.connect(PG_ADMIN, autocommit=True) as admin:
             admin.execute(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
