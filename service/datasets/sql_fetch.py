@@ -130,14 +130,14 @@ def _read_sqlite(
 
 
 def read_rows(
-    connection: Connection, statement: str, access: Any, *, field: str
+    connection: Connection, statement: str, *, max_rows: int, max_bytes: int, field: str
 ) -> tuple[list[str], list[tuple[Any, ...]]]:
     """Column names and rows of one statement, in the connection's (read-only) transaction."""
     driver = connection.connection.driver_connection
     dialect = connection.dialect.name
     if dialect == "postgresql" and isinstance(driver, psycopg.Connection):
-        return _read_postgresql(driver, statement, access.max_rows, access.max_bytes, field)
+        return _read_postgresql(driver, statement, max_rows, max_bytes, field)
     if dialect == "sqlite" and isinstance(driver, sqlite3.Connection):
-        return _read_sqlite(driver, statement, access.max_rows, access.max_bytes, field)
+        return _read_sqlite(driver, statement, max_rows, max_bytes, field)
     # configuration admits only these two drivers; anything else is refused, not guessed at
     raise BadInput(field, f"sql sources cannot be read through the {dialect} driver here.")

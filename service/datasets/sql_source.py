@@ -10,13 +10,17 @@ counted against the row and byte caps while they are fetched.
 from __future__ import annotations
 
 import re
+import sqlite3
 import threading
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from pathlib import Path
+from urllib.parse import quote
 
 import pandas as pd
 from pydantic import BaseModel, ConfigDict, Field, model_validator
-from sqlalchemy import Connection, Engine, create_engine, text
+from sqlalchemy import Connection, Engine, create_engine, make_url, text
+from sqlalchemy.pool import QueuePool
 
 from service.config import Settings, SqlConnection
 from service.datasets.sql_fetch import DRIVER_ERRORS, STATEMENT_TIMEOUT_MS, read_rows
@@ -66,11 +70,23 @@ _engines_lock = threading.Lock()
 
 
 def _engine(url: str) -> Engine:
-    # One small pool per configured URL and process; pre-ping because sources are read rarely.
+    # One small pool per configured URL and process.
     with _engines_lock:
         if url not in _engines:
-            # no pre-ping: its probe would open the transaction that SET TRANSACTION must start
-            _engines[url] = create_engine(url, pool_size=2, max_overflow=2)
+            database = make_url(url).database
+            if url.startswith("sqlite") and database and database != ":memory:":
+                # opened read-only by SQLite itself: a missing file is an error, never created
+                uri = f"file:{quote(str(Path(database).resolve()))}?mode=ro"
+                _engines[url] = create_engine(
+                    "sqlite://",
+                    creator=lambda: sqlite3.connect(uri, uri=True, check_same_thread=False),
+                    poolclass=QueuePool,
+                    pool_size=2,
+                    max_overflow=2,
+                )
+            else:
+                # no pre-ping: its probe would open the transaction SET TRANSACTION must start
+                _engines[url] = create_engine(url, pool_size=2, max_overflow=2)
         return _engines[url]
 
 
@@ -125,7 +141,13 @@ def read_sql_source(
                 statement = source.query.strip().rstrip(";").rstrip()
             # The statement is sent as the caller wrote it (never wrapped in a string a closing
             # parenthesis could escape); the driver refuses a second statement, see read_rows.
-            columns, rows = read_rows(connection, statement, access, field=inner_field)
+            columns, rows = read_rows(
+                connection,
+                statement,
+                max_rows=access.max_rows,
+                max_bytes=access.max_bytes,
+                field=inner_field,
+            )
     except BadInput:
         raise
     except DRIVER_ERRORS as exc:

@@ -188,6 +188,15 @@ def test_sqlite_refuses_writes_and_second_statements(
     assert names == {"t", "victim"}
 
 
+def test_a_missing_sqlite_file_is_refused_not_created(lite: tuple[SqlAccess, Path]) -> None:
+    _, path = lite
+    missing = path.with_name("missing.sqlite")
+    connections = {"gone": SqlConnection(f"sqlite:///{missing}", None)}
+    problem = _refused(SqlAccess(connections, team="teamA"), "gone", table="t")
+    assert "unable to open database file" in problem.message
+    assert not missing.exists()  # opened read-only (mode=ro): SQLite creates nothing
+
+
 def test_sqlite_reads_under_the_caps(lite: tuple[SqlAccess, Path]) -> None:
     access, _ = lite
     assert _load(access, "lite", query="SELECT a, y FROM t ORDER BY a;") == [(1, 0), (2, 1), (3, 0)]
