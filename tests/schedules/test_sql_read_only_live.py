@@ -43,6 +43,10 @@ def _setup_source(name: str, reader: str) -> None:
         db.execute("CREATE TABLE t (a double precision, y integer)")
         db.execute("INSERT INTO t SELECT n * 0.5 + (n % 2), n % 2 FROM generate_series(1, 60) AS n")
         db.execute("CREATE TABLE victim (v integer)")
+        db.execute(
+            "CREATE FUNCTION scribble() RETURNS integer LANGUAGE sql AS "
+            "$$ INSERT INTO victim VALUES (77) RETURNING v $$"
+        )
         # the reader's role may only read t: the start-up check must not warn about it
         db.execute(f'GRANT SELECT ON t TO "{reader}"')
 
@@ -126,6 +130,24 @@ def test_the_escape_is_a_422_on_every_route_and_writes_nothing(live: Live, conne
     assert "the database refused it" in _problem(schedule, "source.sql.query")
     assert _victims(live) == ([], [])
     assert live.server.snapshot() == before
+
+
+@pytest.mark.parametrize(
+    "query",
+    [
+        "SELECT 1 AS a; DROP TABLE victim",
+        "CREATE TABLE made_here (a integer)",
+        "SELECT scribble() AS a, 1 AS y",  # a function that writes
+    ],
+)
+def test_other_writes_are_422s_and_write_nothing(live: Live, query: str) -> None:
+    with live.server.client(live.server.token("teamA")) as client:
+        answer = client.post("/v1/jobs", json=_job("src", query=query))
+    assert "the database refused it" in _problem(answer, "dataset.sql.query")
+    assert _victims(live) == ([], [])
+    with psycopg.connect(live.url.replace("postgresql+psycopg", "postgresql")) as db:
+        tables = {row[0] for row in db.execute("SELECT tablename FROM pg_tables")}
+    assert {"t", "victim"} <= tables and "made_here" not in tables
 
 
 def test_a_team_not_listed_is_told_what_an_unknown_connection_is_told(live: Live) -> None:
