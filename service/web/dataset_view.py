@@ -141,7 +141,7 @@ def _history_chart(group: Group, refresh_of: dict[str, str], with_year: bool) ->
         note = f"refresh by a schedule: {refresh_of[p.job_id]}" if p.job_id in refresh_of else ""
         if not note and p.schedule_id:
             note = "refresh by a schedule"
-        points.append(svg.Point(label, p.mean or 0.0, 1, note))
+        points.append(svg.Point(label, p.mean or 0.0, 1, note, p.job_id))
     return svg.line_chart(
         [(f"{group.n_candidates} candidates, {group.metric}", points)],
         labels,

@@ -128,6 +128,7 @@ class Point:
     y: float
     n: int
     note: str = ""
+    ref: str = ""  # the job a history point stands for
 
 
 def _x_marks(
@@ -211,6 +212,7 @@ def line_chart(
         )
         for cx, cy, p in coords:
             marked = f' data-note="{_attr(p.note)}"' if p.note else ""
+            marked += f' data-job="{_attr(p.ref)}"' if p.ref else ""
             ring = (
                 f'<circle cx="{cx:.1f}" cy="{cy:.1f}" r="8" fill="none" stroke="{INK}" '
                 'stroke-width="2"/>'
