@@ -100,7 +100,7 @@ def dataset_page(session: Session, content_hash: str, principal: Principal) -> d
         "title": f"dataset {content_hash[:12]}",
         "content_hash": content_hash,
         "dataset": dataset,
-        "name": table_name(dict(dataset.origin or {})),
+        "table_name": table_name(dict(dataset.origin or {})),
         "targets": targets,
         "jobs": rows,
         "charts": charts,
