@@ -14,10 +14,12 @@ from service.web.ticks import fit_label, short
 # from warm paper to deep teal: one hue, so the order of cells reads at a glance
 _LIGHT, _DARK = (0xF3, 0xEF, 0xE6), (0x1F, 0x55, 0x5A)
 _WHITE = (0xFF, 0xFF, 0xFF)
-_INK_RGB = (0x1D, 0x24, 0x33)
+# black or white on any fill gives at least 4.58:1, above WCAG AA's 4.5:1 for small text
+_INK_RGB = (0x00, 0x00, 0x00)
 
 
-def _mix(share: float) -> tuple[int, int, int]:
+def cell_fill(share: float) -> tuple[int, int, int]:
+    """The colour of a cell at `share` of the way from the lowest value to the highest."""
     r, g, b = (round(a + (z - a) * share) for a, z in zip(_LIGHT, _DARK, strict=True))
     return r, g, b
 
@@ -36,14 +38,14 @@ def _luminance(rgb: tuple[int, int, int]) -> float:
     return 0.2126 * r + 0.7152 * g + 0.0722 * b
 
 
-def _contrast(a: tuple[int, int, int], b: tuple[int, int, int]) -> float:
+def contrast(a: tuple[int, int, int], b: tuple[int, int, int]) -> float:
     hi, lo = sorted((_luminance(a), _luminance(b)), reverse=True)
     return (hi + 0.05) / (lo + 0.05)
 
 
 def readable_ink(fill: tuple[int, int, int]) -> str:
-    """Dark ink or white, whichever contrasts more with the cell's fill (WCAG ratio)."""
-    return "#ffffff" if _contrast(fill, _WHITE) > _contrast(fill, _INK_RGB) else _hex(_INK_RGB)
+    """Black or white, whichever contrasts more with the cell's fill (WCAG ratio)."""
+    return "#ffffff" if contrast(fill, _WHITE) > contrast(fill, _INK_RGB) else _hex(_INK_RGB)
 
 
 def shown(label: str) -> str:
@@ -106,7 +108,7 @@ def heat_map(
                 continue
             value, n = cells[(row, col)]
             share = 0.5 if high == low else (value - low) / (high - low)
-            fill = _mix(share)
+            fill = cell_fill(share)
             x = left + cell_w * j
             parts.append(
                 f'<rect data-kind="heat-cell" data-n="{n}" data-value="{value!r}" '

@@ -7,6 +7,8 @@ import math
 
 import pytest
 
+from service.web.svg import Point, line_chart
+from service.web.svg_grid import cell_fill, contrast, readable_ink
 from service.web.ticks import (
     fit_label,
     linear_axis,
@@ -135,3 +137,34 @@ def test_labels_wrap_and_are_abbreviated_only_when_they_must() -> None:
     cut = fit_label("KNeighborsClassifier(n_neighbors=15, weights=distance, p=2)", 24)
     assert len(cut) == 2 and cut[-1].endswith("…")
     assert all(len(line) <= 24 for line in cut)
+
+
+def test_heat_map_values_keep_wcag_contrast_on_every_fill() -> None:
+    """The value printed in a cell contrasts at least 4.5:1 with its fill (WCAG 2 AA)."""
+    for step in range(101):
+        fill = cell_fill(step / 100)
+        ink = readable_ink(fill)
+        rgb = tuple(int(ink[i : i + 2], 16) for i in (1, 3, 5))
+        assert contrast(fill, rgb) >= 4.5, (step, fill, ink)  # type: ignore[arg-type]
+
+
+def test_a_refresh_point_is_ringed_and_says_so() -> None:
+    """A job run by a schedule carries its note and a ring; other points have neither."""
+    points = [
+        Point("Dec 01\n03:00", 0.91, 1, ref="a"),
+        Point("Dec 02\n03:00", 0.88, 1, "refresh by a schedule: degraded", "b"),
+    ]
+    markup = str(
+        line_chart(
+            [("3 candidates, accuracy", points)],
+            [p.x for p in points],
+            label="history",
+            kind="history-point",
+            y_title="nested accuracy",
+            bounds=metric_bounds("accuracy"),
+        )
+    )
+    assert markup.count('data-note="refresh by a schedule: degraded"') == 1
+    assert markup.count('r="8"') == 1
+    assert 'data-job="a"' in markup and 'data-job="b"' in markup
+    assert "refresh by a schedule: degraded</title>" in markup
