@@ -11,9 +11,11 @@ from urllib.parse import quote
 from fastapi import APIRouter, Form, Query, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from jinja2 import Environment, FileSystemLoader, select_autoescape
+from sqlalchemy import select
 
 from service.api.deps import SessionsDep
 from service.jobs.service import NotFound, get_job, job_query
+from service.store.models import Dataset
 from service.web import dataset_view, views
 from service.web.compare_view import compare_page
 from service.web.job_state import REFRESH_SECONDS
@@ -161,7 +163,12 @@ def home(request: Request, sessions: SessionsDep) -> Response:
         return _to_sign_in(request)
     with sessions() as session:
         jobs = list(session.scalars(job_query(reader.principal).limit(50)))
-        return _page("home.html", title="Jobs", jobs=jobs, reader=reader)
+        hashes = {job.dataset_hash for job in jobs}
+        origins = session.execute(
+            select(Dataset.content_hash, Dataset.origin).where(Dataset.content_hash.in_(hashes))
+        )
+        names = {h: dataset_view.table_name(dict(o or {})) for h, o in origins}
+        return _page("home.html", title="Jobs", jobs=jobs, names=names, reader=reader)
 
 
 @router.get("/jobs/{job_id}")
