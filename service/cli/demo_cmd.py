@@ -27,6 +27,8 @@ DEMO_DIR = Path(__file__).resolve().parents[2] / "demo_data"
 TABLE = DEMO_DIR / "pump_failures.csv"
 JOB = DEMO_DIR / "pump_job.json"
 START_SECONDS = 60.0
+# the port `foldwise demo` serves on unless told otherwise, so the printed address stays the same
+DEFAULT_PORT = 8765
 # A quiet line every so often when stderr is not a terminal (a CI log, a pipe).
 LINE_SECONDS = 5.0
 
@@ -111,10 +113,40 @@ def _follow(
         time.sleep(0.5)
 
 
+def _port_free(port: int) -> bool:
+    with socket.socket() as probe:
+        try:
+            probe.bind(("127.0.0.1", port))
+        except OSError:
+            return False
+        return True
+
+
+def _wait_for_interrupt(base: str) -> None:
+    """Keep the server up until Ctrl-C, with the pages' address and a token to sign in with."""
+    stderr.print(f"Serving the report pages at {base}/reports/ until Ctrl-C.", markup=False)
+    try:
+        while True:
+            time.sleep(3600)
+    except KeyboardInterrupt:
+        stderr.print("Stopping the server.", markup=False)
+
+
 def demo(
     workers: Annotated[int, typer.Option(help="Local worker processes of the server.")] = min(
         2, os.cpu_count() or 1
     ),
+    keep: Annotated[
+        bool | None,
+        typer.Option(
+            "--keep/--no-keep",
+            help="Keep serving the report pages until Ctrl-C (default: when stdout is a terminal).",
+        ),
+    ] = None,
+    port: Annotated[
+        int | None,
+        typer.Option(help=f"Port of the server (default {DEFAULT_PORT} when keeping it)."),
+    ] = None,
 ) -> None:
     """The invented pump-failure scenario end to end through the REST API of a local server."""
     import httpx
@@ -122,9 +154,18 @@ def demo(
     from service.cli.progress import unit_progress
     from service.cli.render import print_result
 
+    keeping = sys.stdout.isatty() if keep is None else keep
     try:
         if workers < 1:
             raise BadInput("--workers", "must be at least 1.")
+        if port is not None and not 1 <= port <= 65535:
+            raise BadInput("--port", "must be a TCP port between 1 and 65535.")
+        # a run that stops by itself (CI, a pipe) takes any free port unless one is asked for
+        chosen = port if port is not None else (DEFAULT_PORT if keeping else free_port())
+        if not _port_free(chosen):
+            raise BadInput(
+                "--port", f"port {chosen} is already in use on 127.0.0.1; pass another --port."
+            )
         settings = load_settings()
         request = json.loads(JOB.read_text(encoding="utf-8"))
     except BadInput as exc:
@@ -135,8 +176,7 @@ def demo(
         markup=False,
     )
     token = _demo_token(settings)
-    port = free_port()
-    with running_server(port, workers, settings.home / "demo-server.log") as base:
+    with running_server(chosen, workers, settings.home / "demo-server.log") as base:
         headers = {"Authorization": f"Bearer {token}"}
         with httpx.Client(base_url=base, headers=headers, timeout=120) as client:
             with TABLE.open("rb") as table:
@@ -152,6 +192,25 @@ def demo(
             job = _checked(submitted, "the job")
             with unit_progress(stderr) as update:
                 job = _follow(client, submitted.headers["Location"], update)
-    if job["status"] != "succeeded":
-        fail(f"job {job['id']} ended {job['status']}: {job.get('error') or 'no error recorded'}")
-    print_result(stdout, job["result"], job["id"])
+        if job["status"] != "succeeded":
+            fail(
+                f"job {job['id']} ended {job['status']}: {job.get('error') or 'no error recorded'}"
+            )
+        print_result(stdout, job["result"], job["id"])
+        _print_pages(base, job["id"], token, keeping)
+        if keeping:
+            _wait_for_interrupt(base)
+
+
+def _print_pages(base: str, job_id: str, token: str, keeping: bool) -> None:
+    """Where the report is and how to sign in to it."""
+    stdout.print(f"\nReport page: {base}/reports/jobs/{job_id}", markup=False, soft_wrap=True)
+    stdout.print(
+        f"Sign-in token (team demo, read and submit): {token}", markup=False, soft_wrap=True
+    )
+    if not keeping:
+        stdout.print(
+            "The server stopped with the demo; `foldwise demo --keep` keeps it serving the "
+            "pages, or `foldwise serve` serves this store again (the token stays valid).",
+            markup=False,
+        )

@@ -16,19 +16,33 @@ ALWAYS = (
     "cross-validation has no unbiased variance estimator (Bengio & Grandvalet 2004), so do not "
     "read them as a confidence interval.",
 )
-PEOPLE = (
-    "Some columns suggest this model may decide about people (credit, health, hiring or "
-    "similar): defer to domain review and the rules that apply before using it, and check its "
-    "errors across groups, which a single estimate does not show."
-)
+# The banner about people is raised only by what the requester declares (request field
+# `context`); a column name is a guess, so it only ever produces the soft, specific line below.
+# Following common practice for documenting a model's intended use and checking its errors per
+# group (Mitchell et al. 2019, "Model Cards for Model Reporting").
+PEOPLE_PREFIX = "Declared use: this model decides about people"
+PEOPLE_HINT_PREFIX = "Columns that may describe people:"
+
+
+def people_caution(domain: str | None) -> str:
+    """The caution for a request that declares its model decides about people."""
+    where = f" ({domain})" if domain else ""
+    return (
+        f"{PEOPLE_PREFIX}{where}. Defer to domain review and the rules that apply before using "
+        "it, and check its errors across groups (error, false positive and false negative rates "
+        "per group), which a single estimate does not show."
+    )
+
+
 # a name that is a time stamp, not a duration such as age_years or months_since_service
 _TIME_WORDS = re.compile(
     r"(^|_)(date|timestamp|datetime)($|_)|_(at|on|time)$|^(time|year|month|week|day|period)$"
 )
 _GROUP_WORDS = re.compile(r"(^|_)(id|site|patient|customer|user|subject|store|household)($|_)")
+# column names that often hold personal attributes; only ever a hint (see PEOPLE_PREFIX)
 _PEOPLE_WORDS = re.compile(
-    r"(^|_)(sex|gender|race|ethnicity|religion|marital|disability|nationality|income|salary|"
-    r"credit|loan|patient|diagnosis|applicant|employee|hire|hiring|birth|dob)($|_)"
+    r"(^|_)(sex|gender|race|ethnicity|ethnic|religion|religious|marital|married|disability|"
+    r"nationality|income|salary|applicant|employee|birth|dob|pregnant|pregnancy)($|_)"
 )
 
 
@@ -97,6 +111,19 @@ def find_cautions(plan: SelectionPlan, frame: pd.DataFrame, kinds: dict[str, str
     cautions += _tiny_classes(plan)
     cautions += _duplicates_across_folds(plan)
     cautions += _time_and_groups(plan, frame, kinds)
-    if any(_PEOPLE_WORDS.search(_tokens(str(c))) for c in frame.columns):
-        cautions.append(PEOPLE)
+    cautions += _people(plan, frame)
     return cautions
+
+
+def _people(plan: SelectionPlan, frame: pd.DataFrame) -> list[str]:
+    context = plan.spec.context
+    if context is not None and context.decides_about_people:
+        return [people_caution(context.domain)]
+    named = [str(c) for c in frame.columns if _PEOPLE_WORDS.search(_tokens(str(c)))]
+    if not named:
+        return []
+    return [
+        f"{PEOPLE_HINT_PREFIX} {', '.join(named)}. If this model's decisions affect people, "
+        "declare it in the request (context.decides_about_people) and check its errors across "
+        "groups."
+    ]

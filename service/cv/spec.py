@@ -99,6 +99,13 @@ class SplitSpec(_Strict):
         return self
 
 
+class ContextSpec(_Strict):
+    """What the model will be used for, as the requester declares it (it shapes the cautions)."""
+
+    decides_about_people: bool = False
+    domain: str | None = Field(default=None, min_length=1, max_length=100)
+
+
 class SelectionSpec(_Strict):
     """Everything the engine needs to run nested cross-validation on a table."""
 
@@ -114,6 +121,8 @@ class SelectionSpec(_Strict):
     # a share of each outer training part (seeded, stratified for classification; subsample.py)
     train_fraction: float = Field(default=1.0, gt=0, le=1)
     subsample_seed: int = Field(default=0, ge=0, le=2**32 - 1)
+    # declared use of the model: a declared decision about people gets the people caution
+    context: ContextSpec | None = None
 
     @model_validator(mode="after")
     def _consistent(self) -> SelectionSpec:

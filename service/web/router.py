@@ -11,11 +11,14 @@ from urllib.parse import quote
 from fastapi import APIRouter, Form, Query, Request
 from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from jinja2 import Environment, FileSystemLoader, select_autoescape
+from sqlalchemy import select
 
 from service.api.deps import SessionsDep
 from service.jobs.service import NotFound, get_job, job_query
-from service.web import views
+from service.store.models import Dataset
+from service.web import dataset_view, views
 from service.web.compare_view import compare_page
+from service.web.job_state import REFRESH_SECONDS
 from service.web.session import (
     COOKIE,
     LIFETIME_SECONDS,
@@ -37,7 +40,7 @@ _env = Environment(
     lstrip_blocks=True,
 )
 _env.filters["fmt"] = views.fmt
-_env.globals.update(fmt=views.fmt, signed=views.signed, describe=views.describe)
+_env.globals.update(fmt=views.fmt, sig=views.sig, signed=views.signed, describe=views.describe)
 _KEY = secret_key()
 
 
@@ -54,6 +57,10 @@ def _page(
         "X-Content-Type-Options": "nosniff",
         "Server-Timing": f"page;dur={(time.perf_counter() - started) * 1000:.1f}",
     }
+    if context.get("refresh"):
+        # a job still queued or running: the browser reloads the page itself (no script);
+        # the page says so and links to a copy that stays still (`?still=1`)
+        headers["Refresh"] = str(REFRESH_SECONDS)
     return HTMLResponse(html, status_code=status, headers=headers)
 
 
@@ -156,11 +163,18 @@ def home(request: Request, sessions: SessionsDep) -> Response:
         return _to_sign_in(request)
     with sessions() as session:
         jobs = list(session.scalars(job_query(reader.principal).limit(50)))
-        return _page("home.html", title="Jobs", jobs=jobs, reader=reader)
+        hashes = {job.dataset_hash for job in jobs}
+        origins = session.execute(
+            select(Dataset.content_hash, Dataset.origin).where(Dataset.content_hash.in_(hashes))
+        )
+        names = {h: dataset_view.table_name(dict(o or {})) for h, o in origins}
+        return _page("home.html", title="Jobs", jobs=jobs, names=names, reader=reader)
 
 
 @router.get("/jobs/{job_id}")
-def job_report(job_id: str, request: Request, sessions: SessionsDep) -> Response:
+def job_report(
+    job_id: str, request: Request, sessions: SessionsDep, still: bool = False
+) -> Response:
     """One job: estimate and spread, outer picks, inner-score curves, optimism gap, cautions."""
     started = time.perf_counter()
     reader = _reader(request, sessions)
@@ -172,9 +186,14 @@ def job_report(job_id: str, request: Request, sessions: SessionsDep) -> Response
         except NotFound:
             return _missing(reader, "job")
         if job.kind == "learning_curve":
-            return _page("learning.html", reader=reader, **views.learning_page(job))
-        context = views.job_page(session, job)
-        return _page("job.html", started=started, reader=reader, **context)
+            context = views.learning_page(session, job)
+            template = "learning.html"
+        else:
+            context = views.job_page(session, job)
+            template = "job.html"
+        context["refresh"] = context["refresh"] and not still
+        context.update(still=still, refresh_seconds=REFRESH_SECONDS)
+        return _page(template, started=started, reader=reader, **context)
 
 
 @router.get("/datasets/{content_hash}")
@@ -185,7 +204,7 @@ def dataset_report(content_hash: str, request: Request, sessions: SessionsDep) -
         return _to_sign_in(request)
     with sessions() as session:
         try:
-            context = views.dataset_page(session, content_hash[:64], reader.principal)
+            context = dataset_view.dataset_page(session, content_hash[:64], reader.principal)
         except NotFound:
             return _missing(reader, "dataset")
         return _page("dataset.html", reader=reader, **context)

@@ -13,6 +13,8 @@ from html import escape
 
 from markupsafe import Markup
 
+from service.web.ticks import Axis, Bounds, clip, fit_label, linear_axis, short, value_axis
+
 WIDTH = 640
 PAD_LEFT, PAD_RIGHT, PAD_TOP, PAD_BOTTOM = 64, 24, 20, 44
 # one series colour per line; chosen to stay apart for the common colour-vision deficiencies
@@ -21,14 +23,15 @@ INK, MUTED, GRID = "#1d2433", "#5b6372", "#d9d4c7"
 
 
 def _fmt(value: float) -> str:
-    return f"{value:.4g}"
+    return short(value)
 
 
 def _attr(text: str) -> str:
     return escape(text, quote=True)
 
 
-def _open(height: int, label: str) -> list[str]:
+def open_svg(height: int, label: str) -> list[str]:
+    """The opening tag and <title> of a chart of this height."""
     return [
         f'<svg class="chart" viewBox="0 0 {WIDTH} {height}" role="img" '
         f'aria-label="{_attr(label)}" preserveAspectRatio="xMidYMid meet">',
@@ -38,66 +41,60 @@ def _open(height: int, label: str) -> list[str]:
 
 @dataclass(frozen=True)
 class Scale:
-    """A linear map from data values to pixels."""
+    """An axis mapped onto pixels from `start` (the axis's low end) to `end` (its high end)."""
 
-    low: float
-    high: float
+    axis: Axis
     start: float
     end: float
 
     def __call__(self, value: float) -> float:
-        span = self.high - self.low
-        share = 0.5 if span == 0 else (value - self.low) / span
-        return self.start + share * (self.end - self.start)
+        return self.start + self.axis.share(value) * (self.end - self.start)
 
 
-def padded_range(values: Sequence[float]) -> tuple[float, float]:
-    """Low and high with a margin, so no mark sits on the frame."""
-    finite = [v for v in values if math.isfinite(v)]
-    if not finite:
-        return 0.0, 1.0
-    low, high = min(finite), max(finite)
-    margin = (high - low) * 0.08 or abs(high) * 0.05 or 0.05
-    return low - margin, high + margin
-
-
-def _ticks(low: float, high: float, count: int = 5) -> list[float]:
-    return [low + (high - low) * i / (count - 1) for i in range(count)]
+def text_lines(x: float, y: float, lines: Sequence[str], full: str, attrs: str) -> str:
+    """A <text> of one or two lines; the full label in a <title> when it had to be shortened."""
+    spans = "".join(
+        f'<tspan x="{x:.1f}" dy="{0 if i == 0 else 13}">{escape(line)}</tspan>'
+        for i, line in enumerate(lines)
+    )
+    tip = f"<title>{escape(full)}</title>" if lines and lines[-1].endswith("…") else ""
+    return f'<text x="{x:.1f}" y="{y:.1f}" {attrs}>{tip}{spans}</text>'
 
 
 def _y_axis(parts: list[str], scale: Scale, x0: float, x1: float) -> None:
-    for tick in _ticks(scale.low, scale.high):
+    for tick, text in zip(scale.axis.ticks, scale.axis.labels(), strict=True):
         y = scale(tick)
         parts.append(
             f'<line x1="{x0}" x2="{x1}" y1="{y:.1f}" y2="{y:.1f}" stroke="{GRID}" '
             'stroke-width="1"/>'
-            f'<text x="{x0 - 6}" y="{y + 4:.1f}" text-anchor="end" font-size="12" '
-            f'fill="{MUTED}">{_fmt(tick)}</text>'
+            f'<text data-kind="y-tick" data-value="{tick!r}" x="{x0 - 6}" y="{y + 4:.1f}" '
+            f'text-anchor="end" font-size="12" fill="{MUTED}">{text}</text>'
         )
 
 
 def estimate_strip(
-    values: Sequence[float], mean: float, std: float, *, inner_best: float | None, label: str
+    values: Sequence[float],
+    mean: float,
+    std: float,
+    *,
+    inner_best: float | None,
+    label: str,
+    bounds: Bounds = (None, None),
 ) -> Markup:
     """Every outer fold's score as a dot, the mean ± std as a band, the non-nested score apart."""
     height = 120
-    everything = [
-        *values,
-        mean - std,
-        mean + std,
-        *([inner_best] if inner_best is not None else []),
-    ]
-    low, high = padded_range(everything)
-    x = Scale(low, high, PAD_LEFT, WIDTH - PAD_RIGHT)
+    low_band, high_band = clip(mean - std, bounds), clip(mean + std, bounds)
+    everything = [*values, low_band, high_band, *([inner_best] if inner_best is not None else [])]
+    x = Scale(linear_axis(everything, bounds), PAD_LEFT, WIDTH - PAD_RIGHT)
     axis_y = 84
-    parts = _open(height, label)
-    for tick in _ticks(low, high):
+    parts = open_svg(height, label)
+    for tick, text in zip(x.axis.ticks, x.axis.labels(), strict=True):
         parts.append(
             f'<line x1="{x(tick):.1f}" x2="{x(tick):.1f}" y1="16" y2="{axis_y}" stroke="{GRID}"/>'
-            f'<text x="{x(tick):.1f}" y="{axis_y + 18}" text-anchor="middle" font-size="12" '
-            f'fill="{MUTED}">{_fmt(tick)}</text>'
+            f'<text data-kind="x-tick" data-value="{tick!r}" x="{x(tick):.1f}" y="{axis_y + 18}" '
+            f'text-anchor="middle" font-size="12" fill="{MUTED}">{text}</text>'
         )
-    band_x, band_w = x(mean - std), max(1.0, x(mean + std) - x(mean - std))
+    band_x, band_w = x(low_band), max(1.0, x(high_band) - x(low_band))
     parts.append(
         f'<rect data-kind="spread" x="{band_x:.1f}" y="28" width="{band_w:.1f}" height="36" '
         'fill="#2f6f73" fill-opacity="0.14"/>'
@@ -123,41 +120,61 @@ def estimate_strip(
     return Markup("".join(parts))
 
 
-def count_bars(items: Sequence[tuple[str, int]], *, label: str) -> Markup:
-    """One horizontal bar per candidate: how many outer folds picked it (zero bars included)."""
-    row = 26
-    height = PAD_TOP + row * max(1, len(items)) + 28
-    most = max([count for _, count in items] or [1]) or 1
-    left = 250
-    x = Scale(0, most, left, WIDTH - PAD_RIGHT)
-    parts = _open(height, label)
-    for i, (name, count) in enumerate(items):
-        y = PAD_TOP + i * row
-        width = max(0.0, x(count) - left)
-        parts.append(
-            f'<text x="{left - 8}" y="{y + 16}" text-anchor="end" font-size="12" fill="{INK}">'
-            f"{escape(_clip(name, 38))}</text>"
-            f'<rect data-kind="pick-count" data-count="{count}" x="{left}" y="{y + 4}" '
-            f'width="{width:.1f}" height="16" fill="{SERIES[0] if count else GRID}">'
-            f"<title>{escape(name)}: picked {count} times</title></rect>"
-            f'<text x="{left + width + 6:.1f}" y="{y + 16}" font-size="12" fill="{MUTED}">'
-            f"{count}</text>"
-        )
-    parts.append("</svg>")
-    return Markup("".join(parts))
-
-
-def _clip(text: str, size: int) -> str:
-    return text if len(text) <= size else text[: size - 1] + "…"
-
-
 @dataclass(frozen=True)
 class Point:
-    """One mark of a line: its x label, its value and how many scores it averages."""
+    """One mark of a line: its x label, its value, how many scores it averages, and a note."""
 
     x: str
     y: float
     n: int
+    note: str = ""
+    ref: str = ""  # the job a history point stands for
+
+
+def _x_marks(
+    parts: list[str],
+    x_labels: Sequence[str],
+    x_numbers: dict[str, float] | None,
+    *,
+    x_log: bool,
+    base_y: float,
+) -> dict[str, float]:
+    """Where each x label sits, with the axis's tick labels drawn; round ticks on numeric axes."""
+    left, right = PAD_LEFT + 12, WIDTH - PAD_RIGHT - 12
+    if x_numbers is not None and x_labels:
+        scale = Scale(value_axis(list(x_numbers.values()), declared_log=x_log), left, right)
+        for tick, text in zip(scale.axis.ticks, scale.axis.labels(), strict=True):
+            parts.append(
+                f'<line x1="{scale(tick):.1f}" x2="{scale(tick):.1f}" y1="{base_y - 4}" '
+                f'y2="{base_y + 2}" stroke="{MUTED}"/>'
+                f'<text data-kind="x-tick" data-value="{tick!r}" x="{scale(tick):.1f}" '
+                f'y="{base_y + 18}" text-anchor="middle" font-size="12" fill="{MUTED}">'
+                f"{text}</text>"
+            )
+        if scale.axis.log:
+            parts.append(
+                f'<text data-kind="log-axis" x="{right}" y="{base_y + 36}" text-anchor="end" '
+                f'font-size="11" fill="{MUTED}">log scale</text>'
+            )
+        return {name: scale(x_numbers[name]) for name in x_labels}
+    step = (WIDTH - PAD_LEFT - PAD_RIGHT) / max(1, len(x_labels))
+    where = {name: PAD_LEFT + step * (i + 0.5) for i, name in enumerate(x_labels)}
+    # about 7 px a character at 12 px: thin the labels so neighbours never touch
+    every = max(1, math.ceil(len(x_labels) * 64 / (WIDTH - PAD_LEFT - PAD_RIGHT)))
+    width = max(4, int(step * every / 7) - 1)
+    for i, name in enumerate(x_labels):
+        if i % every == 0:
+            lines = name.split("\n") if "\n" in name else fit_label(name, width, 2)
+            parts.append(
+                text_lines(
+                    where[name],
+                    base_y + 18,
+                    lines,
+                    name.replace("\n", " "),
+                    f'text-anchor="middle" font-size="12" fill="{MUTED}"',
+                )
+            )
+    return where
 
 
 def line_chart(
@@ -167,27 +184,19 @@ def line_chart(
     label: str,
     kind: str,
     y_title: str,
+    bounds: Bounds = (None, None),
+    x_numbers: dict[str, float] | None = None,
+    x_log: bool = False,
 ) -> Markup:
-    """Lines over an ordinal x axis (grid values or dates in order), one colour per series."""
+    """Lines over an x axis of numbers (linear or log) or of ordered labels, one colour a series."""
     legend_rows = math.ceil(len(series) / 3) if len(series) > 1 else 0
-    plot_height = 300
+    plot_height = 316
     height = plot_height + 22 * legend_rows
     values = [p.y for _, points in series for p in points]
-    low, high = padded_range(values)
-    y = Scale(low, high, plot_height - PAD_BOTTOM, PAD_TOP)
-    slots = max(1, len(x_labels))
-    step = (WIDTH - PAD_LEFT - PAD_RIGHT) / slots
-    where = {name: PAD_LEFT + step * (i + 0.5) for i, name in enumerate(x_labels)}
-    parts = _open(height, label)
+    y = Scale(linear_axis(values, bounds), plot_height - PAD_BOTTOM - 16, PAD_TOP)
+    parts = open_svg(height, label)
     _y_axis(parts, y, PAD_LEFT, WIDTH - PAD_RIGHT)
-    every = max(1, math.ceil(len(x_labels) / 10))  # keep tick labels legible on long grids
-    for i, name in enumerate(x_labels):
-        if i % every == 0:
-            parts.append(
-                f'<text x="{where[name]:.1f}" y="{plot_height - PAD_BOTTOM + 18}" '
-                f'text-anchor="middle" font-size="12" fill="{MUTED}">'
-                f"{escape(_clip(name, 12))}</text>"
-            )
+    where = _x_marks(parts, x_labels, x_numbers, x_log=x_log, base_y=plot_height - PAD_BOTTOM - 16)
     middle = (plot_height - PAD_BOTTOM + PAD_TOP) / 2
     parts.append(
         f'<text x="14" y="{middle:.0f}" font-size="12" fill="{MUTED}" '
@@ -202,11 +211,20 @@ def line_chart(
             f'stroke="{colour}" stroke-width="2"/>'
         )
         for cx, cy, p in coords:
+            marked = f' data-note="{_attr(p.note)}"' if p.note else ""
+            marked += f' data-job="{_attr(p.ref)}"' if p.ref else ""
+            ring = (
+                f'<circle cx="{cx:.1f}" cy="{cy:.1f}" r="8" fill="none" stroke="{INK}" '
+                'stroke-width="2"/>'
+                if p.note
+                else ""
+            )
+            note = f" — {escape(p.note)}" if p.note else ""
             parts.append(
-                f'<circle data-kind="{_attr(kind)}" data-n="{p.n}" data-value="{p.y!r}" '
-                f'cx="{cx:.1f}" cy="{cy:.1f}" '
-                f'r="4" fill="{colour}"><title>{escape(name)}, {escape(p.x)}: {_fmt(p.y)} '
-                f"({p.n} scores)</title></circle>"
+                f'{ring}<circle data-kind="{_attr(kind)}" data-n="{p.n}" data-value="{p.y!r}"'
+                f'{marked} cx="{cx:.1f}" cy="{cy:.1f}" r="4" fill="{colour}">'
+                f"<title>{escape(name)}, {escape(p.x.replace(chr(10), ' '))}: {_fmt(p.y)} "
+                f"({p.n} scores){note}</title></circle>"
             )
         parts.append("</g>")
         if legend_rows:
@@ -214,73 +232,12 @@ def line_chart(
             # so each entry also names its series in text
             lx = PAD_LEFT + (index % 3) * 190
             ly = plot_height + 22 * (index // 3)
+            lines = fit_label(name, 26, 1)
             parts.append(
                 f'<rect x="{lx}" y="{ly - 10}" width="14" height="4" fill="{colour}"/>'
-                f'<text x="{lx + 20}" y="{ly - 4}" font-size="12" fill="{INK}">'
-                f"{escape(_clip(name, 26))}</text>"
+                + text_lines(lx + 20, ly - 4, lines, name, f'font-size="12" fill="{INK}"')
             )
     parts.append("</svg>")
-    return Markup("".join(parts))
-
-
-def _blend(share: float) -> str:
-    # from warm paper to deep teal: one hue, so the order of cells reads without a legend
-    start, end = (0xF3, 0xEF, 0xE6), (0x1F, 0x55, 0x5A)
-    rgb = (round(a + (b - a) * share) for a, b in zip(start, end, strict=True))
-    return "#" + "".join(f"{c:02x}" for c in rgb)
-
-
-def heat_map(
-    rows: Sequence[str],
-    cols: Sequence[str],
-    cells: dict[tuple[str, str], tuple[float, int]],
-    *,
-    label: str,
-    row_title: str,
-    col_title: str,
-) -> Markup:
-    """A grid of mean inner scores: one cell per pair of hyperparameter values that was scored."""
-    left, top = 110, 34
-    cell_w = (WIDTH - left - PAD_RIGHT) / max(1, len(cols))
-    cell_h = min(40.0, max(18.0, 320 / max(1, len(rows))))
-    height = int(top + cell_h * len(rows) + 36)
-    values = [v for v, _ in cells.values()]
-    low, high = (min(values), max(values)) if values else (0.0, 1.0)
-    parts = _open(height, label)
-    parts.append(
-        f'<text x="{left + (WIDTH - left - PAD_RIGHT) / 2:.0f}" y="14" text-anchor="middle" '
-        f'font-size="12" fill="{MUTED}">{escape(col_title)}</text>'
-        f'<text x="8" y="{top - 10}" font-size="12" fill="{MUTED}">{escape(row_title)}</text>'
-    )
-    every = max(1, math.ceil(len(cols) / 12))
-    for j, col in enumerate(cols):
-        if j % every == 0:
-            parts.append(
-                f'<text x="{left + cell_w * (j + 0.5):.1f}" y="{top - 6}" text-anchor="middle" '
-                f'font-size="11" fill="{MUTED}">{escape(_clip(col, 8))}</text>'
-            )
-    for i, row in enumerate(rows):
-        cy = top + cell_h * i
-        parts.append(
-            f'<text x="{left - 6}" y="{cy + cell_h / 2 + 4:.1f}" text-anchor="end" '
-            f'font-size="11" fill="{MUTED}">{escape(_clip(row, 14))}</text>'
-        )
-        for j, col in enumerate(cols):
-            if (row, col) not in cells:
-                continue
-            value, n = cells[(row, col)]
-            share = 0.5 if high == low else (value - low) / (high - low)
-            parts.append(
-                f'<rect data-kind="heat-cell" data-n="{n}" data-value="{value!r}" '
-                f'x="{left + cell_w * j:.1f}" '
-                f'y="{cy:.1f}" width="{cell_w - 1:.1f}" height="{cell_h - 1:.1f}" '
-                f'fill="{_blend(share)}"><title>{escape(row)}, {escape(col)}: {_fmt(value)}'
-                f"</title></rect>"
-            )
-    parts.append(
-        f'<text x="{left}" y="{height - 10}" font-size="11" fill="{MUTED}">'
-        f"lightest {_fmt(low)}, darkest {_fmt(high)}</text></svg>"
-    )
     return Markup("".join(parts))
 
 
@@ -288,10 +245,9 @@ def difference_dots(points: Sequence[Point], *, label: str) -> Markup:
     """Per-fold differences as dots around a zero line (positive favours the first job)."""
     height = 160
     values = [p.y for p in points]
-    low, high = padded_range([*values, 0.0])
-    y = Scale(low, high, height - PAD_BOTTOM, PAD_TOP)
+    y = Scale(linear_axis([*values, 0.0]), height - PAD_BOTTOM, PAD_TOP)
     step = (WIDTH - PAD_LEFT - PAD_RIGHT) / max(1, len(points))
-    parts = _open(height, label)
+    parts = open_svg(height, label)
     _y_axis(parts, y, PAD_LEFT, WIDTH - PAD_RIGHT)
     parts.append(
         f'<line x1="{PAD_LEFT}" x2="{WIDTH - PAD_RIGHT}" y1="{y(0.0):.1f}" y2="{y(0.0):.1f}" '
@@ -317,23 +273,25 @@ def band_chart(
     label: str,
     y_title: str,
 ) -> Markup:
-    """A mean line with a ± spread band over ordinal x slots (a learning curve's error by size)."""
+    """A mean line with a ± spread band over ordinal x slots (a learning curve's error by size).
+
+    An error is never below zero, so the band's lower edge stops there rather than drawing
+    impossible values.
+    """
     height = 280
-    low, high = padded_range(
-        [m - s for m, s in zip(means, spreads, strict=True)]
-        + [m + s for m, s in zip(means, spreads, strict=True)]
-    )
-    y = Scale(low, high, height - PAD_BOTTOM, PAD_TOP)
+    lows = [max(0.0, m - s) for m, s in zip(means, spreads, strict=True)]
+    highs = [m + s for m, s in zip(means, spreads, strict=True)]
+    y = Scale(linear_axis(lows + highs, (0.0, None)), height - PAD_BOTTOM, PAD_TOP)
     step = (WIDTH - PAD_LEFT - PAD_RIGHT) / max(1, len(x_labels))
     xs = [PAD_LEFT + step * (i + 0.5) for i in range(len(x_labels))]
-    parts = _open(height, label)
+    parts = open_svg(height, label)
     _y_axis(parts, y, PAD_LEFT, WIDTH - PAD_RIGHT)
-    upper = [f"{x:.1f},{y(m + s):.1f}" for x, m, s in zip(xs, means, spreads, strict=True)]
-    lower = [f"{x:.1f},{y(m - s):.1f}" for x, m, s in zip(xs, means, spreads, strict=True)]
+    upper = [f"{x:.1f},{y(h):.1f}" for x, h in zip(xs, highs, strict=True)]
+    lower = [f"{x:.1f},{y(lo):.1f}" for x, lo in zip(xs, lows, strict=True)]
     middle = " ".join(f"{x:.1f},{y(m):.1f}" for x, m in zip(xs, means, strict=True))
     parts.append(
-        f'<polygon data-kind="spread" points="{" ".join(upper + lower[::-1])}" '
-        f'fill="{SERIES[0]}" fill-opacity="0.15"/>'
+        f'<polygon data-kind="spread" data-low="{min(lows)!r}" '
+        f'points="{" ".join(upper + lower[::-1])}" fill="{SERIES[0]}" fill-opacity="0.15"/>'
         f'<polyline points="{middle}" '
         f'fill="none" stroke="{SERIES[0]}" stroke-width="2"/>'
     )

@@ -2,27 +2,30 @@
 
 from __future__ import annotations
 
-from datetime import datetime
 from typing import Any
 
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from service.analysis.history import dataset_history
-from service.auth import Principal
-from service.cv.cautions import PEOPLE
-from service.store.models import Dataset, Job
-from service.web import curves, svg
+from service.cv.cautions import PEOPLE_PREFIX
+from service.store.models import Job
+from service.web import curves, job_state, svg, svg_grid
 from service.web.queries import (
     inner_cells,
     job_candidates,
     stored_score_counts,
 )
+from service.web.ticks import metric_bounds, short
 
 
 def fmt(value: float | None) -> str:
     """A score as the pages print it."""
     return "n/a" if value is None else f"{value:.4f}"
+
+
+def sig(value: float | None) -> str:
+    """A number to four significant figures (chart-side numbers, hyperparameter values)."""
+    return "n/a" if value is None else short(value)
 
 
 def signed(value: float) -> str:
@@ -32,15 +35,32 @@ def signed(value: float) -> str:
 
 def describe(candidate: dict[str, Any]) -> str:
     """'SVC(C=1, gamma=0.1)' from a result's candidate entry."""
-    params = ", ".join(f"{k}={curves.value_label(v)}" for k, v in candidate["params"].items())
+    params = ", ".join(
+        f"{k}={short(v) if isinstance(v, float) else curves.value_label(v)}"
+        for k, v in candidate["params"].items()
+    )
     return f"{candidate['estimator']}({params})"
 
 
-def learning_page(job: Job) -> dict[str, Any]:
+def learning_page(session: Session, job: Job) -> dict[str, Any]:
     """Context of a learning-curve job: estimated error against training size, with its spread."""
     result = job.result if job.status == "succeeded" else None
+    children = session.execute(
+        select(Job.id, Job.status, Job.request).where(Job.parent_id == job.id)
+    ).all()
+    sizes: list[dict[str, Any]] = sorted(
+        (
+            {"id": i, "status": st, "size": float((rq or {}).get("train_fraction", 1.0))}
+            for i, st, rq in children
+        ),
+        key=lambda row: float(row["size"]),
+    )
     context: dict[str, Any] = {"title": f"learning curve {job.id[:12]}", "job": job}
     context["result"] = result
+    context["refresh"] = job.status in ("queued", "running")
+    context["failure"] = job.error if job.status == "failed" else None
+    context["sizes"] = sizes
+    context["sizes_done"] = sum(1 for row in sizes if row["status"] == "succeeded")
     if result:
         points = sorted(result["points"], key=lambda p: p["size"])
         labels = [f"{p['size']:.0%}" for p in points]
@@ -55,11 +75,43 @@ def learning_page(job: Job) -> dict[str, Any]:
     return context
 
 
+def _declared_log(request: dict[str, Any], estimator: str, key: str) -> bool:
+    """Whether the request draws `key` of `estimator` from a log-scale range."""
+    for family in request.get("families") or []:
+        if family.get("estimator") == estimator:
+            spec = (family.get("ranges") or {}).get(key) or {}
+            if spec.get("log"):
+                return True
+    return False
+
+
+def _numbers(family: curves.Family, key: str) -> dict[str, float] | None:
+    """Each value label of `key` with its number, when every value is a number (not a bool)."""
+    out: dict[str, float] = {}
+    for candidate in family.candidates:
+        value = candidate.params.get(key)
+        if isinstance(value, bool) or not isinstance(value, int | float):
+            return None
+        out[curves.value_label(value)] = float(value)
+    return out
+
+
+def _people(cautions: list[str]) -> tuple[str | None, list[str]]:
+    """The declared people caution (shown as a banner) and the other cautions, in order."""
+    banner = next((c for c in cautions if c.startswith(PEOPLE_PREFIX)), None)
+    return banner, [c for c in cautions if c != banner]
+
+
 def job_page(session: Session, job: Job) -> dict[str, Any]:
     """Context of the job page: result v1 drawn, plus inner-score curves from SQL aggregates."""
     result = job.result if job.status == "succeeded" else None
     request = job.request or {}
-    metric = (result or {}).get("pick_by") or request.get("pick_by") or "accuracy"
+    metric = (
+        (result or {}).get("pick_by")
+        or request.get("pick_by")
+        or (request.get("metrics") or ["accuracy"])[0]
+    )
+    bounds = metric_bounds(metric)
     candidates = job_candidates(session, job.id)
     cells = inner_cells(session, job, metric)
     counts = stored_score_counts(session, job)
@@ -74,6 +126,9 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
             "outer": counts.get("outer", 0),
         },
         "people": None,
+        "progress": job_state.progress(job),
+        "failure": job_state.failure(session, job) if job.status == "failed" else None,
+        "refresh": job.status in ("queued", "running"),
     }
     if result:
         pick = result["estimate"][metric]
@@ -84,13 +139,16 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
             pick["std"],
             inner_best=result["final_pick"]["inner_mean"],
             label=f"Outer fold {metric} of the picked candidates, mean {fmt(pick['mean'])}",
+            bounds=bounds,
         )
         picked = {row["candidate_key"]: row["count"] for row in result["pick_frequency"]}
         items = [(describe(c.__dict__), picked.get(c.key, 0)) for c in candidates]
-        context["bars"] = svg.count_bars(
-            items, label=f"Times each of {len(items)} candidates was picked by an outer fold"
+        context["bars"] = svg_grid.count_bars(
+            items,
+            label=f"Times each picked candidate was chosen by an outer fold, of {len(items)} "
+            "candidates",
         )
-        context["people"] = PEOPLE if PEOPLE in result.get("cautions", []) else None
+        context["people"], context["cautions"] = _people(result.get("cautions", []))
     drawn = []
     heats = []
     for family in curves.families(candidates):
@@ -106,6 +164,9 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
                         label=f"Mean inner {metric} of {family.estimator} per value of {key}",
                         kind="inner-mean",
                         y_title=f"inner {metric}",
+                        bounds=bounds,
+                        x_numbers=_numbers(family, key),
+                        x_log=_declared_log(request, family.estimator, key),
                     ),
                 }
             )
@@ -117,7 +178,7 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
                     "row_key": grid.row_key,
                     "col_key": grid.col_key,
                     "scope": grid.scope,
-                    "svg": svg.heat_map(
+                    "svg": svg_grid.heat_map(
                         grid.rows,
                         grid.cols,
                         grid.cells,
@@ -130,54 +191,3 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
             )
     context["curves"], context["heats"] = drawn, heats
     return context
-
-
-def dataset_page(session: Session, content_hash: str, principal: Principal) -> dict[str, Any]:
-    """Context of the dataset page: the jobs on it, its refreshes and the estimate over time."""
-    # dataset_history applies the API's visibility rules (NotFound, team filter on refreshes)
-    story = dataset_history(session, principal, content_hash)
-    dataset = session.scalars(select(Dataset).where(Dataset.content_hash == content_hash)).one()
-    rows = [
-        {
-            "id": point.job_id,
-            "status": point.status,
-            "created": point.created_at.strftime("%Y-%m-%d %H:%M"),
-            "metric": point.pick_by or "",
-            "estimate": fmt(point.mean),
-            "pick": describe(point.final_pick) if point.final_pick else "none",
-        }
-        for point in reversed(story.jobs)  # newest first, as the API lists jobs
-    ]
-    history = [
-        (p.created_at, p.pick_by, p.mean, p.job_id)
-        for p in story.jobs
-        if p.mean is not None and p.pick_by is not None
-    ]
-    return {
-        "title": f"dataset {content_hash[:12]}",
-        "content_hash": content_hash,
-        "dataset": dataset,
-        "jobs": rows,
-        "history": _history_chart(history) if history else None,
-        "refreshes": story.refreshes,
-    }
-
-
-def _history_chart(history: list[tuple[datetime, str, float, str]]) -> Any:
-    labels: list[str] = []
-    for when, *_rest in history:
-        label = f"{when:%m-%d %H:%M}"
-        # jobs in the same minute still get a slot each on the ordinal time axis
-        while label in labels:
-            label += "*"
-        labels.append(label)
-    by_metric: dict[str, list[svg.Point]] = {}
-    for label, (_when, metric, mean, _job) in zip(labels, history, strict=True):
-        by_metric.setdefault(metric, []).append(svg.Point(label, mean, 1))
-    return svg.line_chart(
-        list(by_metric.items()),
-        labels,
-        label=f"Nested estimate of {len(history)} finished jobs over time",
-        kind="history-point",
-        y_title="nested estimate",
-    )

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 
@@ -29,3 +30,35 @@ def marks(page: Any, kind: str) -> list[dict[str, str]]:
         "els => els.map(e => Object.assign({}, e.dataset))",
     )
     return result
+
+
+# axe-core's impact levels that fail a page; "minor" and "moderate" findings are reported only
+FAILING_IMPACTS = ("serious", "critical")
+
+
+def axe_violations(page: Any) -> list[str]:
+    """axe-core run inside the page: its serious and critical violations, one line each."""
+    from axe_playwright_python.sync_playwright import Axe
+
+    results = Axe().run(page)
+    return [
+        f"{v['id']} ({v['impact']}): {v['help']} at {[n['target'] for n in v['nodes']][:3]}"
+        for v in results.response["violations"]
+        if v["impact"] in FAILING_IMPACTS
+    ]
+
+
+def check_page(page: Any, name: str, output: Path) -> None:
+    """axe-core finds nothing serious; screenshots at 1280 and 375 px; nothing overflows at 375."""
+    problems = axe_violations(page)
+    assert problems == [], (name, problems)
+    width = page.viewport_size["width"] if page.viewport_size else 1280
+    try:
+        page.set_viewport_size({"width": 1280, "height": 900})
+        page.screenshot(path=str(output / f"{name}-1280.png"), full_page=True)
+        page.set_viewport_size({"width": 375, "height": 800})
+        page.screenshot(path=str(output / f"{name}-375.png"), full_page=True)
+        scroll, inner = page.evaluate("[document.documentElement.scrollWidth, innerWidth]")
+        assert scroll <= inner, (name, scroll, inner)
+    finally:
+        page.set_viewport_size({"width": width, "height": 900})

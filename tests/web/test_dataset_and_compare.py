@@ -2,42 +2,130 @@
 
 from __future__ import annotations
 
+import copy
+import itertools
 import math
+import re
 from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pytest
 from scipy import stats
+from sqlalchemy import select
 
+from service.store.models import JobCandidate
+
+from .conftest import IRIS_JOB
 from .live import LiveServer
-from .pages import marks, sign_in, watch_console
+from .pages import check_page, marks, sign_in, watch_console
 
 
-def test_dataset_page_lists_every_job_and_draws_its_history(
+@pytest.fixture(scope="module")
+def repeat_job(server: LiveServer, owner_token: str, iris_job: str) -> str:
+    """The iris request again: a later job with the same candidates and metric (comparable)."""
+    return server.submit_and_wait(owner_token, copy.deepcopy(IRIS_JOB))
+
+
+@pytest.fixture(scope="module")
+def log_range_job(server: LiveServer, owner_token: str) -> str:
+    """Logistic regression with C drawn log-uniform over five decades (another candidate set)."""
+    request = copy.deepcopy(IRIS_JOB)
+    request["families"] = [
+        {
+            "estimator": "LogisticRegression",
+            "fixed": {"max_iter": 2000},
+            "ranges": {"C": {"low": 0.001, "high": 100.0, "log": True}},
+            "draws": 5,
+            "draw_seed": 3,
+        }
+    ]
+    return server.submit_and_wait(owner_token, request)
+
+
+def _candidate_set(server: LiveServer, job_id: str) -> tuple[str, ...]:
+    with server.sessions() as session:
+        keys = session.scalars(
+            select(JobCandidate.candidate_key).where(JobCandidate.job_id == job_id)
+        )
+        return tuple(sorted(keys))
+
+
+def test_dataset_page_names_the_table_and_draws_comparable_jobs_apart(
     browser: Any,
     server: LiveServer,
     owner_token: str,
     iris_job: str,
     second_job: str,
+    repeat_job: str,
+    log_range_job: str,
     output_dir: Path,
 ) -> None:
-    """One history point per finished job on the table, each job linked, in time order."""
+    """Name, target and shape by the hash; one line per candidate set and metric, in time order."""
     first = server.job(owner_token, iris_job)
-    second = server.job(owner_token, second_job)
     page = browser.new_page()
     errors = watch_console(page)
     sign_in(page, server.base_url, owner_token, f"/reports/datasets/{first['dataset_hash']}")
-    points = marks(page, "history-point")
-    assert len(points) == 2
-    expected = [
-        job["result"]["estimate"]["accuracy"]["mean"]
-        for job in sorted((first, second), key=lambda j: j["created_at"])
-    ]
-    assert [float(p["value"]) for p in points] == expected
-    for job_id in (iris_job, second_job):
+    assert page.locator("h1").inner_text() == "iris (sample shipped with scikit-learn)"
+    assert page.locator('[data-field="target"]').inner_text() == "target"
+    # iris as scikit-learn ships it: 150 rows, four measurements and the target
+    assert page.locator('[data-field="shape"]').inner_text() == "150 rows \u00d7 5 columns"
+    assert first["dataset_hash"] in page.inner_text("main")
+    groups: list[list[dict[str, str]]] = page.eval_on_selector_all(
+        "figure[data-group]",
+        """figs => figs.map(f => Array.from(f.querySelectorAll('[data-kind="history-point"]'))
+                                      .map(e => Object.assign({}, e.dataset)))""",
+    )
+    drawn = [p["job"] for group in groups for p in group]
+    assert len(drawn) == len(set(drawn))  # each job on one line only
+    for group in groups:
+        ids = [p["job"] for p in group]
+        jobs = [server.job(owner_token, i) for i in ids]
+        assert {_candidate_set(server, i) for i in ids} == {_candidate_set(server, ids[0])}
+        assert {j["result"]["pick_by"] for j in jobs} == {jobs[0]["result"]["pick_by"]}
+        assert [j["created_at"] for j in jobs] == sorted(j["created_at"] for j in jobs)
+        assert [float(p["value"]) for p in group] == [
+            j["result"]["estimate"][j["result"]["pick_by"]]["mean"] for j in jobs
+        ]
+        assert all(j.get("parent_id") is None for j in jobs)  # learning-curve sizes apart
+    together = next(g for g in groups if any(p["job"] == iris_job for p in g))
+    assert [p["job"] for p in together][:2] == [iris_job, repeat_job]
+    assert second_job not in [p["job"] for p in together]
+    assert log_range_job not in [p["job"] for p in together]
+    for job_id in (iris_job, second_job, repeat_job, log_range_job):
         assert page.locator(f'a[href="/reports/jobs/{job_id}"]').count() == 1
+    # time labels: a short date over the time, and no two labels of a chart overlap
+    boxes = page.eval_on_selector_all(
+        "figure[data-group] svg",
+        """svgs => svgs.map(s => Array.from(s.querySelectorAll('text'))
+            .filter(t => t.querySelectorAll('tspan').length === 2)
+            .map(t => { const r = t.getBoundingClientRect();
+                        return {text: t.textContent, left: r.left, right: r.right}; }))""",
+    )
+    assert any(boxes)
+    for labels in boxes:
+        for label in labels:
+            assert re.fullmatch(r"[A-Z][a-z]{2} \d{2}( \d{4})?\d{2}:\d{2}\u200b*", label["text"])
+        ordered = sorted(labels, key=lambda b: b["left"])
+        assert all(a["right"] <= b["left"] for a, b in itertools.pairwise(ordered))
+    check_page(page, "dataset", output_dir)
     assert errors == []
-    page.screenshot(path=str(output_dir / "dataset-page-wide.png"), full_page=True)
+
+
+def test_a_log_range_is_drawn_on_a_log_axis(
+    browser: Any, server: LiveServer, owner_token: str, log_range_job: str
+) -> None:
+    """C drawn with log: true: the curve's x ticks are powers of ten and say 'log scale'."""
+    page = browser.new_page()
+    sign_in(page, server.base_url, owner_token, f"/reports/jobs/{log_range_job}")
+    assert page.locator('[data-kind="log-axis"]').count() == 1
+    ticks = [float(t["value"]) for t in marks(page, "x-tick") if t.get("value")]
+    curve_ticks = [t for t in ticks if t > 0 and math.log10(t) == round(math.log10(t))]
+    assert curve_ticks[0] <= 0.001 and curve_ticks[-1] >= 100
+    drawn = server.job(owner_token, log_range_job)["result"]["pick_frequency"]
+    assert drawn  # the picks were drawn from the range
+    labels = page.eval_on_selector_all('[data-kind="x-tick"]', "els => els.map(e => e.textContent)")
+    assert all(len(text.replace(".", "").lstrip("0")) <= 4 for text in labels), labels
 
 
 def test_comparison_page_shows_the_corrected_t_test(

@@ -62,15 +62,23 @@ def job_page(browser: Any, server: LiveServer, owner_token: str, iris_job: str) 
 
 
 def test_job_page_marks_match_the_store(
-    job_page: Any, server: LiveServer, iris_job: str, output_dir: Path
+    job_page: Any, server: LiveServer, owner_token: str, iris_job: str, output_dir: Path
 ) -> None:
     """One dot per outer fold, one bar per candidate, curve points that hold every inner score."""
     outer, candidates = _store_counts(server, iris_job)
     assert outer == 3 and candidates == 12
     assert len(marks(job_page, "outer-score")) == outer
+    # a bar for each candidate some outer fold picked, most picked first, one line for the rest
+    result = server.job(owner_token, iris_job)["result"]
+    counts = [row["count"] for row in result["pick_frequency"] if row["count"]]
+    picked = sorted(counts, reverse=True)
     bars = marks(job_page, "pick-count")
-    assert len(bars) == candidates
+    assert [int(b["count"]) for b in bars] == picked
     assert sum(int(b["count"]) for b in bars) == outer  # every outer fold picked exactly one
+    never = marks(job_page, "never-picked")
+    assert [int(n["count"]) for n in never] == [candidates - len(picked)]
+    line = job_page.locator('[data-kind="never-picked"]').text_content()
+    assert line == f"{candidates - len(picked)} others never picked"
     # Each curve pools one family's inner scores by one hyperparameter's value, so every stored
     # inner score of pick_by falls in exactly one point of each of that family's curves.
     stored = _stored_inner_scores(server, iris_job, "accuracy")
@@ -88,6 +96,47 @@ def test_job_page_marks_match_the_store(
     assert len(cells) == len(KNN_GRID["n_neighbors"]) * len(KNN_GRID["weights"])
     assert job_page.errors == []
     job_page.screenshot(path=str(output_dir / "job-page-wide.png"), full_page=True)
+
+
+def test_heat_map_prints_its_values_and_a_legend(job_page: Any) -> None:
+    """Each cell's value to three figures inside it, and a colour bar from lowest to highest."""
+    cells = marks(job_page, "heat-cell")
+    shown = job_page.eval_on_selector_all(
+        '[data-kind="heat-value"]', "els => els.map(e => e.textContent)"
+    )
+    assert sorted(shown) == sorted(f"{float(c['value']):.3g}" for c in cells)
+    assert job_page.locator('[data-kind="heat-legend"]').count() == 1
+    legend = job_page.eval_on_selector_all(
+        '[data-kind="heat-legend-value"]', "els => els.map(e => e.textContent)"
+    )
+    values = [float(c["value"]) for c in cells]
+    assert legend[0] == f"{min(values):.3g}" and legend[-1] == f"{max(values):.3g}"
+
+
+def test_score_axes_stay_within_the_metric_and_cover_the_points(job_page: Any) -> None:
+    """Accuracy ticks are round, never above 1 or below 0, and span every drawn point."""
+    strip = job_page.eval_on_selector(
+        'svg:has([data-kind="outer-score"])',
+        """s => ({ticks: Array.from(s.querySelectorAll('[data-kind="x-tick"]'))
+                            .map(e => +e.dataset.value),
+                  dots: Array.from(s.querySelectorAll('[data-kind="outer-score"]')).length})""",
+    )
+    assert strip["dots"] == 3 and min(strip["ticks"]) >= 0.0 and max(strip["ticks"]) <= 1.0
+    per_chart = job_page.eval_on_selector_all(
+        "figure svg",
+        """svgs => svgs.map(s => ({
+            ticks: Array.from(s.querySelectorAll('[data-kind="y-tick"]'))
+                        .map(e => +e.dataset.value),
+            points: Array.from(s.querySelectorAll('[data-kind="inner-mean"]'))
+                         .map(e => +e.dataset.value)}))""",
+    )
+    drawn = [c for c in per_chart if c["points"]]
+    assert len(drawn) == 3
+    for chart in drawn:
+        assert min(chart["ticks"]) >= 0.0 and max(chart["ticks"]) <= 1.0
+        assert min(chart["ticks"]) <= min(chart["points"])
+        assert max(chart["ticks"]) >= max(chart["points"])
+        assert all(len(f"{t:g}".replace("0.", "").lstrip("0")) <= 4 for t in chart["ticks"])
 
 
 def test_heat_map_equals_scikit_learn_grid_search(job_page: Any) -> None:

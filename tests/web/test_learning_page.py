@@ -3,15 +3,16 @@
 from __future__ import annotations
 
 import copy
+from pathlib import Path
 from typing import Any
 
 from .conftest import IRIS_JOB
 from .live import LiveServer
-from .pages import marks, sign_in, watch_console
+from .pages import check_page, marks, sign_in, watch_console
 
 
 def test_learning_curve_page_draws_one_point_per_size(
-    browser: Any, server: LiveServer, owner_token: str
+    browser: Any, server: LiveServer, owner_token: str, output_dir: Path
 ) -> None:
     """Error against training size, in size order, each point linked to the selection behind it."""
     request = copy.deepcopy(IRIS_JOB)
@@ -27,4 +28,12 @@ def test_learning_curve_page_draws_one_point_per_size(
     assert [float(p["value"]) for p in points] == expected
     for point in result["points"]:
         assert page.locator(f'a[href="/reports/jobs/{point["job_id"]}"]').count() == 1
+    # an error is never below zero: the band stops at zero and so does the axis
+    band = marks(page, "spread")
+    assert float(band[0]["low"]) >= 0.0
+    ticks = [float(t["value"]) for t in marks(page, "y-tick")]
+    assert min(ticks) >= 0.0
+    lows = [p["error"]["mean"] - p["error"]["std"] for p in result["points"]]
+    assert float(band[0]["low"]) == max(0.0, min(lows))
+    check_page(page, "learning-curve", output_dir)
     assert errors == []
