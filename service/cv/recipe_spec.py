@@ -105,7 +105,7 @@ class FeatureSelection(_Strict):
         extra = sorted(given - allowed)
         if extra:
             raise ValueError(
-                f"select: {extra[0]!r} is not an option of method {self.method!r} (its options: "
+                f"{extra[0]}: is not an option of method {self.method!r} (its options: "
                 f"{', '.join(sorted(allowed))}); remove it"
             )
         return self
