@@ -133,6 +133,8 @@ def order_values(name: str, col: pd.Series, kind: str, field: str) -> pd.Series:
     """The values that order rows in time: numbers, or instants as int64 nanoseconds."""
     if kind == "datetime":
         stamps = col if pd.api.types.is_datetime64_any_dtype(col.dtype) else pd.to_datetime(col)
+        if stamps.dt.tz is None:  # naive stamps are UTC, as the canonical table takes them
+            stamps = stamps.dt.tz_localize("UTC")
         return stamps.astype("datetime64[ns, UTC]").astype("int64")
     if kind == "numeric":
         return col.astype("float64")

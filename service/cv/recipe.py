@@ -123,8 +123,9 @@ def recipe_pipeline(
     rest_categorical = [c for c in categorical if c not in named]
     n, c = recipe.numeric, recipe.categorical
     if rest_numeric:
-        parts.append(("numeric", _as_step(_numeric_steps(n.impute, n.fill_value, n.scale)),
-                      rest_numeric))  # fmt: skip
+        parts.append(
+            ("numeric", _as_step(_numeric_steps(n.impute, n.fill_value, n.scale)), rest_numeric)
+        )
     if rest_categorical:
         cat_steps = _categorical_steps(c.impute, c.fill_value, c.encode, c.min_frequency)
         parts.append(("categorical", _as_step(cat_steps), rest_categorical))
@@ -171,8 +172,11 @@ def _check_values(recipe: Recipe, task: str, field: str) -> None:
         where = f"{field}.categorical" if group is None else f"{field}.groups[{i - 1}]"
         min_frequency = c.min_frequency if group is None else group.min_frequency
         if min_frequency is not None:
-            _constraint_check(OneHotEncoder(min_frequency=min_frequency), ["min_frequency"],
-                              f"{where}.min_frequency")  # fmt: skip
+            _constraint_check(
+                OneHotEncoder(min_frequency=min_frequency),
+                ["min_frequency"],
+                f"{where}.min_frequency",
+            )
     if recipe.target != "none" and task != "regression":
         raise SpecError(
             f"{field}.target",

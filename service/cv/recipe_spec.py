@@ -16,8 +16,14 @@ ColumnKindName = Literal["numeric", "categorical", "boolean", "datetime"]
 Imputation = Literal["mean", "median", "most_frequent", "constant", "none"]
 Encoding = Literal["onehot", "ordinal"]
 TargetTransform = Literal["none", "log1p", "power"]
-ScoreFunction = Literal["f_classif", "chi2", "mutual_info_classif", "f_regression",
-                        "mutual_info_regression", "r_regression"]  # fmt: skip
+ScoreFunction = Literal[
+    "f_classif",
+    "chi2",
+    "mutual_info_classif",
+    "f_regression",
+    "mutual_info_regression",
+    "r_regression",
+]
 
 
 class _Strict(BaseModel):

@@ -53,8 +53,17 @@ _ISO_8601 = (
     r"(?:[T ]\d{2}:\d{2}(?::\d{2}(?:\.\d{1,9})?)?(?:Z|[+-]\d{2}(?::?\d{2})?)?)?"
 )
 # date formats seen in exported tables, tried in this order for a hint (never applied silently)
-_TEXT_DATE_FORMATS = ("%m/%d/%Y", "%d/%m/%Y", "%d.%m.%Y", "%Y/%m/%d", "%m-%d-%Y", "%d-%m-%Y",
-                      "%d %b %Y", "%b %d %Y", "%Y%m%d")  # fmt: skip
+_TEXT_DATE_FORMATS = (
+    "%m/%d/%Y",
+    "%d/%m/%Y",
+    "%d.%m.%Y",
+    "%Y/%m/%d",
+    "%m-%d-%Y",
+    "%d-%m-%Y",
+    "%d %b %Y",
+    "%b %d %Y",
+    "%Y%m%d",
+)
 OVERRIDE_NOTE = (
     'A job request\'s "columns" overrides these kinds, e.g. "columns": {"date": {"kind": '
     '"datetime", "format": "%m/%d/%Y"}, "year": {"kind": "categorical"}}.'
