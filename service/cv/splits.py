@@ -106,7 +106,11 @@ def _check_time_slices(plan: SplitSpec, field: str, n: int) -> None:
     first_train = n - plan.gap - test_size * plan.k
     if first_train > 0:
         return
-    blamed = "gap" if plan.gap else ("test_size" if plan.test_size is not None else "k")
+    # the gap is to blame when the test slices alone would leave training rows
+    if plan.gap and n - test_size * plan.k > 0:
+        blamed = "gap"
+    else:
+        blamed = "test_size" if plan.test_size is not None else "k"
     raise SpecError(
         f"{field}.{blamed}",
         f"{plan.k} test slices of {test_size} rows and a gap of {plan.gap} leave no training "
