@@ -78,3 +78,9 @@ def test_mixed_text_is_not_a_date(tmp_path: Path) -> None:
 def test_tables_without_date_text_keep_their_hash() -> None:
     table = load_table(DatasetSource(path=str(DEMO_CSV)), base_dir=DEMO_CSV.parent)
     assert table.content_hash == DEMO_HASH == content_hash(table.frame)
+
+
+def test_a_parquet_copy_of_iso_text_hashes_like_the_csv(tmp_path: Path) -> None:
+    csv = _csv(tmp_path, "a.csv", ["2024-01-05", "2024-03-31T12:30:00"])
+    pd.read_csv(csv).to_parquet(tmp_path / "a.parquet", index=False)  # text, not timestamps
+    assert _load(tmp_path / "a.parquet").content_hash == _load(csv).content_hash
