@@ -30,6 +30,7 @@ from sklearn.preprocessing import OneHotEncoder, OrdinalEncoder, PowerTransforme
 from sklearn.utils._param_validation import InvalidParameterError, validate_parameter_constraints
 
 from service.cv.errors import SpecError
+from service.cv.estimators import accepts_missing_values, estimator_class
 from service.cv.recipe_spec import (
     ColumnGroup,
     FeatureSelection,
@@ -204,6 +205,56 @@ def _check_values(recipe: Recipe, task: str, field: str) -> None:
         _constraint_check(inner, ["C"] if task == "classification" else ["alpha"], where)
 
 
+def _width_bound(recipe: Recipe, table: Any) -> int:
+    """The most columns the preprocess step can hand on: one-hot adds one per category seen."""
+    named = {n: g for g in recipe.groups for n in g.columns}
+    width = 0
+    for name in [*table.numeric, *table.categorical]:
+        group = named.get(name)
+        if group is not None:
+            categorical, encode = group.treat_as == "categorical", group.encode
+        else:
+            categorical, encode = name in table.categorical, recipe.categorical.encode
+        if categorical and encode == "onehot":
+            width += max(1, int(table.X[name].nunique(dropna=False)))
+        else:
+            width += 1
+    return width
+
+
+def _check_k(recipe: Recipe, table: Any, field: str) -> None:
+    select = recipe.select
+    if select is None or select.method != "k_best" or select.k == "all":
+        return
+    k = 10 if select.k is None else select.k  # SelectKBest's default
+    bound = _width_bound(recipe, table)
+    if k > bound:
+        raise SpecError(
+            f"{field}.select.k",
+            f"k={k} is more than the {bound} columns the preprocessing can give; lower k "
+            'or use "all".',
+        )
+
+
+def _check_missing(recipe: Recipe, table: Any, candidates: list[Any], task: str) -> None:
+    """Without imputation, missing values reach the model: only estimators that take NaN."""
+    named = {n: g for g in recipe.groups for n in g.columns}
+    for name in [*table.numeric, *table.categorical]:
+        group = named.get(name)
+        default = recipe.numeric if name in table.numeric else recipe.categorical
+        impute = group.impute if group is not None and group.impute else default.impute
+        if impute != "none" or not table.X[name].isna().any():
+            continue
+        for candidate in candidates:
+            cls = estimator_class(candidate.estimator, task=task, field="families")
+            if not accepts_missing_values(cls, split_params(candidate.params)[0]):
+                raise SpecError(
+                    "preprocess",
+                    f"column {name!r} has missing values, its recipe imputes none and "
+                    f"{candidate.estimator} cannot fit on them; set an impute strategy.",
+                )
+
+
 def effective_recipe(base: Recipe, params: dict[str, Any]) -> Recipe:
     """The spec's recipe with a candidate's recipe values put in."""
     return with_overrides(base, split_params(params)[1])
@@ -226,7 +277,7 @@ def check_recipe(spec: Any, table: Any, candidates: list[Any], y: np.ndarray) ->
     for candidate in candidates:
         family = f"families[{candidate.family}]"
         overrides = split_params(candidate.params)[1]
-        text = repr(sorted(overrides.items()))
+        text = repr((candidate.estimator, sorted(overrides.items())))
         if text in seen:
             continue
         seen.add(text)
@@ -242,6 +293,8 @@ def check_recipe(spec: Any, table: Any, candidates: list[Any], y: np.ndarray) ->
         except ValueError as exc:
             raise SpecError(family, f"{exc}.") from None
         _check_values(recipe, spec.task, family)
+        _check_k(recipe, table, family if overrides else "preprocess")
+        _check_missing(recipe, table, [candidate], spec.task)
         if recipe.target == "log1p" and float(np.min(y)) <= -1:
             raise SpecError(
                 f"{family if overrides else 'preprocess'}.target",

@@ -61,7 +61,12 @@ def fit_takes_weights(cls: type[Any]) -> bool:
 
 
 def check_weight_families(spec: SelectionSpec) -> None:
-    """Refuse weights when a family's estimator cannot take them, naming the family."""
+    """Refuse weights when a family's estimator or a metric cannot take them, naming it."""
+    if "roc_auc_ovo" in spec.metrics:
+        raise SpecError(
+            f"metrics[{spec.metrics.index('roc_auc_ovo')}]",
+            "scikit-learn's one-vs-one ROC AUC cannot weigh rows; use roc_auc_ovr with weights.",
+        )
     for index, family in enumerate(spec.families):
         cls = estimator_class(family.estimator, task=spec.task, field=f"families[{index}]")
         if not fit_takes_weights(cls):

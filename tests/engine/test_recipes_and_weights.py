@@ -171,6 +171,11 @@ def test_recipe_values_in_a_grid_become_candidates() -> None:
     ("changes", "field", "words"),
     [
         (
+            {"preprocess": {"select": {"method": "k_best", "k": 5}}},
+            "preprocess.select.k",
+            "4 columns",
+        ),
+        (
             {"preprocess": {"groups": [{"columns": ["wings"], "treat_as": "numeric"}]}},
             "preprocess.groups[0].columns[0]",
             "'wings'",
@@ -224,6 +229,7 @@ def test_recipe_values_in_a_grid_become_candidates() -> None:
         ),
     ],
     ids=[
+        "k-above-the-columns",
         "missing-group-column",
         "negative-k",
         "score-func-of-other-task",
@@ -242,6 +248,27 @@ def test_recipe_refusals(changes: dict[str, Any], field: str, words: str) -> Non
     assert error.field == field, error.message
     assert words in error.message
     assert error.message.endswith(".")
+
+
+def test_no_imputation_with_missing_values_needs_an_estimator_that_takes_them() -> None:
+    frame = demo_frame()  # bearing_temp_c has missing values
+    error = refusal(
+        demo_request(
+            features=["bearing_temp_c", "age_years"], preprocess={"numeric": {"impute": "none"}}
+        ),
+        frame,
+    )
+    assert error.field == "preprocess" and "'bearing_temp_c'" in error.message
+    families = [{"estimator": "HistGradientBoostingClassifier", "fixed": {"max_iter": 20}}]
+    plan = plan_for(
+        demo_request(
+            features=["bearing_temp_c", "age_years"],
+            families=families,
+            preprocess={"numeric": {"impute": "none"}},
+        ),
+        frame,
+    )
+    assert len(plan.candidates) == 1
 
 
 def test_log1p_refuses_targets_at_or_below_minus_one() -> None:
@@ -288,6 +315,12 @@ def test_weights_for_a_family_that_cannot_take_them_name_the_family() -> None:
     error = refusal(iris_request(weights="weight", families=families), iris_with(np.ones(150)))
     assert error.field == "families[1].estimator"
     assert "KNeighborsClassifier" in error.message
+
+
+def test_weights_with_one_vs_one_roc_auc_are_refused() -> None:
+    request = iris_request(weights="weight", metrics=["accuracy", "roc_auc_ovo"])
+    error = refusal(request, iris_with(np.ones(150)))
+    assert error.field == "metrics[1]" and "roc_auc_ovr" in error.message
 
 
 def test_weights_column_is_not_a_feature() -> None:
