@@ -166,6 +166,17 @@ def _check_values(recipe: Recipe, task: str, field: str) -> None:
     if n.impute != "none":
         imputer = SimpleImputer(strategy=n.impute, fill_value=n.fill_value)
         _constraint_check(imputer, ["strategy", "fill_value"], f"{field}.numeric")
+    categorical = [(f"{field}.categorical", c.impute)] + [
+        (f"{field}.groups[{i}]", g.impute)
+        for i, g in enumerate(recipe.groups)
+        if g.treat_as == "categorical"
+    ]
+    for where, impute in categorical:
+        if impute in ("mean", "median"):
+            raise SpecError(
+                f"{where}.impute",
+                f"categories have no {impute}; use most_frequent, constant or none.",
+            )
     if c.impute != "none":
         imputer = SimpleImputer(strategy=c.impute, fill_value=c.fill_value)
         _constraint_check(imputer, ["strategy", "fill_value"], f"{field}.categorical")

@@ -171,6 +171,21 @@ def test_recipe_values_in_a_grid_become_candidates() -> None:
     ("changes", "field", "words"),
     [
         (
+            {
+                "preprocess": {
+                    "groups": [
+                        {
+                            "columns": ["sepal width (cm)"],
+                            "treat_as": "categorical",
+                            "impute": "mean",
+                        }
+                    ]
+                }
+            },
+            "preprocess.groups[0].impute",
+            "most_frequent",
+        ),
+        (
             {"preprocess": {"select": {"method": "k_best", "k": 5}}},
             "preprocess.select.k",
             "4 columns",
@@ -229,6 +244,7 @@ def test_recipe_values_in_a_grid_become_candidates() -> None:
         ),
     ],
     ids=[
+        "mean-of-categories",
         "k-above-the-columns",
         "missing-group-column",
         "negative-k",
