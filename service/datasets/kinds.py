@@ -89,7 +89,8 @@ def _text_date_formats(series: pd.Series) -> list[str]:
     present = series.dropna().astype(str).str.strip()
     if present.empty or not present.str.contains(r"\d").all():
         return []
-    sample = present.head(200)
+    # distinct values, so a table starting with days 1-12 of a month is not called ambiguous
+    sample = present.drop_duplicates().head(2000)
     fits = []
     for fmt in _TEXT_DATE_FORMATS:
         parsed = pd.to_datetime(sample, format=fmt, errors="coerce")

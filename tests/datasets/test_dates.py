@@ -84,3 +84,11 @@ def test_a_parquet_copy_of_iso_text_hashes_like_the_csv(tmp_path: Path) -> None:
     csv = _csv(tmp_path, "a.csv", ["2024-01-05", "2024-03-31T12:30:00"])
     pd.read_csv(csv).to_parquet(tmp_path / "a.parquet", index=False)  # text, not timestamps
     assert _load(tmp_path / "a.parquet").content_hash == _load(csv).content_hash
+
+
+def test_a_long_column_is_judged_on_its_distinct_values() -> None:
+    # hourly stamps from January 1st: the first 200 rows are days 1-9 only, which fit day-first
+    # too, but the whole column does not
+    hours = pd.date_range("2000-01-01", periods=2000, freq="h").strftime("%m/%d/%Y")
+    hint = override_hint(pd.Series(hours), "categorical")
+    assert hint is not None and "%m/%d/%Y" in hint and "%d/%m/%Y" not in hint
