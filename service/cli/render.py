@@ -79,8 +79,11 @@ def print_description(console: Console, description: dict[str, Any]) -> None:
     console.print(f"content hash {description['content_hash']}")
     console.print(f"{description['n_rows']} rows, {description['n_columns']} columns")
     table = Table()
-    for column in ("column", "kind", "missing", "distinct"):
+    for column in ("column", "kind", "missing", "distinct", "to read it otherwise"):
         table.add_column(column)
     for col in description["columns"]:
-        table.add_row(col["name"], col["kind"], str(col["missing"]), str(col["distinct"]))
+        hint = col.get("hint") or ""
+        table.add_row(col["name"], col["kind"], str(col["missing"]), str(col["distinct"]), hint)
     console.print(table)
+    if description.get("column_types"):
+        console.print(description["column_types"], markup=False)

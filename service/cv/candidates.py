@@ -13,6 +13,7 @@ from sklearn.model_selection import ParameterGrid
 
 from service.cv.errors import SpecError
 from service.cv.estimators import check_params, estimator_class, has_random_state
+from service.cv.recipe_spec import split_params
 from service.cv.spec import FamilySpec, RangeSpec, SelectionSpec
 
 # A job fans out to outer k x inner k x candidates fits; past this many candidates a request is
@@ -40,11 +41,49 @@ class Candidate:
         return {"candidate_key": self.key, "estimator": self.estimator, "params": self.params}
 
 
-def candidate_key(estimator: str, params: dict[str, Any], preprocess: str) -> str:
-    """sha256 of the candidate's canonical JSON (sorted keys, no spaces)."""
-    body = {"estimator": estimator, "params": params, "preprocess": preprocess}
+def candidate_key(
+    estimator: str,
+    params: dict[str, Any],
+    preprocess: str | dict[str, Any],
+    inputs: dict[str, Any] | None = None,
+) -> str:
+    """sha256 of the candidate's canonical JSON (sorted keys, no spaces).
+
+    `preprocess` is "auto", "none" or a recipe's full JSON; `inputs` (declared column types,
+    the weights column) enters only when given, so keys of requests without them are unchanged.
+    """
+    body: dict[str, Any] = {"estimator": estimator, "params": params, "preprocess": preprocess}
+    if inputs:
+        body["inputs"] = inputs
     text = json.dumps(body, sort_keys=True, separators=(",", ":"), allow_nan=False)
     return hashlib.sha256(text.encode()).hexdigest()
+
+
+def key_parts(spec: SelectionSpec) -> tuple[str | dict[str, Any], dict[str, Any]]:
+    """What besides estimator and params makes a candidate's scores: preprocessing and inputs."""
+    recipe = spec.recipe
+    preprocess = recipe.model_dump(mode="json") if recipe is not None else str(spec.preprocess)
+    inputs: dict[str, Any] = {}
+    if spec.columns:
+        inputs["columns"] = {
+            name: declared.model_dump(mode="json", exclude_none=True)
+            for name, declared in sorted(spec.columns.items())
+        }
+    if spec.weights:
+        inputs["weights"] = spec.weights
+    return preprocess, inputs
+
+
+def _check_model_params(cls: Any, params: dict[str, Any], spec: SelectionSpec, field: str) -> None:
+    model, recipe = split_params(params)
+    check_params(cls, model, field=field)
+    if recipe and spec.recipe is None:
+        name = sorted(recipe)[0]
+        raise SpecError(
+            f"{field}.{name}",
+            f"{name!r} is a recipe value but preprocess is {spec.preprocess!r}; declare a "
+            "preprocess recipe or remove it.",
+        )
 
 
 def family_size(family: FamilySpec) -> int:
@@ -87,20 +126,22 @@ def enumerate_candidates(spec: SelectionSpec) -> list[Candidate]:
         )
     out: list[Candidate] = []
     seen: set[str] = set()
+    preprocess, inputs = key_parts(spec)
+    label = "recipe" if spec.recipe is not None else str(spec.preprocess)
     for index, family in enumerate(spec.families):
         field = f"families[{index}]"
         cls = estimator_class(family.estimator, task=spec.task, field=f"{field}.estimator")
-        check_params(cls, family.fixed, field=f"{field}.fixed")
+        _check_model_params(cls, family.fixed, spec, f"{field}.fixed")
         for name, values in family.grid.items():
             for value in values:
-                check_params(cls, {name: value}, field=f"{field}.grid")
+                _check_model_params(cls, {name: value}, spec, f"{field}.grid")
         draws = (
             draw_ranges(family.ranges, family.draws, family.draw_seed)
             if family.ranges and family.draws
             else [{}]
         )
         for point in draws:
-            check_params(cls, point, field=f"{field}.ranges")
+            _check_model_params(cls, point, spec, f"{field}.ranges")
         defaults = {}
         if has_random_state(cls) and "random_state" not in family.fixed:
             defaults["random_state"] = DEFAULT_RANDOM_STATE
@@ -108,11 +149,9 @@ def enumerate_candidates(spec: SelectionSpec) -> list[Candidate]:
             for draw in draws:
                 params = {**defaults, **family.fixed, **grid_point, **draw}
                 params = dict(sorted(params.items()))
-                key = candidate_key(family.estimator, params, spec.preprocess)
+                key = candidate_key(family.estimator, params, preprocess, inputs)
                 if key in seen:
                     continue
                 seen.add(key)
-                out.append(
-                    Candidate(key, len(out), index, family.estimator, params, spec.preprocess)
-                )
+                out.append(Candidate(key, len(out), index, family.estimator, params, label))
     return out

@@ -105,12 +105,46 @@ def _time_and_groups(plan: SelectionPlan, frame: pd.DataFrame, kinds: dict[str, 
     return out
 
 
+def _time_order(plan: SelectionPlan) -> list[str]:
+    """An outer split in time order with an inner split that is not, and tied time stamps."""
+    spec, out = plan.spec, []
+    if spec.outer.method == "time_series" and spec.inner.method != "time_series":
+        shuffled = "shuffles rows" if spec.inner.seed is not None else "ignores time order"
+        out.append(
+            f"The outer split follows time but the inner {spec.inner.method} split {shuffled}: "
+            "candidates are picked on folds that train on later rows than they test on, which "
+            "favours candidates that exploit the future; use time_series for the inner split "
+            "too."
+        )
+    order = plan.split_inputs.order
+    if order is None:
+        return out
+    column = spec.outer.order_by or spec.inner.order_by
+    straddling = 0
+    folds = list(plan.outer) if spec.outer.method == "time_series" else []
+    if spec.inner.method == "time_series":
+        folds += [f for group in plan.inner.values() for f in group]
+    for fold in folds:
+        if len(fold.train) and len(fold.test):
+            # time_series folds train on the past: a tie is the latest training stamp reappearing
+            straddling += int(order[fold.train].max() >= order[fold.test].min())
+    if straddling:
+        out.append(
+            f"Rows with equal {column!r} values fall on both sides of {straddling} time-split "
+            "boundaries (training and test rows from the same moment): if such rows are "
+            "alike, those folds test on the present rather than the future; aggregate rows per "
+            "time stamp or order by a finer column."
+        )
+    return out
+
+
 def find_cautions(plan: SelectionPlan, frame: pd.DataFrame, kinds: dict[str, str]) -> list[str]:
     """Every caution that applies to this plan and table, the general ones first."""
     cautions = list(ALWAYS)
     cautions += _tiny_classes(plan)
     cautions += _duplicates_across_folds(plan)
     cautions += _time_and_groups(plan, frame, kinds)
+    cautions += _time_order(plan)
     cautions += _people(plan, frame)
     return cautions
 

@@ -69,7 +69,8 @@ def make_scorer_set(estimator: Any, metrics: list[str]) -> Callable[..., dict[st
     """One scorer for all metrics that shares predictions between them, as cross_validate does."""
     scorer = check_scoring(estimator, scoring=list(metrics))
 
-    def score(fitted: Any, X: Any, y: Any) -> dict[str, float]:
-        return {name: float(value) for name, value in scorer(fitted, X, y).items()}
+    def score(fitted: Any, X: Any, y: Any, **weights: Any) -> dict[str, float]:
+        # weights: an optional sample_weight, which scikit-learn hands to every scorer
+        return {name: float(value) for name, value in scorer(fitted, X, y, **weights).items()}
 
     return score

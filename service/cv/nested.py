@@ -10,8 +10,6 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
-from sklearn.pipeline import Pipeline
-
 from service.cv.plan import FINAL_SCOPE, SelectionPlan
 from service.cv.selection import Pick, ScoreBook, assemble, pick
 from service.cv.units import UnitOutcome, UnitRef, fit_and_score, inner_units
@@ -40,7 +38,7 @@ class NestedOutcome:
     """The engine's result dict, the fitted final model and the number of fits."""
 
     result: dict[str, Any]
-    model: Pipeline
+    model: Any  # a Pipeline, or a TransformedTargetRegressor around one
     fits: int
 
 
@@ -59,7 +57,7 @@ def run_nested(
         if progress:
             progress(done, total)
     picks = {scope: pick(plan, scope, book) for scope in plan.scopes}
-    model: Pipeline | None = None
+    model: Any = None
     for done, ref in enumerate(refit_units(picks), len(first) + 1):
         outcome = fit_and_score(plan, ref)
         record(book, outcome)

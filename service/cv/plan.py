@@ -10,12 +10,15 @@ import pandas as pd
 import sklearn
 
 from service.cv.candidates import Candidate, enumerate_candidates
+from service.cv.columns import apply_column_types, order_values
 from service.cv.errors import SpecError
 from service.cv.metrics import check_metrics
 from service.cv.preprocess import FeatureTable, check_preprocess, feature_table
+from service.cv.recipe import check_recipe
 from service.cv.spec import SelectionSpec
 from service.cv.splits import Fold, SplitInputs, split_rows
 from service.cv.subsample import subsample_outer
+from service.cv.weights import check_weight_families, observation_weights
 
 FINAL_SCOPE = "all"  # the inner procedure run on all rows, which gives the final pick
 SCORING_VERSION = "1"  # ours, among the versions below
@@ -44,6 +47,7 @@ class SelectionPlan:
     inner: dict[str, list[Fold]]  # outer scope (or FINAL_SCOPE) -> its inner folds
     split_inputs: SplitInputs
     versions: dict[str, str] = field(default_factory=library_versions)
+    weights: npt.NDArray[np.float64] | None = None  # one observation weight per row, if given
 
     @property
     def n_rows(self) -> int:
@@ -115,7 +119,7 @@ def _target(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) -> 
 
 
 def _features(spec: SelectionSpec, frame: pd.DataFrame) -> list[str]:
-    reserved = {spec.target}
+    reserved = {spec.target} | ({spec.weights} if spec.weights else set())
     for plan in (spec.outer, spec.inner):
         reserved |= {c for c in (plan.groups, plan.order_by) if c}
     if spec.features is None:
@@ -124,12 +128,18 @@ def _features(spec: SelectionSpec, frame: pd.DataFrame) -> list[str]:
         _column(frame, name, f"features[{i}]")
         if name == spec.target:
             raise SpecError(f"features[{i}]", "the target cannot also be a feature; remove it.")
+        if name == spec.weights:
+            raise SpecError(
+                f"features[{i}]", "the weights column cannot also be a feature; remove it."
+            )
     if len(set(spec.features)) != len(spec.features):
         raise SpecError("features", "a column is listed twice in features; list each once.")
     return list(spec.features)
 
 
-def _split_inputs(spec: SelectionSpec, frame: pd.DataFrame, y: np.ndarray) -> SplitInputs:
+def _split_inputs(
+    spec: SelectionSpec, frame: pd.DataFrame, y: np.ndarray, kinds: dict[str, str]
+) -> SplitInputs:
     groups = order = None
     for name, plan in (("outer", spec.outer), ("inner", spec.inner)):
         if plan.groups:
@@ -141,7 +151,8 @@ def _split_inputs(spec: SelectionSpec, frame: pd.DataFrame, y: np.ndarray) -> Sp
             col = _column(frame, plan.order_by, f"{name}.order_by")
             if col.isna().any():
                 raise SpecError(f"{name}.order_by", f"order column {plan.order_by!r} has gaps.")
-            order = col.to_numpy()
+            kind = kinds.get(plan.order_by, "categorical")
+            order = order_values(plan.order_by, col, kind, f"{name}.order_by").to_numpy()
     return SplitInputs(y=y, groups=groups, order=order)
 
 
@@ -149,6 +160,7 @@ def build_plan(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) 
     """Validate `spec` against `frame` and fix candidates and folds; raises SpecError."""
     if len(frame) < 4:
         raise SpecError("dataset", f"the table has {len(frame)} rows; nested CV needs more.")
+    frame, kinds = apply_column_types(frame, kinds, spec.columns)
     y = _target(spec, frame, kinds)
     n_classes = len(np.unique(y)) if spec.task == "classification" else None
     if n_classes is not None and n_classes > max(20, len(y) // 5):
@@ -161,10 +173,16 @@ def build_plan(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) 
     features = _features(spec, frame)
     table = feature_table(frame, features, kinds)
     candidates = enumerate_candidates(spec)
-    check_preprocess(
-        table, spec.preprocess, [(c.estimator, c.params) for c in candidates], spec.task
-    )
-    inputs = _split_inputs(spec, frame, y)
+    if spec.recipe is not None:
+        check_recipe(spec, table, candidates, y)
+    else:
+        check_preprocess(
+            table, str(spec.preprocess), [(c.estimator, c.params) for c in candidates], spec.task
+        )
+    weights = observation_weights(spec.weights, frame, kinds) if spec.weights else None
+    if weights is not None:
+        check_weight_families(spec)
+    inputs = _split_inputs(spec, frame, y, kinds)
     versions = library_versions()
     tag = ";".join(f"{k}={v}" for k, v in sorted(versions.items()))
     all_rows = np.arange(len(y))
@@ -183,4 +201,4 @@ def build_plan(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) 
     inner[FINAL_SCOPE] = split_rows(
         spec.inner, all_rows, inputs, n_rows=n, versions=tag, field="inner"
     )
-    return SelectionPlan(spec, candidates, table, y, outer, inner, inputs, versions)
+    return SelectionPlan(spec, candidates, table, y, outer, inner, inputs, versions, weights)

@@ -127,14 +127,19 @@ def _constant(name: str, values: npt.NDArray[Any]) -> Any:
 
 
 def score_stored(
-    stored: StoredPredictions, y_test: npt.NDArray[Any], metrics: list[str]
+    stored: StoredPredictions,
+    y_test: npt.NDArray[Any],
+    metrics: list[str],
+    sample_weight: npt.NDArray[Any] | None = None,
 ) -> dict[str, float] | None:
-    """`metrics` computed by scikit-learn's scorers from stored predictions, or None if one of
-    them needs a response that was not kept."""
+    """`metrics` computed by scikit-learn's scorers from stored predictions (weighted by
+    `sample_weight` when given), or None if one of them needs a response that was not kept."""
     shim = stand_in(stored)
     placeholder = np.zeros((len(y_test), 1))
+    weighted = {} if sample_weight is None else {"sample_weight": sample_weight}
     try:
         scorer = check_scoring(shim, scoring=list(metrics))
-        return {name: float(value) for name, value in scorer(shim, placeholder, y_test).items()}
+        values = scorer(shim, placeholder, y_test, **weighted)
+        return {name: float(value) for name, value in values.items()}
     except AttributeError:
         return None

@@ -16,6 +16,8 @@ from sklearn.preprocessing import OneHotEncoder, StandardScaler
 from service.cv.candidates import Candidate
 from service.cv.errors import SpecError
 from service.cv.estimators import accepts_missing_values, estimator_class
+from service.cv.recipe import effective_recipe, recipe_pipeline
+from service.cv.recipe_spec import Recipe, split_params
 
 
 @dataclass(frozen=True)
@@ -73,10 +75,19 @@ def check_preprocess(
                 )
 
 
-def build_pipeline(candidate: Candidate, table: FeatureTable, task: str) -> Pipeline:
-    """A fresh, unfitted pipeline: preprocessing (if any) then the candidate's estimator."""
+def build_pipeline(
+    candidate: Candidate, table: FeatureTable, task: str, recipe: Recipe | None = None
+) -> Any:
+    """A fresh, unfitted pipeline: preprocessing (if any) then the candidate's estimator.
+
+    With a recipe, the candidate's recipe values are put into it (recipe.py); the result is a
+    Pipeline, or a TransformedTargetRegressor around one when the recipe transforms the target.
+    """
     cls = estimator_class(candidate.estimator, task=task, field="families")
-    model: BaseEstimator = cls(**candidate.params)
+    model: BaseEstimator = cls(**split_params(candidate.params)[0])
+    if recipe is not None:
+        chosen = effective_recipe(recipe, candidate.params)
+        return recipe_pipeline(chosen, table.numeric, table.categorical, model, task)
     if candidate.preprocess == "none":
         return Pipeline([("model", model)])
     parts: list[tuple[str, Any, list[str]]] = []

@@ -6,6 +6,8 @@ from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
+from service.cv.recipe_spec import ColumnType, Recipe
+
 SplitMethod = Literal["kfold", "stratified_kfold", "group_kfold", "time_series"]
 Task = Literal["classification", "regression"]
 JsonValue = Any  # a value that came from JSON: checked against the estimator's own constraints
@@ -74,6 +76,10 @@ class SplitSpec(_Strict):
     seed: int | None = Field(default=None, ge=0, le=2**32 - 1)  # numpy's seed range
     groups: str | None = None
     order_by: str | None = None
+    # time_series only, as scikit-learn's TimeSeriesSplit takes them (see _time_options)
+    gap: int = Field(default=0, ge=0)
+    max_train_size: int | None = Field(default=None, ge=1)
+    test_size: int | None = Field(default=None, ge=1)
 
     @model_validator(mode="after")
     def _consistent(self) -> SplitSpec:
@@ -87,6 +93,7 @@ class SplitSpec(_Strict):
             raise ValueError(
                 "order_by: time_series needs order_by, the column that orders the rows in time"
             )
+        _time_options(self)
         if self.repeats > 1 and self.method in ("group_kfold", "time_series"):
             raise ValueError(
                 "repeats: more than one repeat is only for kfold and stratified_kfold, "
@@ -106,6 +113,15 @@ class ContextSpec(_Strict):
     domain: str | None = Field(default=None, min_length=1, max_length=100)
 
 
+def _time_options(plan: SplitSpec) -> None:
+    """gap, max_train_size and test_size belong to time_series alone."""
+    if plan.method == "time_series":
+        return
+    for name in ("gap", "max_train_size", "test_size"):
+        if getattr(plan, name) not in (None, 0):
+            raise ValueError(f"{name}: only a time_series split takes {name}; remove it")
+
+
 class SelectionSpec(_Strict):
     """Everything the engine needs to run nested cross-validation on a table."""
 
@@ -113,7 +129,7 @@ class SelectionSpec(_Strict):
     features: list[str] | None = None
     task: Task
     families: list[FamilySpec] = Field(min_length=1)
-    preprocess: Literal["auto", "none"] = "auto"
+    preprocess: Literal["auto", "none"] | Recipe = "auto"
     outer: SplitSpec
     inner: SplitSpec
     metrics: list[str] = Field(min_length=1)
@@ -123,6 +139,9 @@ class SelectionSpec(_Strict):
     subsample_seed: int = Field(default=0, ge=0, le=2**32 - 1)
     # declared use of the model: a declared decision about people gets the people caution
     context: ContextSpec | None = None
+    # column types that override inference, and the column of observation weights
+    columns: dict[str, ColumnType] = Field(default_factory=dict)
+    weights: str | None = Field(default=None, min_length=1)
 
     @model_validator(mode="after")
     def _consistent(self) -> SelectionSpec:
@@ -142,6 +161,11 @@ class SelectionSpec(_Strict):
                 f"or time order of {sorted(ordered)[0]}; use kfold or stratified_kfold"
             )
         return self
+
+    @property
+    def recipe(self) -> Recipe | None:
+        """The declared preprocessing recipe, or None for "auto" and "none"."""
+        return self.preprocess if isinstance(self.preprocess, Recipe) else None
 
     @property
     def pick_metric(self) -> str:

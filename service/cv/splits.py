@@ -70,7 +70,9 @@ def make_splitter(plan: SplitSpec) -> BaseCrossValidator:
         return StratifiedKFold(plan.k, shuffle=shuffle, random_state=plan.seed)
     if plan.method == "group_kfold":
         return GroupKFold(plan.k, shuffle=shuffle, random_state=plan.seed)
-    return TimeSeriesSplit(n_splits=plan.k)
+    return TimeSeriesSplit(
+        n_splits=plan.k, gap=plan.gap, max_train_size=plan.max_train_size, test_size=plan.test_size
+    )
 
 
 def _check_feasible(plan: SplitSpec, field: str, rows: np.ndarray, inputs: SplitInputs) -> None:
@@ -92,8 +94,28 @@ def _check_feasible(plan: SplitSpec, field: str, rows: np.ndarray, inputs: Split
                 f"k={plan.k} is more than the {n_groups} distinct groups in {plan.groups!r}; "
                 "lower k.",
             )
-    if plan.method == "time_series" and n // (plan.k + 1) < 1:
+    if plan.method == "time_series":
+        _check_time_slices(plan, field, n)
+
+
+def _check_time_slices(plan: SplitSpec, field: str, n: int) -> None:
+    """TimeSeriesSplit's own arithmetic: k test slices and a gap must leave training rows."""
+    test_size = plan.test_size if plan.test_size is not None else n // (plan.k + 1)
+    if test_size < 1:
         raise SpecError(f"{field}.k", f"k={plan.k} leaves no rows per time slice; lower k.")
+    first_train = n - plan.gap - test_size * plan.k
+    if first_train > 0:
+        return
+    # the gap is to blame when the test slices alone would leave training rows
+    if plan.gap and n - test_size * plan.k > 0:
+        blamed = "gap"
+    else:
+        blamed = "test_size" if plan.test_size is not None else "k"
+    raise SpecError(
+        f"{field}.{blamed}",
+        f"{plan.k} test slices of {test_size} rows and a gap of {plan.gap} leave no training "
+        f"rows for the first fold of the {n} rows to split; lower {blamed}.",
+    )
 
 
 def split_rows(

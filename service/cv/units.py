@@ -14,14 +14,13 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any, Literal
 
-from sklearn.pipeline import Pipeline
-
 from service.cv.candidates import Candidate
 from service.cv.metrics import make_scorer_set
 from service.cv.plan import FINAL_SCOPE, SelectionPlan
 from service.cv.predictions import capture, score_stored
 from service.cv.preprocess import build_pipeline
 from service.cv.splits import Fold
+from service.cv.weights import fit_model
 
 UnitKind = Literal["inner", "outer_refit", "final_refit"]
 
@@ -79,7 +78,7 @@ class UnitOutcome:
     folds: list[dict[str, Any]]
     fits: int
     seconds: float
-    model: Pipeline | None = None
+    model: Any = None  # a Pipeline, or a TransformedTargetRegressor around one
 
 
 def unit_folds(plan: SelectionPlan, ref: UnitRef) -> list[Fold]:
@@ -99,19 +98,21 @@ def inner_units(plan: SelectionPlan) -> list[UnitRef]:
 def _fit_and_score_fold(
     candidate: Candidate, plan: SelectionPlan, ref: UnitRef, fold: Fold, metrics: list[str]
 ) -> dict[str, Any]:
-    pipeline = build_pipeline(candidate, plan.table, plan.spec.task)
-    X, y = plan.table.X, plan.y
+    pipeline = build_pipeline(candidate, plan.table, plan.spec.task, plan.spec.recipe)
+    X, y, w = plan.table.X, plan.y, plan.weights
     started = time.perf_counter()
     # a fit that fails raises (scikit-learn's error_score="raise"): a failed unit keeps the text
-    pipeline.fit(X.iloc[fold.train], y[fold.train])
+    fit_model(pipeline, X.iloc[fold.train], y[fold.train], None if w is None else w[fold.train])
     fitted = time.perf_counter()
     X_test, y_test = X.iloc[fold.test], y[fold.test]
+    w_test = None if w is None else w[fold.test]
     # each response is computed once: kept so a later request can add a metric without a refit
     # (service/cv/predictions.py), and handed to scikit-learn's own scorers from there
     predictions = capture(pipeline, X_test, plan.spec.task)
-    scores = score_stored(predictions, y_test, metrics)
+    scores = score_stored(predictions, y_test, metrics, w_test)
     if scores is None:  # a scorer wants a response the model did not offer: let it say so
-        scores = make_scorer_set(pipeline, metrics)(pipeline, X_test, y_test)
+        weighted = {} if w_test is None else {"sample_weight": w_test}
+        scores = make_scorer_set(pipeline, metrics)(pipeline, X_test, y_test, **weighted)
     check_finite(scores, plan, ref, fold)
     done = time.perf_counter()
     return {
@@ -135,8 +136,8 @@ def fit_and_score(
         if should_stop and should_stop():
             raise UnitCancelled(ref)
         assert ref.scope == FINAL_SCOPE
-        model = build_pipeline(candidate, plan.table, plan.spec.task)
-        model.fit(plan.table.X, plan.y)
+        model = build_pipeline(candidate, plan.table, plan.spec.task, plan.spec.recipe)
+        fit_model(model, plan.table.X, plan.y, plan.weights)
         return UnitOutcome(ref, [], 1, time.perf_counter() - started, model)
     outcomes = []
     for fold in unit_folds(plan, ref):

@@ -10,6 +10,10 @@ Canonical dtypes:
 - categorical -> pandas string backed by pyarrow (missing is <NA>);
 - datetime    -> datetime64[ns, UTC]; naive timestamps are taken to be UTC already, because a
   file without a zone gives no better guess, and a fixed rule keeps the hash stable.
+  Text columns of a file that hold only ISO 8601 dates are read as datetimes before they get
+  here (files.py), so "2024-01-05" and "2024-01-05T00:00:00Z" hash alike, and like a Parquet
+  timestamp; other date notations stay text, since only a request's declared format says how
+  to read them.
 
 Integers beyond 2**53 lose precision as float64; tables of identifiers that large should carry
 them as text.

@@ -12,6 +12,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from service.datasets.kinds import iso_datetime_text, parse_iso_datetimes
 from service.errors import BadInput
 
 FileFormat = Literal["csv", "parquet"]
@@ -56,6 +57,7 @@ def read_dataset_file(path: Path, *, field: str) -> tuple[pd.DataFrame, FileForm
     if path.stat().st_size == 0:
         raise BadInput(field, f"{path} is empty; supply a header row and at least one data row.")
     frame = _read_csv(path, field) if fmt == "csv" else _read_parquet(path, field)
+    frame = _recognise_iso_dates(frame)
     if frame.shape[1] == 0:
         raise BadInput(field, f"{path} has no columns; supply a table with at least one column.")
     if len(frame) == 0:
@@ -81,6 +83,20 @@ def _read_csv(path: Path, field: str) -> pd.DataFrame:
             "check the quoting and that every row has as many fields as the header.",
         ) from None
     _check_unique([str(name) for name in header.iloc[0] if str(name)], path, field)
+    return frame
+
+
+def _recognise_iso_dates(frame: pd.DataFrame) -> pd.DataFrame:
+    """Text columns holding only ISO 8601 dates become instants, as a Parquet timestamp is.
+
+    So a CSV and a Parquet file with the same instants give the same table and content hash,
+    whichever of the ISO 8601 spellings the file used (a Parquet file's text columns are read
+    the same way, so a CSV and its Parquet copy still agree). Other date texts stay text: the
+    request says how to read them (its "columns" field), never a guess here.
+    """
+    for name in frame.columns:
+        if iso_datetime_text(frame[name]):
+            frame[name] = parse_iso_datetimes(frame[name])
     return frame
 
 

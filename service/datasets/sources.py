@@ -12,7 +12,7 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 
 from service.datasets.canonical import canonical_frame, content_hash
 from service.datasets.files import read_dataset_file
-from service.datasets.kinds import ColumnKind, infer_column_kinds
+from service.datasets.kinds import OVERRIDE_NOTE, ColumnKind, infer_column_kinds, override_hint
 from service.datasets.sql_source import SqlAccess, SqlSource, read_sql_source
 from service.errors import BadInput
 
@@ -117,6 +117,7 @@ def describe_table(table: LoadedTable) -> dict[str, Any]:
             "kind": kind,
             "missing": int(frame[name].isna().sum()),
             "distinct": int(frame[name].nunique(dropna=True)),
+            "hint": override_hint(frame[name], kind),
         }
         for name, kind in table.kinds.items()
     ]
@@ -126,6 +127,7 @@ def describe_table(table: LoadedTable) -> dict[str, Any]:
         "n_columns": frame.shape[1],
         "columns": columns,
         "origin": dict(table.origin),
+        "column_types": OVERRIDE_NOTE,
     }
 
 

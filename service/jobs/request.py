@@ -27,13 +27,17 @@ class JobRequest(SelectionSpec):
         return SelectionSpec.model_validate(self.model_dump(exclude=service_fields))
 
 
+# model names pydantic puts in an error's location for a union's branches
+_BRANCHES = {"str", "Recipe"}
+
+
 def field_path(loc: tuple[int | str, ...]) -> str:
     """('families', 0, 'grid') -> 'families[0].grid'."""
     out = ""
     for part in loc:
         if isinstance(part, int):
             out += f"[{part}]"
-        elif part.startswith(("function-", "tagged-union")) or part == "str":
+        elif part.startswith(("function-", "tagged-union", "literal[")) or part in _BRANCHES:
             continue  # pydantic's names for union branches, not fields of the request
         else:
             out += f".{part}" if out else part
@@ -58,6 +62,9 @@ def bad_input_from(exc: ValidationError) -> BadInput:
     errors = exc.errors()
     # a union (hash string or source object) reports a failure per branch: prefer the object's
     first = next((e for e in errors if "DatasetSource" in "".join(map(str, e["loc"]))), errors[0])
+    # preprocess is "auto", "none" or a recipe object: an object is judged as a recipe
+    if isinstance(first.get("input"), dict) and first["type"] == "literal_error":
+        first = next((e for e in errors if "Recipe]" in "".join(map(str, e["loc"]))), first)
     field = field_path(tuple(first["loc"]))
     sentence = _sentence(dict(first))
     # our cross-field validators start their message with the field they are about

@@ -2,7 +2,8 @@
 
 A unit's numbers are fixed by the dataset hash, its exact folds (fingerprints embed the row
 indices and the versions that can change results, our scoring code's included), the candidate
-key (which covers preprocessing) and the metrics. So a queued unit whose every
+key (which covers preprocessing, declared column types and the weights column) and the
+metrics. So a queued unit whose every
 (fold fingerprint, candidate key, metric) score is stored is marked done without a fit; one that
 lacks only metrics its stored predictions allow gets them from scikit-learn's scorers on those
 predictions; a final refit takes the model file of an earlier job with the same final folds.
@@ -75,7 +76,9 @@ def _from_predictions(
         stored = found[fingerprint]
         predictions = StoredPredictions.decode(stored.data, plan.spec.task, stored.classes)
         fold = folds[fingerprint]
-        scores = score_stored(predictions, plan.y[fold.test], metrics)
+        # the candidate key names the weights column, so these are the same weights
+        weights = None if plan.weights is None else plan.weights[fold.test]
+        scores = score_stored(predictions, plan.y[fold.test], metrics, weights)
         if scores is None or not all(math.isfinite(v) for v in scores.values()):
             # a metric needs a response these predictions do not have, or is not a number
             # there: refit, and let the unit say what failed (service/cv/units.check_finite)

@@ -3,7 +3,10 @@
 from __future__ import annotations
 
 import copy
+import re
 from collections.abc import Callable
+from datetime import date, timedelta
+from pathlib import Path
 from typing import Any
 
 import pytest
@@ -139,4 +142,81 @@ def test_a_body_past_the_json_limit_is_413(server: Server, token: str) -> None:
     with server.client(token) as client:
         answer = client.post("/v1/jobs", json=request)
     _problem(answer, 413)
+    assert server.snapshot() == before
+
+
+# Column types, time order, recipes and weights, on iris (ships with scikit-learn) written under
+# the server's data root with a month-first date column and a weight column added.
+def _iris_csv(data_root: Path, name: str, weights: list[str]) -> str:
+    from sklearn.datasets import load_iris
+
+    frame = load_iris(as_frame=True).frame
+    frame["when"] = [
+        (date(2023, 12, 1) + timedelta(days=i)).strftime("%m/%d/%Y") for i in range(150)
+    ]
+    frame["w"] = weights
+    path = data_root / name
+    frame.to_csv(path, index=False)
+    return str(path)
+
+
+LOGISTIC_ONLY = [{"estimator": "LogisticRegression", "fixed": {"max_iter": 500}}]
+TIME_OUTER = {"method": "time_series", "k": 3, "order_by": "when"}
+US_FORMAT = {"when": {"kind": "datetime", "format": "%m/%d/%Y"}}
+TABLE_CASES: list[tuple[str, dict[str, Any], str]] = [
+    ("unknown kind", {"columns": {"w": {"kind": "text"}}}, "columns.w.kind"),
+    (
+        "unknown format directive",
+        {"columns": {"when": {"kind": "datetime", "format": "%m/%Q"}}},
+        "columns.when.format",
+    ),
+    (
+        "format on a numeric column",
+        {"columns": {"w": {"kind": "numeric", "format": "%Y"}}},
+        "columns.w.format",
+    ),
+    ("text dates ordering time", {"outer": TIME_OUTER}, "outer.order_by"),
+    (
+        "gap leaving no training rows",
+        {"outer": {**TIME_OUTER, "gap": 120}, "columns": US_FORMAT},
+        "outer.gap",
+    ),
+    (
+        "recipe on a missing column",
+        {"preprocess": {"groups": [{"columns": ["wings"], "treat_as": "numeric"}]}},
+        "preprocess.groups[0].columns[0]",
+    ),
+    (
+        "recipe value outside constraints",
+        {"preprocess": {"categorical": {"min_frequency": 1.5}}},
+        "preprocess.categorical.min_frequency",
+    ),
+    ("negative weights", {"weights": "w", "families": LOGISTIC_ONLY}, "weights"),
+    ("missing weights", {"weights": "w", "families": LOGISTIC_ONLY}, "weights"),
+    (
+        "weights for KNeighborsClassifier",
+        {"weights": "w", "families": [{"estimator": "KNeighborsClassifier"}]},
+        "families[0].estimator",
+    ),
+]
+WEIGHTS = {
+    "negative weights": ["-0.5"] + ["1"] * 149,
+    "missing weights": [""] * 4 + ["1"] * 146,
+}
+
+
+@pytest.mark.parametrize(("case", "changes", "field"), TABLE_CASES, ids=[c[0] for c in TABLE_CASES])
+def test_column_time_recipe_and_weight_errors_are_422_and_store_nothing(
+    server: Server, token: str, data_root: Path, case: str, changes: dict[str, Any], field: str
+) -> None:
+    name = case.replace(" ", "-") + ".csv"
+    path = _iris_csv(data_root, name, WEIGHTS.get(case, ["1"] * 150))
+    body = {**copy.deepcopy(IRIS_REQUEST), "dataset": {"path": path}, **copy.deepcopy(changes)}
+    before = server.snapshot()
+    with server.client(token) as client:
+        answer = client.post("/v1/jobs", json=body, headers={"Idempotency-Key": f"table-{name}"})
+    problem = _problem(answer, 422)
+    assert problem["field"] == field, problem["detail"]
+    # one sentence: no full stop followed by a capital inside it
+    assert re.search(r"[.?!]\s+[A-Z]", problem["detail"]) is None, problem["detail"]
     assert server.snapshot() == before

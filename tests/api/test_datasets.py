@@ -166,3 +166,19 @@ def test_a_bad_source_body_names_the_field(server: Server, token: str) -> None:
     _problem(bad_hash, 422, "content_hash")
     _problem(missing, 404, None)
     assert server.snapshot() == before
+
+
+def test_upload_answer_shows_inferred_kinds_and_how_to_override_them(
+    server: Server, token: str
+) -> None:
+    rows = "".join(f"{m:02d}/15/2024,2024-{m:02d}-01,{m * 1.5}\n" for m in range(1, 13))
+    content = ("us_date,iso_date,x\n" + rows).encode()
+    with server.client(token) as client:
+        answer = _upload(client, "dated.csv", content)
+    assert answer.status_code in (200, 201), answer.text
+    body = answer.json()
+    columns = {c["name"]: c for c in body["columns"]}
+    assert columns["iso_date"]["kind"] == "datetime"  # ISO 8601 text is read as dates
+    assert columns["us_date"]["kind"] == "categorical"
+    assert '"format": "%m/%d/%Y"' in columns["us_date"]["hint"]
+    assert '"columns"' in body["column_types"]

@@ -13,6 +13,7 @@ import shutil
 from collections.abc import Callable
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
+from datetime import date, timedelta
 from pathlib import Path
 from typing import Any
 
@@ -25,6 +26,7 @@ from .runner import (
     base_request,
     run_foldwise,
     store_jobs,
+    table_csv,
     write_job,
 )
 
@@ -79,6 +81,26 @@ def dataset_file(name: str) -> Mutation:
 
 
 # 6 grid keys with 20 values each: 20**6 = 64,000,000 candidates, refused before expansion
+def with_column(name: str, values: list[str]) -> str:
+    """The shared table with one more column (a date written as text, a weight, ...)."""
+    lines = table_csv().splitlines()
+    rows = [f"{line},{value}" for line, value in zip(lines[1:], values, strict=True)]
+    return "\n".join([f"{lines[0]},{name}", *rows]) + "\n"
+
+
+# one day per row from 2023-12-10, written month first: a New Year falls inside
+US_DATES = [(date(2023, 12, 10) + timedelta(days=i)).strftime("%m/%d/%Y") for i in range(N_ROWS)]
+NEGATIVE_WEIGHTS = ["-1"] + ["1"] * (N_ROWS - 1)
+MISSING_WEIGHTS = [""] * 2 + ["1"] * (N_ROWS - 2)
+ONLY_LOGISTIC = [{"estimator": "LogisticRegression", "fixed": {"max_iter": 500}}]
+TIME_OUTER = {"method": "time_series", "k": 3, "order_by": "when"}
+
+
+def using(csv_name: str, **changes: Any) -> Mutation:
+    """Point the request at another CSV of the case's files and change top-level keys."""
+    return top(dataset={"path": csv_name}, **changes)
+
+
 HUGE_GRID = {
     name: [i + 1 for i in range(20)]
     for name in ("C", "tol", "max_iter", "intercept_scaling", "l1_ratio", "verbose")
@@ -196,6 +218,77 @@ CASES = [
         lambda r: r["families"][1].update(fixed={"metric_params": {"p": float("nan")}}),
     ),
     Case("seed-too-large", "outer.seed", split("outer", seed=2**33)),
+    # column types, time order, recipes and weights
+    Case("unknown-column-kind", "columns.x1.kind", top(columns={"x1": {"kind": "text"}})),
+    Case(
+        "unknown-date-format",
+        "columns.when.format",
+        using("dated.csv", columns={"when": {"kind": "datetime", "format": "%m/%Q/%Y"}}),
+        contains=("%Q",),
+        files={"dated.csv": with_column("when", US_DATES)},
+    ),
+    Case(
+        "date-format-that-does-not-match",
+        "columns.when.format",
+        using("dated.csv", columns={"when": {"kind": "datetime", "format": "%Y-%m-%d"}}),
+        files={"dated.csv": with_column("when", US_DATES)},
+    ),
+    Case(
+        "month-first-dates-ordering-time-without-format",
+        "outer.order_by",
+        using("dated.csv", outer=TIME_OUTER),
+        contains=("'when'", "format"),
+        files={"dated.csv": with_column("when", US_DATES)},
+    ),
+    Case(
+        "gap-leaving-no-training-rows",
+        "outer.gap",
+        using(
+            "dated.csv",
+            outer={**TIME_OUTER, "gap": 40},
+            columns={"when": {"kind": "datetime", "format": "%m/%d/%Y"}},
+        ),
+        contains=("no training rows",),
+        files={"dated.csv": with_column("when", US_DATES)},
+    ),
+    Case("gap-on-a-shuffled-split", "outer.gap", split("outer", gap=2)),
+    Case(
+        "recipe-step-on-a-missing-column",
+        "preprocess.groups[0].columns[0]",
+        top(preprocess={"groups": [{"columns": ["x9"], "treat_as": "categorical"}]}),
+        contains=("x9",),
+    ),
+    Case(
+        "recipe-value-outside-scikit-learn-constraints",
+        "preprocess.select.k",
+        top(preprocess={"select": {"method": "k_best", "k": -3}}),
+    ),
+    Case(
+        "unknown-recipe-imputation",
+        "preprocess.numeric.impute",
+        top(preprocess={"numeric": {"impute": "average"}}),
+    ),
+    Case(
+        "negative-weights",
+        "weights",
+        using("weighted.csv", weights="w", families=ONLY_LOGISTIC),
+        contains=("negative",),
+        files={"weighted.csv": with_column("w", NEGATIVE_WEIGHTS)},
+    ),
+    Case(
+        "missing-weights",
+        "weights",
+        using("weighted.csv", weights="w", families=ONLY_LOGISTIC),
+        contains=("missing",),
+        files={"weighted.csv": with_column("w", MISSING_WEIGHTS)},
+    ),
+    Case(
+        "weights-for-a-family-without-sample-weight",
+        "families[1].estimator",
+        using("weighted.csv", weights="w"),
+        contains=("KNeighborsClassifier",),
+        files={"weighted.csv": with_column("w", ["1"] * N_ROWS)},
+    ),
 ]
 CASE_IDS = [c.id for c in CASES]
 assert len(set(CASE_IDS)) == len(CASE_IDS), "case ids must be unique"

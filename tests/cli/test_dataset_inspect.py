@@ -67,3 +67,22 @@ def test_missing_file_is_refused_in_one_sentence(inspected: dict[str, Outcome]) 
     assert out.stderr.startswith("error: PATH.path: ") or out.stderr.startswith("error: PATH: ")
     assert "no_such_table.csv" in out.stderr
     assert out.stderr.rstrip().endswith(".")
+
+
+def test_inspect_shows_how_to_read_a_column_otherwise(
+    tmp_path_factory: pytest.TempPathFactory,
+) -> None:
+    folder = tmp_path_factory.mktemp("hints")
+    rows = "".join(f"{m:02d}/15/2024,{m % 3},{m * 1.5}\n" for m in range(1, 13))
+    (folder / "dated.csv").write_text("when,code,x\n" + rows)
+    as_json = run_foldwise(
+        "dataset", "inspect", "dated.csv", "--json", cwd=folder, home=folder / "h"
+    )
+    description = _description(as_json)
+    hints = {c["name"]: c["hint"] for c in description["columns"]}
+    assert '"format": "%m/%d/%Y"' in hints["when"]
+    assert hints["x"] is None
+    assert '"columns"' in description["column_types"]
+    text = run_foldwise("dataset", "inspect", "dated.csv", cwd=folder, home=folder / "h")
+    assert text.code == 0, text.stderr
+    assert "%m/%d/%Y" in text.stdout and "overrides these kinds" in text.stdout

@@ -9,6 +9,7 @@ import numpy as np
 import pandas as pd
 
 from service.datasets.canonical import content_hash
+from service.datasets.kinds import OVERRIDE_NOTE
 from service.datasets.sources import DatasetSource, describe_table, load_dataset_file, load_table
 
 
@@ -33,12 +34,13 @@ def test_describe_counts_missing_and_distinct(tmp_path: Path) -> None:
         "n_rows": 4,
         "n_columns": 4,
         "columns": [
-            {"name": "pump", "kind": "categorical", "missing": 0, "distinct": 4},
-            {"name": "site", "kind": "categorical", "missing": 1, "distinct": 2},
-            {"name": "pressure", "kind": "numeric", "missing": 1, "distinct": 2},
-            {"name": "failed", "kind": "boolean", "missing": 1, "distinct": 2},
+            {"name": "pump", "kind": "categorical", "missing": 0, "distinct": 4, "hint": None},
+            {"name": "site", "kind": "categorical", "missing": 1, "distinct": 2, "hint": None},
+            {"name": "pressure", "kind": "numeric", "missing": 1, "distinct": 2, "hint": None},
+            {"name": "failed", "kind": "boolean", "missing": 1, "distinct": 2, "hint": None},
         ],
         "origin": {"path": str(path), "format": "csv"},
+        "column_types": OVERRIDE_NOTE,
     }
     assert json.loads(json.dumps(summary)) == summary
 

@@ -6,7 +6,7 @@ from datetime import datetime
 
 from pydantic import BaseModel, Field
 
-from service.datasets.kinds import ColumnKind
+from service.datasets.kinds import OVERRIDE_NOTE, ColumnKind
 from service.datasets.sources import DatasetSource
 
 # The body of POST /v1/datasets is the same source object a job request's `dataset` may hold.
@@ -20,6 +20,11 @@ class ColumnPublic(BaseModel):
     kind: ColumnKind
     missing: int
     distinct: int
+    hint: str | None = Field(
+        default=None,
+        description="How a job request's `columns` could read this column otherwise, when a "
+        "second reading is likely (dates written as text, whole-number codes).",
+    )
 
 
 class DatasetSummary(BaseModel):
@@ -36,6 +41,9 @@ class DatasetPublic(DatasetSummary):
     """A registered table with its columns."""
 
     columns: list[ColumnPublic]
+    column_types: str = Field(
+        default=OVERRIDE_NOTE, description="How a job request overrides the inferred kinds."
+    )
 
 
 class DatasetList(BaseModel):

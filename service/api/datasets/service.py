@@ -11,6 +11,7 @@ from sqlalchemy.orm import Session
 
 from service.auth import Principal
 from service.config import Settings
+from service.datasets.kinds import override_hint
 from service.datasets.sources import (
     DatasetSource,
     LoadedTable,
@@ -126,9 +127,9 @@ def list_datasets(
 
 
 def column_summaries(dataset: Dataset, settings: Settings) -> list[dict[str, Any]]:
-    """Each column's kind, missing and distinct counts."""
+    """Each column's kind, missing and distinct counts, and a hint on reading it otherwise."""
     columns = [dict(c) for c in dataset.columns]
-    if all("missing" in c and "distinct" in c for c in columns):
+    if all("missing" in c and "distinct" in c and "hint" in c for c in columns):
         return columns
     # Rows stored by a job submission carry kinds only; count from the stored table once asked.
     frame = read_table(dataset.content_hash, settings.dataset_dir)
@@ -136,4 +137,5 @@ def column_summaries(dataset: Dataset, settings: Settings) -> list[dict[str, Any
         values = frame[column["name"]]
         column["missing"] = int(values.isna().sum())
         column["distinct"] = int(values.nunique(dropna=True))
+        column["hint"] = override_hint(values, column["kind"])
     return columns
