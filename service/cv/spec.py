@@ -114,6 +114,8 @@ class SelectionSpec(_Strict):
     # a share of each outer training part (seeded, stratified for classification; subsample.py)
     train_fraction: float = Field(default=1.0, gt=0, le=1)
     subsample_seed: int = Field(default=0, ge=0, le=2**32 - 1)
+    # columns whose values split the outer test rows into groups scored apart (slices.py)
+    slices: list[str] = Field(default_factory=list, max_length=20)
 
     @model_validator(mode="after")
     def _consistent(self) -> SelectionSpec:
