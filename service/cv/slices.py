@@ -14,6 +14,7 @@ independent samples; Nadeau and Bengio 2003 discuss the same issue for compariso
 
 from __future__ import annotations
 
+import math
 from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
@@ -77,7 +78,9 @@ def _score(stored: StoredPredictions, y: npt.NDArray[Any], metric: str) -> float
         scores = score_stored(stored, y, [metric])
     except ValueError:  # e.g. roc_auc on rows of one class: the metric is undefined there
         return None
-    return None if scores is None else scores[metric]
+    if scores is None or not math.isfinite(scores[metric]):
+        return None  # e.g. log loss or R² undefined on these rows: result v1 holds no NaN
+    return scores[metric]
 
 
 def flag_rule(differences: list[float]) -> tuple[float | None, bool]:
@@ -90,6 +93,8 @@ def flag_rule(differences: list[float]) -> tuple[float | None, bool]:
         p_value = 1.0 if float(values.mean()) == 0.0 else 0.0
     else:
         p_value = float(stats.ttest_1samp(values, 0.0).pvalue)
+    if not math.isfinite(p_value):
+        return None, False
     return p_value, p_value < FLAG_P
 
 

@@ -8,12 +8,13 @@ stored dataset; nothing is recomputed here.
 
 from __future__ import annotations
 
+from pathlib import Path
 from typing import Any
 
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from service.jobs.model_file import MEDIA_TYPE
+from service.jobs.model_file import MEDIA_TYPE, SUFFIX, untrusted_types
 from service.jobs.outer_predictions import require_result
 from service.store.models import Dataset, FinalModel, Job
 
@@ -29,6 +30,14 @@ def _inputs(job: Job, dataset: Dataset, result: dict[str, Any]) -> list[dict[str
         c["name"] for c in dataset.columns if c["name"] not in reserved
     ]
     return [{"name": n, "kind": kinds.get(n, "unknown")} for n in names]
+
+
+def _untrusted(path: str) -> list[str] | None:
+    """What skops would ask the loader to trust; None for a model kept in an older form."""
+    file = Path(path)
+    if file.suffix != SUFFIX or not file.is_file():
+        return None
+    return untrusted_types(file.read_bytes())
 
 
 def model_card(session: Session, job: Job) -> dict[str, Any]:
@@ -48,6 +57,7 @@ def model_card(session: Session, job: Job) -> dict[str, Any]:
             "format": MEDIA_TYPE,
             "model_sha256": final["model_sha256"],
             "size_bytes": model.size_bytes,
+            "untrusted_types": _untrusted(model.path),
             "fitted_at": job.finished_at.isoformat() if job.finished_at else None,
             "versions": result["versions"],
         },
@@ -108,6 +118,7 @@ def card_markdown(card: dict[str, Any]) -> str:
         f"- Candidate key: `{details['candidate_key']}`",
         f"- File: {details['format']}, {details['size_bytes']} bytes, "
         f"sha256 `{details['model_sha256']}`",
+        "- Types skops asks to trust: " + (", ".join(details["untrusted_types"] or []) or "none"),
         f"- Fitted: {details['fitted_at']}",
         "- Versions: " + ", ".join(f"{k} {v}" for k, v in details["versions"].items()),
         "",

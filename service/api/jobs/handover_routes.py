@@ -27,6 +27,7 @@ from service.store.models import FinalModel, Job
 
 router = APIRouter(prefix="/v1/jobs", tags=["handover"])
 SHA_HEADER = "X-Model-Sha256"
+UNTRUSTED_HEADER = "X-Model-Untrusted-Types"
 _ANSWERS = problem_responses(401, 403, 404, 409, 422)
 
 
@@ -53,7 +54,8 @@ def _job(session: Any, job_id: str, principal: Any, what: str) -> tuple[Job, dic
     responses={
         200: {
             "description": "The model file; X-Model-Sha256 and Repr-Digest carry its sha256, "
-            "equal to result v1's final_pick.model_sha256.",
+            "equal to result v1's final_pick.model_sha256; X-Model-Untrusted-Types lists what "
+            "skops.io.get_untrusted_types reports for it.",
             "content": {model_file.MEDIA_TYPE: {"schema": {"type": "string", "format": "binary"}}},
         },
         **_ANSWERS,
@@ -79,6 +81,8 @@ def download_model(job_id: JobId, principal: ReaderDep, session: SessionDep) -> 
         media_type=model_file.MEDIA_TYPE,
         headers={
             SHA_HEADER: model.sha256,
+            # what skops.io.get_untrusted_types reports for this file ("" when nothing)
+            UNTRUSTED_HEADER: ", ".join(model_file.untrusted_types(data)),
             "Repr-Digest": f"sha-256=:{digest}:",  # RFC 9530
             "Content-Disposition": f'attachment; filename="model-{job.id}.skops"',
         },
