@@ -101,18 +101,21 @@ def prediction_table(
     return PredictionTable(loaded, result, classes, proba, decision)
 
 
-def _fold_columns(table: PredictionTable, part: OuterPredictions) -> list[list[Any]]:
-    """Column-wise values of one fold's rows, as plain Python values."""
-    n = len(part.rows)
-    y = table.loaded.plan.y[part.rows]
-    arrays = part.stored.arrays
+def _fold_columns(
+    table: PredictionTable, part: OuterPredictions, start: int, stop: int
+) -> list[list[Any]]:
+    """Column-wise values of rows [start, stop) of one fold, as plain Python values."""
+    rows = part.rows[start:stop]
+    n = len(rows)
+    y = table.loaded.plan.y[rows]
+    arrays = {name: values[start:stop] for name, values in part.stored.arrays.items()}
     if part.stored.classes is None:  # regression
         predicted = arrays["predict"].tolist()
     else:
         fold_classes = np.asarray(part.stored.classes, dtype=object)
         predicted = fold_classes[arrays["predict"].astype(np.int64)].tolist()
     columns: list[list[Any]] = [
-        part.rows.tolist(),
+        rows.tolist(),
         [part.repeat] * n,
         [part.fold] * n,
         [part.candidate_key] * n,
@@ -141,11 +144,10 @@ def _fold_columns(table: PredictionTable, part: OuterPredictions) -> list[list[A
 
 
 def _pages(table: PredictionTable, parts: Iterator[OuterPredictions]) -> Iterator[list[list[Any]]]:
-    """Column-wise pages of at most PAGE rows."""
+    """Column-wise pages of at most PAGE rows (only one page is ever turned into objects)."""
     for part in parts:
-        columns = _fold_columns(table, part)
         for start in range(0, len(part.rows), PAGE):
-            yield [col[start : start + PAGE] for col in columns]
+            yield _fold_columns(table, part, start, start + PAGE)
 
 
 def json_page(
@@ -161,13 +163,10 @@ def json_page(
             start += size
             continue  # wholly read already: not decoded
         part = read_outer(session, table.loaded, outer_row)
-        columns = _fold_columns(table, part)
         first = max(0, after - start)
         last = min(size, first + limit - len(rows))
-        rows += [
-            dict(zip(names, values, strict=True))
-            for values in zip(*(c[first:last] for c in columns), strict=True)
-        ]
+        columns = _fold_columns(table, part, first, last)
+        rows += [dict(zip(names, values, strict=True)) for values in zip(*columns, strict=True)]
         start += size
         if len(rows) == limit:
             break

@@ -14,7 +14,7 @@ from jinja2 import Environment, FileSystemLoader, select_autoescape
 
 from service.api.deps import SessionsDep
 from service.jobs.service import NotFound, get_job, job_query
-from service.web import views
+from service.web import handover_view, views
 from service.web.compare_view import compare_page
 from service.web.session import (
     COOKIE,
@@ -174,6 +174,9 @@ def job_report(job_id: str, request: Request, sessions: SessionsDep) -> Response
         if job.kind == "learning_curve":
             return _page("learning.html", reader=reader, **views.learning_page(job))
         context = views.job_page(session, job)
+        context["handover"] = handover_view.prediction_sections(
+            session, job, request.app.state.settings
+        )
         return _page("job.html", started=started, reader=reader, **context)
 
 

@@ -17,6 +17,7 @@ from typing import Any
 
 import psycopg
 import pytest
+from api import server as live_server
 from api.server import Server, running_server  # tests/api/server.py: the live server helper
 
 from service.store.db import upgrade_database
@@ -68,6 +69,12 @@ MORE_METRICS_JOB: dict[str, Any] = {
     "metrics": [*PROBA_JOB["metrics"], "balanced_accuracy"],
     "slices": [],
 }
+
+
+# Starting the server spawns the local pool's processes, each importing scikit-learn; on a
+# shared two-core machine that took 57 s once (measured), so allow more than the default minute.
+live_server.START_TIMEOUT = max(live_server.START_TIMEOUT, 240.0)
+live_server.JOB_TIMEOUT = max(live_server.JOB_TIMEOUT, 600.0)  # four jobs share two cores
 
 
 @dataclass
