@@ -22,7 +22,6 @@ from pathlib import Path
 import pandas as pd
 import pyarrow.parquet as pq
 from sklearn.datasets import make_classification
-from sqlalchemy.orm import Session
 
 from service.analysis import predictions
 from service.config import load_settings
@@ -95,7 +94,6 @@ def main(sizes: list[int]) -> None:
                     f"  {label:7s}: {size / 1e6:7.2f} MB out, peak {peak / 1e6:6.2f} MB traced, "
                     f"{seconds:.2f} s ({n_rows / seconds:,.0f} rows/s)"
                 )
-            session: Session
             engine.dispose()
 
 

@@ -13,7 +13,7 @@ from typing import Annotated, Any
 
 from fastapi import APIRouter, Query, Response
 from fastapi.responses import PlainTextResponse, StreamingResponse
-from pydantic import BaseModel
+from pydantic import BaseModel, ConfigDict
 
 from service.analysis import predictions
 from service.api.deps import ReaderDep, SessionDep, SessionsDep, SettingsDep
@@ -29,6 +29,23 @@ router = APIRouter(prefix="/v1/jobs", tags=["handover"])
 SHA_HEADER = "X-Model-Sha256"
 UNTRUSTED_HEADER = "X-Model-Untrusted-Types"
 _ANSWERS = problem_responses(401, 403, 404, 409, 422)
+
+
+class ModelCard(BaseModel):
+    """A model card in the sections of Mitchell et al. 2019 (service/jobs/model_card.py)."""
+
+    model_config = ConfigDict(extra="allow")
+
+    model_details: dict[str, Any]
+    intended_use: str
+    inputs: list[dict[str, str]]
+    factors: list[dict[str, Any]]
+    metrics: dict[str, Any]
+    evaluation_data: dict[str, Any]
+    training_data: str
+    quantitative_analyses: dict[str, Any]
+    ethical_considerations: list[str]
+    caveats_and_recommendations: list[str]
 
 
 class PredictionPage(BaseModel):
@@ -91,13 +108,14 @@ def download_model(job_id: JobId, principal: ReaderDep, session: SessionDep) -> 
 
 @router.get(
     "/{job_id}/model-card",
+    response_model=ModelCard,
     summary="The final pick's model card as JSON (Mitchell et al. 2019 sections)",
     responses=_ANSWERS,
 )
-def get_model_card(job_id: JobId, principal: ReaderDep, session: SessionDep) -> dict[str, Any]:
+def get_model_card(job_id: JobId, principal: ReaderDep, session: SessionDep) -> ModelCard:
     """Dataset, target, task, the pick, the nested estimate, gap, pick frequency, cautions."""
     job, _ = _job(session, job_id, principal, "model card")
-    return model_card(session, job)
+    return ModelCard.model_validate(model_card(session, job))
 
 
 @router.get(
