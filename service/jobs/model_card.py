@@ -14,7 +14,7 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from service.jobs.model_file import MEDIA_TYPE, SUFFIX, untrusted_types
+from service.jobs.model_file import MEDIA_TYPE, SUFFIX, untrusted_types_of
 from service.jobs.outer_predictions import require_result
 from service.store.models import Dataset, FinalModel, Job
 
@@ -37,7 +37,7 @@ def _untrusted(path: str) -> list[str] | None:
     file = Path(path)
     if file.suffix != SUFFIX or not file.is_file():
         return None
-    return untrusted_types(file.read_bytes())
+    return untrusted_types_of(file)
 
 
 def model_card(session: Session, job: Job) -> dict[str, Any]:

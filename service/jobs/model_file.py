@@ -25,6 +25,7 @@ import io
 import json
 import re
 import zipfile
+from pathlib import Path
 from typing import Any
 
 import skops.io as sio
@@ -88,6 +89,20 @@ def model_bytes(model: Any) -> bytes:
 def sha256(data: bytes) -> str:
     """Hex sha256 of `data`."""
     return hashlib.sha256(data).hexdigest()
+
+
+def file_sha256(path: Path) -> str:
+    """Hex sha256 of a file, read in chunks."""
+    digest = hashlib.sha256()
+    with path.open("rb") as source:
+        for chunk in iter(lambda: source.read(1 << 20), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+def untrusted_types_of(path: Path) -> list[str]:
+    """Types in the file at `path` that skops would not load without being told to trust them."""
+    return list(sio.get_untrusted_types(file=path))
 
 
 def untrusted_types(data: bytes) -> list[str]:

@@ -12,7 +12,7 @@ from pathlib import Path as FilePath
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Query, Response
-from fastapi.responses import PlainTextResponse, StreamingResponse
+from fastapi.responses import FileResponse, PlainTextResponse, StreamingResponse
 from pydantic import BaseModel, ConfigDict
 
 from service.analysis import predictions
@@ -79,7 +79,7 @@ def _job(session: Any, job_id: str, principal: Any, what: str) -> tuple[Job, dic
     },
 )
 def download_model(job_id: JobId, principal: ReaderDep, session: SessionDep) -> Response:
-    """The bytes the job stored, checked against their recorded sha256 before they are sent."""
+    """The file the job stored, checked against its recorded sha256 before it is sent."""
     job, _ = _job(session, job_id, principal, "model")
     model = session.get_one(FinalModel, job.id)
     path = FilePath(model.path)
@@ -89,19 +89,19 @@ def download_model(job_id: JobId, principal: ReaderDep, session: SessionDep) -> 
             f"job {job.id}'s model was saved before models were kept in skops' format; submit "
             "the job again to get a model that can be handed over.",
         )
-    data = path.read_bytes()
-    if model_file.sha256(data) != model.sha256:  # a damaged file is never handed over
+    if model_file.file_sha256(path) != model.sha256:  # a damaged file is never handed over
         raise ProblemError(500, f"job {job.id}'s model file does not match its sha256.")
     digest = base64.b64encode(bytes.fromhex(model.sha256)).decode()
-    return Response(
-        data,
+    # streamed from disk: a forest's file can be large
+    return FileResponse(
+        path,
         media_type=model_file.MEDIA_TYPE,
+        filename=f"model-{job.id}.skops",
         headers={
             SHA_HEADER: model.sha256,
-            # what skops.io.get_untrusted_types reports for this file ("" when nothing)
-            UNTRUSTED_HEADER: ", ".join(model_file.untrusted_types(data)),
             "Repr-Digest": f"sha-256=:{digest}:",  # RFC 9530
-            "Content-Disposition": f'attachment; filename="model-{job.id}.skops"',
+            # what skops.io.get_untrusted_types reports for this file ("" when nothing)
+            UNTRUSTED_HEADER: ", ".join(model_file.untrusted_types_of(path)),
         },
     )
 
