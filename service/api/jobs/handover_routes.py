@@ -120,10 +120,13 @@ def get_model_card(job_id: JobId, principal: ReaderDep, session: SessionDep) -> 
 
 @router.get(
     "/{job_id}/model-card.md",
-    response_class=PlainTextResponse,
+    response_class=Response,
     summary="The final pick's model card as Markdown",
     responses={
-        200: {"content": {"text/markdown": {"schema": {"type": "string"}}}},
+        200: {
+            "description": "The card in Markdown.",
+            "content": {"text/markdown": {"schema": {"type": "string"}}},
+        },
         **_ANSWERS,
     },
 )
