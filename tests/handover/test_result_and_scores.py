@@ -10,7 +10,7 @@ from typing import Any
 
 import pyarrow.parquet as pq
 
-from .conftest import Handover
+from .conftest import PROBA_JOB, Handover
 
 
 def _scores(handover: Handover, job_id: str, **params: Any) -> list[dict[str, Any]]:
@@ -91,3 +91,17 @@ def test_exports_hold_only_the_jobs_metrics_unless_asked(handover: Handover) -> 
     table = pq.read_table(io.BytesIO(as_parquet)).to_pylist()
     assert {r["metric"] for r in table} == own
     assert len(table) == len(csv_rows)
+
+
+def test_a_slice_column_with_too_many_values_is_refused_and_nothing_stored(
+    handover: Handover,
+) -> None:
+    body = {**PROBA_JOB, "slices": ["mean radius"]}  # breast_cancer: hundreds of distinct radii
+    before = handover.server.count_jobs()
+    with handover.server.client(handover.token) as client:
+        answer = client.post("/v1/jobs", json=body)
+    assert answer.status_code == 422
+    problem = answer.json()
+    assert problem["field"] == "slices[0]"
+    assert "distinct values" in problem["detail"] and "at most 20" in problem["detail"]
+    assert handover.server.count_jobs() == before
