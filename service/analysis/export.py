@@ -18,6 +18,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 from sqlalchemy.orm import Session, sessionmaker
 
+from service.jobs.fold_rows import FoldContext
 from service.store.models import FoldScore
 
 PAGE = 1000
@@ -58,6 +59,20 @@ PARQUET_SCHEMA = pa.schema(
     ]
 )
 
+# a job's own exports add where each fold sits in its plan and the candidate (jobs/fold_rows.py)
+JOB_PARQUET_SCHEMA = pa.schema(
+    [
+        *PARQUET_SCHEMA,
+        ("role", pa.string()),
+        ("repeat", pa.int64()),
+        ("fold", pa.int64()),
+        ("inner_repeat", pa.int64()),
+        ("inner_fold", pa.int64()),
+        ("estimator", pa.string()),
+        ("params", pa.string()),  # a JSON object, as versions
+    ]
+)
+
 # fetch(session, after_id, limit) -> the next page of scores in id order
 PageFetcher = Callable[[Session, int, int], list[FoldScore]]
 
@@ -82,13 +97,18 @@ def score_row(score: FoldScore) -> dict[str, Any]:
     }
 
 
-def score_pages(sessions: sessionmaker[Session], fetch: PageFetcher) -> Iterator[list[dict]]:
+def score_pages(
+    sessions: sessionmaker[Session], fetch: PageFetcher, context: FoldContext | None = None
+) -> Iterator[list[dict]]:
     """Pages of flat rows, each read in its own session, until a short page ends the keyset."""
     after = 0
     while True:
         with sessions() as session:
             page = fetch(session, after, PAGE)
             rows = [score_row(s) for s in page]
+            if context is not None:
+                for row, score in zip(rows, page, strict=True):
+                    row.update(context.flat_extra(score.fold_fingerprint, score.candidate_key))
         if rows:
             yield rows
         if len(page) < PAGE:
@@ -141,16 +161,22 @@ class _Drain(io.RawIOBase):
         return out
 
 
-def parquet_chunks(sessions: sessionmaker[Session], fetch: PageFetcher) -> Iterator[bytes]:
-    """A Parquet file streamed as it is written: one row group per page, the footer last."""
+def parquet_chunks(
+    sessions: sessionmaker[Session], fetch: PageFetcher, context: FoldContext | None = None
+) -> Iterator[bytes]:
+    """A Parquet file streamed as it is written: one row group per page, the footer last.
+
+    With a job's `context`, each row also says where its fold sits and which candidate it is.
+    """
+    schema = PARQUET_SCHEMA if context is None else JOB_PARQUET_SCHEMA
     # Parquet is written front to back (magic, row groups, then the footer with their offsets),
     # so ParquetWriter needs no seek: each page's row group is sent as soon as it is written,
     # with no temporary file and never more than one page in memory.
     drain = _Drain()
-    writer = pq.ParquetWriter(drain, PARQUET_SCHEMA)
+    writer = pq.ParquetWriter(drain, schema)
     try:
-        for rows in score_pages(sessions, fetch):
-            writer.write_table(pa.Table.from_pylist(rows, schema=PARQUET_SCHEMA))
+        for rows in score_pages(sessions, fetch, context):
+            writer.write_table(pa.Table.from_pylist(rows, schema=schema))
             yield drain.take()
     finally:
         writer.close()

@@ -16,6 +16,7 @@ from service.api.analysis.router import router as analysis_router
 from service.api.audit.router import router as audit_router
 from service.api.datasets.router import router as datasets_router
 from service.api.health.router import router as health_router
+from service.api.jobs.handover_routes import router as handover_router
 from service.api.jobs.router import router as jobs_router
 from service.api.limits import BodyCap
 from service.api.problems import PROBLEM_MEDIA_TYPE, install_problem_handlers
@@ -115,6 +116,7 @@ def create_app(settings: Settings, *, local_workers: int | None = None) -> FastA
     app.include_router(health_router)
     app.include_router(datasets_router)
     app.include_router(jobs_router)
+    app.include_router(handover_router)
     app.include_router(audit_router)
     app.include_router(schedules_router)
     app.include_router(analysis_router)

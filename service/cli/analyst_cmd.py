@@ -99,12 +99,27 @@ def jobs(
 def result(
     job_id: Annotated[str, typer.Argument(metavar="JOB", help="A job id.")],
     as_json: JsonOption = False,
+    local: Annotated[
+        bool,
+        typer.Option(
+            "--local",
+            help="Read the job from this machine's store (where `foldwise select` keeps it); "
+            "the default when no server is named.",
+        ),
+    ] = False,
 ) -> None:
     """A job's result v1: the estimate, the picks, the optimism gap, the cautions."""
+    from service.cli.local_store import local_job, server_configured
     from service.cli.render import print_result
 
-    with _client() as client:
-        job = client.get(f"/v1/jobs/{job_id}")
+    if local or not server_configured():
+        try:
+            job = local_job(job_id)
+        except BadInput as exc:
+            refuse(exc)
+    else:
+        with _client() as client:
+            job = client.get(f"/v1/jobs/{job_id}")
     if job["status"] != "succeeded":
         detail = f": {job['error']}" if job.get("error") else ""
         refuse(BadInput("JOB", f"job {job_id} is {job['status']}, so it has no result{detail}."))

@@ -1,14 +1,18 @@
-"""A small HTTP client of a foldwise server for the analysts' commands.
+"""A small typed HTTP client of a foldwise server, used by the command line and by team services.
 
 The URL and token come from FOLDWISE_URL / FOLDWISE_TOKEN, or else from FOLDWISE_HOME/client.json
-(written by `foldwise login`, readable by its owner only, since it holds a bearer token).
+(written by `foldwise login`, readable by its owner only, since it holds a bearer token); a
+service passes them directly with `Client.connect(url, token)`. A 4xx answer raises BadInput
+(the problem's field and sentence), an unreachable server or a 5xx ServerFailed.
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
 import os
-from collections.abc import Iterator, Mapping
+import time
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -19,6 +23,8 @@ from service.errors import BadInput
 
 CONFIG_NAME = "client.json"
 TIMEOUT = 60.0
+PAGE = 1000
+ENDED = ("succeeded", "failed", "cancelled")
 
 
 class ServerFailed(Exception):
@@ -97,7 +103,12 @@ def _check(answer: httpx.Response) -> httpx.Response:
 
 
 class Client:
-    """GET requests to one server with one token; 4xx become BadInput, the rest ServerFailed."""
+    """Requests to one server with one token; 4xx become BadInput, the rest ServerFailed."""
+
+    @classmethod
+    def connect(cls, url: str, token: str) -> Client:
+        """A client of the server at `url` showing `token` (use it in a `with` block)."""
+        return cls(ClientConfig(url.rstrip("/"), token))
 
     def __init__(self, config: ClientConfig) -> None:
         self.config = config
@@ -132,3 +143,108 @@ class Client:
                 yield from answer.iter_bytes()
         except httpx.TransportError as exc:
             raise ServerFailed(f"cannot reach {self.config.url} ({exc}).") from None
+
+    def post(self, path: str, body: Any, headers: Mapping[str, str] | None = None) -> Any:
+        """The JSON body of POST path with a JSON body."""
+        try:
+            answer = self._http.post(path, json=body, headers=dict(headers or {}))
+        except httpx.TransportError as exc:
+            raise ServerFailed(f"cannot reach {self.config.url} ({exc}).") from None
+        return _check(answer).json()
+
+    def submit(self, request: Mapping[str, Any], idempotency_key: str | None = None) -> dict:
+        """Submit job request v1; the same key and body give back the same job, never a twin."""
+        headers = {"Idempotency-Key": idempotency_key} if idempotency_key else {}
+        job: dict[str, Any] = self.post("/v1/jobs", dict(request), headers)
+        return job
+
+    def job(self, job_id: str) -> dict[str, Any]:
+        """The job as GET /v1/jobs/{id} shows it (status, progress, result once succeeded)."""
+        job: dict[str, Any] = self.get(f"/v1/jobs/{job_id}")
+        return job
+
+    def wait(
+        self,
+        job_id: str,
+        progress: Callable[[int, int], None] | None = None,
+        *,
+        poll_seconds: float = 1.0,
+        timeout: float | None = None,
+    ) -> dict[str, Any]:
+        """Poll until the job ends, calling progress(units_done, units_total) on each look."""
+        deadline = None if timeout is None else time.monotonic() + timeout
+        while True:
+            job = self.job(job_id)
+            if progress is not None:
+                progress(job["progress"]["units_done"], job["progress"]["units_total"])
+            if job["status"] in ENDED:
+                return job
+            if deadline is not None and time.monotonic() > deadline:
+                raise ServerFailed(f"job {job_id} is still {job['status']} after {timeout} s.")
+            time.sleep(poll_seconds)
+
+    def result(self, job_id: str) -> dict[str, Any]:
+        """Result v1 of a succeeded job (BadInput saying why for any other status)."""
+        job = self.job(job_id)
+        if job["status"] != "succeeded":
+            detail = f": {job['error']}" if job.get("error") else ""
+            raise BadInput("JOB", f"job {job_id} is {job['status']}, so it has no result{detail}.")
+        result: dict[str, Any] = job["result"]
+        return result
+
+    def _pages(self, path: str, **params: Any) -> Iterator[dict[str, Any]]:
+        after = 0
+        while True:
+            page = self.get(path, after=after, limit=PAGE, **params)
+            yield from page["data"]
+            if page["next_after"] is None:
+                return
+            after = page["next_after"]
+
+    def fold_scores(self, job_id: str, *, all_metrics: bool = False) -> Iterator[dict[str, Any]]:
+        """Every fold score of the job, page by page (only its own metrics unless asked)."""
+        params = {"all_metrics": "true"} if all_metrics else {}
+        return self._pages(f"/v1/jobs/{job_id}/fold-scores", **params)
+
+    def predictions(self, job_id: str) -> Iterator[dict[str, Any]]:
+        """Every outer test row's prediction, page by page."""
+        return self._pages(f"/v1/jobs/{job_id}/predictions")
+
+    def download_model(self, job_id: str, path: Path | str) -> str:
+        """Write the final model (skops) to `path`; returns its sha256, checked against the
+        server's header and result v1 before the file is kept."""
+        target = Path(path)
+        partial = target.with_name(target.name + ".partial")
+        digest = hashlib.sha256()
+        try:
+            with self._http.stream("GET", f"/v1/jobs/{job_id}/model") as answer:
+                if answer.status_code >= 400:
+                    answer.read()
+                    _check(answer)
+                announced = answer.headers.get("X-Model-Sha256", "")
+                with partial.open("wb") as out:
+                    for chunk in answer.iter_bytes():
+                        digest.update(chunk)
+                        out.write(chunk)
+        except httpx.TransportError as exc:
+            raise ServerFailed(f"cannot reach {self.config.url} ({exc}).") from None
+        expected = self.result(job_id)["final_pick"]["model_sha256"]
+        if digest.hexdigest() != announced or announced != expected:
+            partial.unlink(missing_ok=True)
+            raise ServerFailed(f"the model of job {job_id} arrived damaged (sha256 differs).")
+        partial.replace(target)
+        return expected
+
+    def model_card(self, job_id: str) -> dict[str, Any]:
+        """The model card as JSON."""
+        card: dict[str, Any] = self.get(f"/v1/jobs/{job_id}/model-card")
+        return card
+
+    def model_card_markdown(self, job_id: str) -> str:
+        """The model card as Markdown."""
+        return b"".join(self.stream(f"/v1/jobs/{job_id}/model-card.md")).decode("utf-8")
+
+    def compare(self, first: str, second: str) -> dict[str, Any]:
+        """Two jobs on one dataset compared fold by fold (GET /v1/compare)."""
+        comparison: dict[str, Any] = self.get("/v1/compare", jobs=f"{first},{second}")
+        return comparison

@@ -9,7 +9,7 @@ from typing import Annotated, Any
 
 import typer
 
-from service.cli import analyst_cmd, workers_cmd
+from service.cli import analyst_cmd, handover_cmd, workers_cmd
 from service.cli.audit_cmd import audit
 from service.cli.demo_cmd import demo
 from service.cli.output import fail, refuse, stderr, stdout
@@ -125,7 +125,7 @@ app.command()(workers_cmd.worker)
 app.command()(workers_cmd.beat)
 app.command()(audit)
 app.command("webhook-secret")(webhook_secret)
-for _command in analyst_cmd.COMMANDS:
+for _command in (*analyst_cmd.COMMANDS, *handover_cmd.COMMANDS):
     app.command()(_command)
 
 if __name__ == "__main__":  # pragma: no cover

@@ -15,6 +15,7 @@ from service.cv.errors import SpecError
 from service.cv.metrics import check_metrics
 from service.cv.preprocess import FeatureTable, check_preprocess, feature_table
 from service.cv.recipe import check_recipe
+from service.cv.slices import check_slices
 from service.cv.spec import SelectionSpec
 from service.cv.splits import Fold, SplitInputs, split_rows
 from service.cv.subsample import subsample_outer
@@ -171,6 +172,7 @@ def build_plan(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) 
         )
     check_metrics(spec.metrics, spec.task, n_classes)
     features = _features(spec, frame)
+    check_slices(spec.slices, frame)
     table = feature_table(frame, features, kinds)
     candidates = enumerate_candidates(spec)
     if spec.recipe is not None:

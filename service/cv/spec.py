@@ -142,6 +142,8 @@ class SelectionSpec(_Strict):
     # column types that override inference, and the column of observation weights
     columns: dict[str, ColumnType] = Field(default_factory=dict)
     weights: str | None = Field(default=None, min_length=1)
+    # columns whose values split the outer test rows into groups scored apart (slices.py)
+    slices: list[str] = Field(default_factory=list, max_length=20)
 
     @model_validator(mode="after")
     def _consistent(self) -> SelectionSpec:

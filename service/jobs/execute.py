@@ -6,9 +6,7 @@ takes an id, opens its own sessions, and the database decides whether this copy 
 
 from __future__ import annotations
 
-import hashlib
 import os
-import pickle
 import socket
 import time
 import traceback
@@ -30,6 +28,7 @@ from service.cv.units import (
     UnitRef,
     fit_and_score,
 )
+from service.jobs import model_file
 from service.jobs.plans import LoadedPlan, plan_for_job
 from service.jobs.scores import load_book
 from service.notify.outbox import queue_job_notice
@@ -106,10 +105,11 @@ class _CancelCheck:
 
 
 def _save_model(outcome: UnitOutcome, settings: Settings) -> tuple[str, Path, int]:
-    payload = pickle.dumps(outcome.model, protocol=5)
-    digest = hashlib.sha256(payload).hexdigest()
+    # kept in skops' format only: the bytes a client downloads are the bytes hashed here
+    payload = model_file.model_bytes(outcome.model)
+    digest = model_file.sha256(payload)
     settings.model_dir.mkdir(parents=True, exist_ok=True)
-    path = settings.model_dir / f"{digest}.pkl"
+    path = settings.model_dir / f"{digest}{model_file.SUFFIX}"
     if not path.exists():
         temporary = path.with_suffix(f".{os.getpid()}.tmp")
         temporary.write_bytes(payload)

@@ -14,6 +14,8 @@ import service
 from service.cv.cautions import find_cautions
 from service.cv.selection import Pick as EnginePick
 from service.cv.selection import ScoreBook, assemble
+from service.cv.slices import slice_estimates
+from service.jobs.outer_predictions import NotReady, all_outer
 from service.jobs.plans import LoadedPlan
 from service.store.db import utcnow
 from service.store.models import FinalModel, FoldScore, Job, WorkUnit
@@ -84,4 +86,16 @@ def build_result(
     result["work"]["outer_computed_by"] = computing_jobs(session, loaded, result)
     result["versions"] = versions()
     result["cautions"] = find_cautions(loaded.plan, loaded.frame, loaded.kinds)
+    # every candidate evaluated, drawn range values as drawn, in the order that breaks ties
+    result["candidates"] = [c.public() for c in loaded.plan.candidates]
+    spec = loaded.plan.spec
+    if spec.slices:
+        try:
+            outer = all_outer(session, loaded, result)
+        except NotReady as exc:  # predictions of an old reused fold are missing: say so
+            result["cautions"].append(f"No estimates per slice: {exc}")
+        else:
+            result["slices"] = slice_estimates(
+                spec.slices, loaded.frame, loaded.plan.y, outer, spec.metrics, spec.pick_metric
+            )
     return result

@@ -200,20 +200,23 @@ def queued_unit_ids(session: Session, job_id: str) -> list[int]:
     )
 
 
-def fold_scores_page(session: Session, job: Job, *, after_id: int, limit: int) -> list[FoldScore]:
-    """The stored scores of the job's candidates on its folds, in id order after `after_id`."""
+def fold_scores_page(
+    session: Session, job: Job, *, after_id: int, limit: int, all_metrics: bool = False
+) -> list[FoldScore]:
+    """The stored scores of the job's candidates on its folds, in id order after `after_id`.
+
+    Only the metrics the job asked for, unless `all_metrics`: another job on the same folds may
+    have added metrics this job never requested.
+    """
     folds = select(JobFold.fingerprint).where(JobFold.job_id == job.id)
     keys = select(JobCandidate.candidate_key).where(JobCandidate.job_id == job.id)
-    return list(
-        session.scalars(
-            select(FoldScore)
-            .where(
-                FoldScore.dataset_hash == job.dataset_hash,
-                FoldScore.fold_fingerprint.in_(folds),
-                FoldScore.candidate_key.in_(keys),
-                FoldScore.id > after_id,
-            )
-            .order_by(FoldScore.id)
-            .limit(limit)
-        )
+    query = select(FoldScore).where(
+        FoldScore.dataset_hash == job.dataset_hash,
+        FoldScore.fold_fingerprint.in_(folds),
+        FoldScore.candidate_key.in_(keys),
+        FoldScore.id > after_id,
     )
+    metrics = list((job.request or {}).get("metrics") or [])
+    if metrics and not all_metrics:
+        query = query.where(FoldScore.metric.in_(metrics))
+    return list(session.scalars(query.order_by(FoldScore.id).limit(limit)))

@@ -16,7 +16,7 @@ from sqlalchemy import select
 from service.api.deps import SessionsDep
 from service.jobs.service import NotFound, get_job, job_query
 from service.store.models import Dataset
-from service.web import dataset_view, views
+from service.web import dataset_view, handover_view, views
 from service.web.compare_view import compare_page
 from service.web.job_state import REFRESH_SECONDS
 from service.web.session import (
@@ -190,6 +190,9 @@ def job_report(
             template = "learning.html"
         else:
             context = views.job_page(session, job)
+            context["handover"] = handover_view.prediction_sections(
+                session, job, request.app.state.settings
+            )
             template = "job.html"
         context["refresh"] = context["refresh"] and not still
         context.update(still=still, refresh_seconds=REFRESH_SECONDS)

@@ -13,6 +13,7 @@ import pytest
 
 from service.analysis import export, queries
 from service.auth import Principal
+from service.jobs.fold_rows import EXTRA_COLUMNS
 
 from .conftest import Seeded
 
@@ -81,9 +82,19 @@ def test_dataset_csv_and_parquet_equal_the_json_listing(
 
 def test_job_parquet_equals_the_job_listing(seeded: Seeded) -> None:
     job_id = seeded.jobs["B"]["id"]
-    listing = _json_records(_listing(seeded, f"/v1/jobs/{job_id}/fold-scores"))
+    rows = _listing(seeded, f"/v1/jobs/{job_id}/fold-scores")
     content, _ = _get_bytes(seeded, f"/v1/jobs/{job_id}/fold-scores.parquet")
-    assert _records(pd.read_parquet(io.BytesIO(content))) == listing
+    frame = pd.read_parquet(io.BytesIO(content))
+    # a job's export adds where each fold sits and the candidate (service/jobs/fold_rows.py)
+    assert list(frame.columns) == export.JOB_PARQUET_SCHEMA.names
+    assert _records(frame[list(export.COLUMNS)]) == _json_records(rows)
+    extra = frame[list(EXTRA_COLUMNS)].astype(object).where(frame.notna(), None)
+    expected = [
+        {**{c: row[c] for c in EXTRA_COLUMNS}, "params": json.dumps(row["params"], sort_keys=True)}
+        for row in rows
+    ]
+    assert [{c: _plain(v, c) for c, v in r.items()} for r in extra.to_dict("records")] == expected
+    assert {row["role"] for row in rows} == {"outer", "inner", "final_inner"}
 
 
 def test_parquet_is_written_one_row_group_per_page(

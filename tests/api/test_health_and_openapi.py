@@ -39,6 +39,12 @@ ROUTES = {
     ("get", "/v1/datasets/{content_hash}/fold-scores.parquet"),
     ("get", "/v1/datasets/{content_hash}/history"),
     ("get", "/v1/compare"),
+    ("get", "/v1/jobs/{job_id}/model"),
+    ("get", "/v1/jobs/{job_id}/model-card"),
+    ("get", "/v1/jobs/{job_id}/model-card.md"),
+    ("get", "/v1/jobs/{job_id}/predictions"),
+    ("get", "/v1/jobs/{job_id}/predictions.csv"),
+    ("get", "/v1/jobs/{job_id}/predictions.parquet"),
 }
 
 
@@ -102,7 +108,13 @@ def test_each_route_documents_its_answer_and_its_problems(
         if "application/json" in content:
             assert "$ref" in content["application/json"]["schema"]
         else:
-            assert set(content) & {"text/plain", "text/csv", "application/vnd.apache.parquet"}
+            assert set(content) & {
+                "text/plain",
+                "text/csv",
+                "text/markdown",
+                "application/vnd.apache.parquet",
+                "application/vnd.skops",
+            }
     problems = [s for s in answers if s[0] in "45"]
     if path.startswith("/v1/"):
         assert {"401", "403", "422"} <= set(problems)

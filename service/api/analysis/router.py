@@ -18,12 +18,14 @@ from service.api.analysis.schemas import (
     history_public,
 )
 from service.api.deps import ReaderDep, SessionDep, SessionsDep
+from service.api.jobs.router import AllMetrics
 from service.api.jobs.router import _summary as job_summary  # one listing shape for jobs
 from service.api.jobs.schemas import FoldScorePage, FoldScorePublic, JobList
 from service.api.problems import problem_responses
 from service.auth import Principal
 from service.errors import BadInput
 from service.jobs import service
+from service.jobs.fold_rows import fold_context
 from service.store.models import FoldScore, Job
 
 router = APIRouter(tags=["analysis"])
@@ -182,7 +184,11 @@ def export_dataset_parquet(
     },
 )
 def export_job_parquet(
-    job_id: JobId, principal: ReaderDep, session: SessionDep, sessions: SessionsDep
+    job_id: JobId,
+    principal: ReaderDep,
+    session: SessionDep,
+    sessions: SessionsDep,
+    all_metrics: AllMetrics = False,
 ) -> StreamingResponse:
     """The same scores as GET /v1/jobs/{id}/fold-scores, streamed as Parquet."""
     job = service.get_job(session, job_id, principal)
@@ -190,10 +196,12 @@ def export_job_parquet(
 
     def fetch(page_session: Session, after: int, limit: int) -> list[FoldScore]:
         stored = page_session.get_one(Job, found)
-        return service.fold_scores_page(page_session, stored, after_id=after, limit=limit)
+        return service.fold_scores_page(
+            page_session, stored, after_id=after, limit=limit, all_metrics=all_metrics
+        )
 
     return _stream(
-        export.parquet_chunks(sessions, fetch),
+        export.parquet_chunks(sessions, fetch, fold_context(session, found)),
         "application/vnd.apache.parquet",
         f"fold-scores-{found}.parquet",
     )

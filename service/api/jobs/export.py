@@ -11,8 +11,9 @@ from typing import Any
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.api.jobs.schemas import FOLD_SCORE_COLUMNS, FoldScorePublic
+from service.jobs.fold_rows import EXTRA_COLUMNS, FoldContext, describe_score, fold_context
 from service.jobs.service import fold_scores_page
-from service.store.models import Job
+from service.store.models import FoldScore, Job
 
 PAGE = 1000
 
@@ -22,22 +23,41 @@ def _cell(value: Any) -> Any:
     return json.dumps(value, sort_keys=True) if isinstance(value, dict) else value
 
 
-def fold_score_lines(sessions: sessionmaker[Session], job_id: str) -> Iterator[str]:
+STORED_COLUMNS = tuple(c for c in FOLD_SCORE_COLUMNS if c not in EXTRA_COLUMNS)
+
+
+def public_scores(scores: list[FoldScore], context: FoldContext) -> list[FoldScorePublic]:
+    """Stored scores as the listing shows them, with their fold's place and candidate."""
+    return [
+        FoldScorePublic.model_validate(
+            {
+                **{c: getattr(score, c) for c in STORED_COLUMNS},
+                **describe_score(score, context),
+            }
+        )
+        for score in scores
+    ]
+
+
+def fold_score_lines(
+    sessions: sessionmaker[Session], job_id: str, *, all_metrics: bool = False
+) -> Iterator[str]:
     """The header, then one line per score, cells formatted as the JSON listing formats them."""
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
     writer.writerow(FOLD_SCORE_COLUMNS)
     after = 0
+    with sessions() as session:
+        context = fold_context(session, job_id)
     while True:
         # A short session per page: on SQLite a transaction holds the write lock, and the
         # client may read slowly.
         with sessions() as session:
             job = session.get_one(Job, job_id)
-            page = fold_scores_page(session, job, after_id=after, limit=PAGE)
-            rows = [
-                FoldScorePublic.model_validate(r, from_attributes=True).model_dump(mode="json")
-                for r in page
-            ]
+            page = fold_scores_page(
+                session, job, after_id=after, limit=PAGE, all_metrics=all_metrics
+            )
+            rows = [r.model_dump(mode="json") for r in public_scores(page, context)]
         for row in rows:
             writer.writerow([_cell(row[c]) for c in FOLD_SCORE_COLUMNS])
         yield buffer.getvalue()

@@ -22,7 +22,6 @@ from service.api.deps import (
 from service.api.jobs import export
 from service.api.jobs.schemas import (
     FoldScorePage,
-    FoldScorePublic,
     JobLinks,
     JobList,
     JobProgress,
@@ -35,6 +34,7 @@ from service.dispatch.base import mark_published
 from service.errors import BadInput
 from service.jobs import service
 from service.jobs.curves import CURVE_KIND, start_children
+from service.jobs.fold_rows import fold_context
 from service.jobs.reuse import start_if_settled
 from service.store.models import Job
 
@@ -48,6 +48,13 @@ IdempotencyKey = Annotated[
         alias="Idempotency-Key",
         max_length=200,
         description="Repeat a submission safely: the same key and body name the same job.",
+    ),
+]
+AllMetrics = Annotated[
+    bool,
+    Query(
+        description="Also list metrics that other jobs stored on these folds and candidates; "
+        "by default only the metrics this job asked for."
     ),
 ]
 _ROOTS_HINT = (
@@ -252,11 +259,14 @@ def list_fold_scores(
     session: SessionDep,
     after: Annotated[int, Query(ge=0, description="Return scores with id greater than this.")] = 0,
     limit: Annotated[int, Query(ge=1, le=1000)] = 100,
+    all_metrics: AllMetrics = False,
 ) -> FoldScorePage:
     """Scores of the job's candidates on its folds, whichever job computed them."""
     job = service.get_job(session, job_id, principal)
-    rows = service.fold_scores_page(session, job, after_id=after, limit=limit)
-    data = [FoldScorePublic.model_validate(r, from_attributes=True) for r in rows]
+    rows = service.fold_scores_page(
+        session, job, after_id=after, limit=limit, all_metrics=all_metrics
+    )
+    data = export.public_scores(rows, fold_context(session, job.id))
     return FoldScorePage(data=data, next_after=data[-1].id if len(data) == limit else None)
 
 
@@ -274,12 +284,16 @@ def list_fold_scores(
     },
 )
 def export_fold_scores(
-    job_id: JobId, principal: ReaderDep, session: SessionDep, sessions: SessionsDep
+    job_id: JobId,
+    principal: ReaderDep,
+    session: SessionDep,
+    sessions: SessionsDep,
+    all_metrics: AllMetrics = False,
 ) -> StreamingResponse:
     """Streamed page by page, each page read in its own short session."""
     job = service.get_job(session, job_id, principal)
     return StreamingResponse(
-        export.fold_score_lines(sessions, job.id),
+        export.fold_score_lines(sessions, job.id, all_metrics=all_metrics),
         media_type="text/csv; charset=utf-8",
         headers={"Content-Disposition": f'attachment; filename="fold-scores-{job.id}.csv"'},
     )

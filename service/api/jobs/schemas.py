@@ -85,6 +85,15 @@ class ResultV1(_Open):
     work: WorkSummary
     versions: dict[str, str]
     cautions: list[str]
+    candidates: list[CandidatePublic] = Field(
+        default_factory=list,
+        description="Every candidate evaluated, in request order; drawn values as drawn.",
+    )
+    slices: list[dict[str, Any]] | None = Field(
+        default=None,
+        description="Per slice column named in the request: the estimate per value, with counts "
+        "and a flag where a group differs from the rest by more than the fold-to-fold noise.",
+    )
 
 
 class JobProgress(BaseModel):
@@ -156,6 +165,14 @@ class FoldScorePublic(BaseModel):
     worker: str
     job_id: str
     created_at: datetime
+    # where the fold sits in this job's plan, and the candidate behind the key (fold_rows.py)
+    role: str | None = Field(default=None, description="outer, inner or final_inner.")
+    repeat: int | None = Field(default=None, description="The outer repeat (inner: its parent).")
+    fold: int | None = Field(default=None, description="The outer fold (inner: its parent).")
+    inner_repeat: int | None = None
+    inner_fold: int | None = None
+    estimator: str | None = None
+    params: dict[str, Any] | None = None
 
 
 class FoldScorePage(BaseModel):

@@ -1,0 +1,229 @@
+"""Handing a job's outcome over: the final model (skops), its model card, out-of-fold predictions.
+
+Visibility is the job routes': another team's job is a 404. A job that has not succeeded (or a
+learning curve's parent, which has no model of its own) answers 409 with a sentence saying why.
+"""
+
+from __future__ import annotations
+
+import base64
+from collections.abc import Iterator
+from pathlib import Path as FilePath
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Query, Response
+from fastapi.responses import FileResponse, PlainTextResponse, StreamingResponse
+from pydantic import BaseModel, ConfigDict
+
+from service.analysis import predictions
+from service.api.deps import ReaderDep, SessionDep, SessionsDep, SettingsDep
+from service.api.jobs.router import JobId
+from service.api.problems import ProblemError, problem_responses
+from service.jobs import model_file, service
+from service.jobs.model_card import card_markdown, model_card
+from service.jobs.outer_predictions import NotReady, require_result
+from service.jobs.plans import plan_for_job
+from service.store.models import FinalModel, Job
+
+router = APIRouter(prefix="/v1/jobs", tags=["handover"])
+SHA_HEADER = "X-Model-Sha256"
+UNTRUSTED_HEADER = "X-Model-Untrusted-Types"
+_ANSWERS = problem_responses(401, 403, 404, 409, 422)
+
+
+class ModelCard(BaseModel):
+    """A model card in the sections of Mitchell et al. 2019 (service/jobs/model_card.py)."""
+
+    model_config = ConfigDict(extra="allow")
+
+    model_details: dict[str, Any]
+    intended_use: str
+    inputs: list[dict[str, str]]
+    factors: list[dict[str, Any]]
+    metrics: dict[str, Any]
+    evaluation_data: dict[str, Any]
+    training_data: str
+    quantitative_analyses: dict[str, Any]
+    ethical_considerations: list[str]
+    caveats_and_recommendations: list[str]
+
+
+class PredictionPage(BaseModel):
+    """Rows of the outer test folds; pass `next_after` as `after` for more (null: no more)."""
+
+    columns: list[str]
+    data: list[dict[str, Any]]
+    next_after: int | None
+
+
+def _job(session: Any, job_id: str, principal: Any, what: str) -> tuple[Job, dict[str, Any]]:
+    job = service.get_job(session, job_id, principal)
+    try:
+        return job, require_result(job, what)
+    except NotReady as exc:
+        raise ProblemError(409, str(exc)) from None
+
+
+@router.get(
+    "/{job_id}/model",
+    response_class=Response,
+    summary="The final pick fitted on all rows, in skops' format, its sha256 in a header",
+    responses={
+        200: {
+            "description": "The model file; X-Model-Sha256 and Repr-Digest carry its sha256, "
+            "equal to result v1's final_pick.model_sha256; X-Model-Untrusted-Types lists what "
+            "skops.io.get_untrusted_types reports for it.",
+            "content": {model_file.MEDIA_TYPE: {"schema": {"type": "string", "format": "binary"}}},
+        },
+        **_ANSWERS,
+    },
+)
+def download_model(job_id: JobId, principal: ReaderDep, session: SessionDep) -> Response:
+    """The file the job stored, checked against its recorded sha256 before it is sent."""
+    job, _ = _job(session, job_id, principal, "model")
+    model = session.get_one(FinalModel, job.id)
+    path = FilePath(model.path)
+    if path.suffix != model_file.SUFFIX:
+        raise ProblemError(
+            409,
+            f"job {job.id}'s model was saved before models were kept in skops' format; submit "
+            "the job again to get a model that can be handed over.",
+        )
+    if model_file.file_sha256(path) != model.sha256:  # a damaged file is never handed over
+        raise ProblemError(500, f"job {job.id}'s model file does not match its sha256.")
+    digest = base64.b64encode(bytes.fromhex(model.sha256)).decode()
+    # streamed from disk: a forest's file can be large
+    return FileResponse(
+        path,
+        media_type=model_file.MEDIA_TYPE,
+        filename=f"model-{job.id}.skops",
+        headers={
+            SHA_HEADER: model.sha256,
+            "Repr-Digest": f"sha-256=:{digest}:",  # RFC 9530
+            # what skops.io.get_untrusted_types reports for this file ("" when nothing)
+            UNTRUSTED_HEADER: ", ".join(model_file.untrusted_types_of(path)),
+        },
+    )
+
+
+@router.get(
+    "/{job_id}/model-card",
+    response_model=ModelCard,
+    summary="The final pick's model card as JSON (Mitchell et al. 2019 sections)",
+    responses=_ANSWERS,
+)
+def get_model_card(job_id: JobId, principal: ReaderDep, session: SessionDep) -> ModelCard:
+    """Dataset, target, task, the pick, the nested estimate, gap, pick frequency, cautions."""
+    job, _ = _job(session, job_id, principal, "model card")
+    return ModelCard.model_validate(model_card(session, job))
+
+
+@router.get(
+    "/{job_id}/model-card.md",
+    response_class=Response,
+    summary="The final pick's model card as Markdown",
+    responses={
+        200: {
+            "description": "The card in Markdown.",
+            "content": {"text/markdown": {"schema": {"type": "string"}}},
+        },
+        **_ANSWERS,
+    },
+)
+def get_model_card_markdown(
+    job_id: JobId, principal: ReaderDep, session: SessionDep
+) -> PlainTextResponse:
+    """The same card as Markdown."""
+    job, _ = _job(session, job_id, principal, "model card")
+    return PlainTextResponse(
+        card_markdown(model_card(session, job)), media_type="text/markdown; charset=utf-8"
+    )
+
+
+def _table(session: Any, job_id: str, principal: Any, settings: Any) -> predictions.PredictionTable:
+    job, result = _job(session, job_id, principal, "set of predictions")
+    loaded = plan_for_job(session, job.id, settings)
+    try:
+        return predictions.prediction_table(session, loaded, result)
+    except NotReady as exc:
+        raise ProblemError(409, str(exc)) from None
+
+
+@router.get(
+    "/{job_id}/predictions",
+    response_model=PredictionPage,
+    summary="Out-of-fold predictions of the outer test folds, in pages",
+    responses=_ANSWERS,
+)
+def list_predictions(
+    job_id: JobId,
+    principal: ReaderDep,
+    session: SessionDep,
+    settings: SettingsDep,
+    after: Annotated[int, Query(ge=0, description="Rows already read (0 to start).")] = 0,
+    limit: Annotated[int, Query(ge=1, le=predictions.MAX_PAGE)] = 1000,
+) -> PredictionPage:
+    """Per outer test row: row index, repeat, fold, pick, actual, predicted, probabilities."""
+    table = _table(session, job_id, principal, settings)
+    try:
+        rows, next_after = predictions.json_page(session, table, after=after, limit=limit)
+    except NotReady as exc:
+        raise ProblemError(409, str(exc)) from None
+    return PredictionPage(columns=table.columns, data=rows, next_after=next_after)
+
+
+def _stream(chunks: Iterator[Any], media_type: str, filename: str) -> StreamingResponse:
+    return StreamingResponse(
+        chunks,
+        media_type=media_type,
+        headers={"Content-Disposition": f'attachment; filename="{filename}"'},
+    )
+
+
+@router.get(
+    "/{job_id}/predictions.csv",
+    response_class=StreamingResponse,
+    response_model=None,
+    summary="Out-of-fold predictions as CSV, streamed fold by fold",
+    responses={200: {"content": {"text/csv": {"schema": {"type": "string"}}}}, **_ANSWERS},
+)
+def export_predictions_csv(
+    job_id: JobId,
+    principal: ReaderDep,
+    session: SessionDep,
+    sessions: SessionsDep,
+    settings: SettingsDep,
+) -> StreamingResponse:
+    """The JSON pages' columns, one line per outer test row."""
+    table = _table(session, job_id, principal, settings)
+    return _stream(
+        predictions.csv_chunks(sessions, table),
+        "text/csv; charset=utf-8",
+        f"predictions-{job_id}.csv",
+    )
+
+
+@router.get(
+    "/{job_id}/predictions.parquet",
+    response_class=StreamingResponse,
+    response_model=None,
+    summary="Out-of-fold predictions as Parquet, one row group per page",
+    responses={
+        200: {"content": {"application/vnd.apache.parquet": {"schema": {"type": "string"}}}},
+        **_ANSWERS,
+    },
+)
+def export_predictions_parquet(
+    job_id: JobId,
+    principal: ReaderDep,
+    session: SessionDep,
+    sessions: SessionsDep,
+    settings: SettingsDep,
+) -> StreamingResponse:
+    """Labels keep the target's type; probabilities and decision values are float64."""
+    table = _table(session, job_id, principal, settings)
+    return _stream(
+        predictions.parquet_chunks(sessions, table),
+        "application/vnd.apache.parquet",
+        f"predictions-{job_id}.parquet",
+    )

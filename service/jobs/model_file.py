@@ -1,0 +1,115 @@
+"""The final model as a file: skops' format, written so equal models give equal bytes.
+
+skops (scikit-learn's community persistence format) stores an object tree as JSON plus numpy
+arrays inside a zip, and loads it without running code from the file: types outside its
+trusted list are reported by `skops.io.get_untrusted_types` instead of being imported. That is
+the only form foldwise hands over, and the form it keeps, so the sha256 in result v1 is the
+hash of the very bytes a client downloads.
+
+Two saves of one model would still differ: skops names each object by its address in memory
+(`__id__`, and the `<id>.npy` member holding an array) and a zip records a time per member. The
+ids are renumbered here in order of first appearance (a one-to-one renaming, so shared
+references stay shared) and members are written in name order with one fixed time, which keeps
+`model_sha256` equal for equal requests (the determinism the store relies on).
+
+skops 0.16 trusts no `numpy.dtype` (its DTypeNode's trusted list is empty), and scikit-learn's
+SimpleImputer keeps two; tree ensembles keep node storage skops lists as well. Those types are
+reported with the file (`untrusted_types`) rather than hidden: a pick without them (e.g. a linear
+model with preprocess "none") loads with nothing to trust.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+import re
+import zipfile
+from pathlib import Path
+from typing import Any
+
+import skops.io as sio
+
+MEDIA_TYPE = "application/vnd.skops"  # not registered; names the format for a reader
+SUFFIX = ".skops"
+_FIXED_TIME = (1980, 1, 1, 0, 0, 0)  # the earliest time a zip entry can carry
+_SCHEMA = "schema.json"
+
+
+_ARRAY_FILE = re.compile(r"^(\d+)(\.np[yz])$")
+
+
+def _renumber(node: Any, ids: dict[int, int]) -> Any:
+    """The schema with every object id replaced by its order of first appearance."""
+    if isinstance(node, list):
+        return [_renumber(item, ids) for item in node]
+    if not isinstance(node, dict):
+        return node
+    out = {}
+    for key, value in node.items():
+        if key == "__id__" and isinstance(value, int):
+            value = ids.setdefault(value, len(ids) + 1)
+        elif key == "file" and isinstance(value, str) and _ARRAY_FILE.match(value):
+            number, suffix = _ARRAY_FILE.match(value).groups()  # type: ignore[union-attr]
+            value = f"{ids.setdefault(int(number), len(ids) + 1)}{suffix}"
+        else:
+            value = _renumber(value, ids)
+        out[key] = value
+    return out
+
+
+def _stable_zip(data: bytes) -> bytes:
+    source = zipfile.ZipFile(io.BytesIO(data))
+    ids: dict[int, int] = {}
+    schema = _renumber(json.loads(source.read(_SCHEMA)), ids)
+    members = {_SCHEMA: json.dumps(schema, indent=2).encode()}
+    for name in source.namelist():
+        if name == _SCHEMA:
+            continue
+        found = _ARRAY_FILE.match(name)
+        if found is None:
+            raise ValueError(f"unexpected member {name!r} in a skops file")
+        number, suffix = found.groups()
+        members[f"{ids.setdefault(int(number), len(ids) + 1)}{suffix}"] = source.read(name)
+    out = io.BytesIO()
+    with zipfile.ZipFile(out, "w", compression=zipfile.ZIP_DEFLATED) as target:
+        for name in sorted(members):
+            info = zipfile.ZipInfo(name, date_time=_FIXED_TIME)
+            info.compress_type = zipfile.ZIP_DEFLATED
+            info.external_attr = 0o644 << 16
+            target.writestr(info, members[name])
+    return out.getvalue()
+
+
+def model_bytes(model: Any) -> bytes:
+    """The skops serialisation of `model`, identical for identical fitted models."""
+    return _stable_zip(sio.dumps(model))
+
+
+def sha256(data: bytes) -> str:
+    """Hex sha256 of `data`."""
+    return hashlib.sha256(data).hexdigest()
+
+
+def file_sha256(path: Path) -> str:
+    """Hex sha256 of a file, read in chunks."""
+    digest = hashlib.sha256()
+    with path.open("rb") as source:
+        for chunk in iter(lambda: source.read(1 << 20), b""):
+            digest.update(chunk)
+    return digest.hexdigest()
+
+
+def untrusted_types_of(path: Path) -> list[str]:
+    """Types in the file at `path` that skops would not load without being told to trust them."""
+    return list(sio.get_untrusted_types(file=path))
+
+
+def untrusted_types(data: bytes) -> list[str]:
+    """Types in the file that skops would not load without being told to trust them."""
+    return list(sio.get_untrusted_types(data=data))
+
+
+def load_model(data: bytes) -> Any:
+    """Load a model file, trusting nothing beyond skops' defaults (raises on unknown types)."""
+    return sio.loads(data)
