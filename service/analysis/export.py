@@ -18,6 +18,8 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 from sqlalchemy.orm import Session, sessionmaker
 
+from service.auth import Principal
+from service.jobs.service import foreign_job_ids
 from service.store.models import FoldScore
 
 PAGE = 1000
@@ -62,8 +64,9 @@ PARQUET_SCHEMA = pa.schema(
 PageFetcher = Callable[[Session, int, int], list[FoldScore]]
 
 
-def score_row(score: FoldScore) -> dict[str, Any]:
-    """One score as a flat row: versions as sorted JSON text, created_at as an aware datetime."""
+def score_row(score: FoldScore, hidden: frozenset[str] = frozenset()) -> dict[str, Any]:
+    """One score as a flat row: versions as sorted JSON text, created_at as an aware datetime
+    (job_id empty when another team's job, one of `hidden`, computed it)."""
     return {
         "id": score.id,
         "fold_fingerprint": score.fold_fingerprint,
@@ -77,18 +80,21 @@ def score_row(score: FoldScore) -> dict[str, Any]:
         "seed": score.seed,
         "versions": json.dumps(score.versions, sort_keys=True),
         "worker": score.worker,
-        "job_id": score.job_id,
+        "job_id": None if score.job_id in hidden else score.job_id,
         "created_at": score.created_at,
     }
 
 
-def score_pages(sessions: sessionmaker[Session], fetch: PageFetcher) -> Iterator[list[dict]]:
+def score_pages(
+    sessions: sessionmaker[Session], fetch: PageFetcher, principal: Principal
+) -> Iterator[list[dict]]:
     """Pages of flat rows, each read in its own session, until a short page ends the keyset."""
     after = 0
     while True:
         with sessions() as session:
             page = fetch(session, after, PAGE)
-            rows = [score_row(s) for s in page]
+            hidden = frozenset(foreign_job_ids(session, principal, {s.job_id for s in page}))
+            rows = [score_row(s, hidden) for s in page]
         if rows:
             yield rows
         if len(page) < PAGE:
@@ -101,13 +107,15 @@ def _csv_cell(value: Any) -> Any:
     return value.isoformat() if isinstance(value, datetime) else value
 
 
-def csv_chunks(sessions: sessionmaker[Session], fetch: PageFetcher) -> Iterator[str]:
+def csv_chunks(
+    sessions: sessionmaker[Session], fetch: PageFetcher, principal: Principal
+) -> Iterator[str]:
     """The header, then one chunk of CSV lines per page."""
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
     writer.writerow(COLUMNS)
     yield buffer.getvalue()
-    for rows in score_pages(sessions, fetch):
+    for rows in score_pages(sessions, fetch, principal):
         buffer.seek(0)
         buffer.truncate()
         for row in rows:
@@ -141,7 +149,9 @@ class _Drain(io.RawIOBase):
         return out
 
 
-def parquet_chunks(sessions: sessionmaker[Session], fetch: PageFetcher) -> Iterator[bytes]:
+def parquet_chunks(
+    sessions: sessionmaker[Session], fetch: PageFetcher, principal: Principal
+) -> Iterator[bytes]:
     """A Parquet file streamed as it is written: one row group per page, the footer last."""
     # Parquet is written front to back (magic, row groups, then the footer with their offsets),
     # so ParquetWriter needs no seek: each page's row group is sent as soon as it is written,
@@ -149,7 +159,7 @@ def parquet_chunks(sessions: sessionmaker[Session], fetch: PageFetcher) -> Itera
     drain = _Drain()
     writer = pq.ParquetWriter(drain, PARQUET_SCHEMA)
     try:
-        for rows in score_pages(sessions, fetch):
+        for rows in score_pages(sessions, fetch, principal):
             writer.write_table(pa.Table.from_pylist(rows, schema=PARQUET_SCHEMA))
             yield drain.take()
     finally:

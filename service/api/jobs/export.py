@@ -11,8 +11,9 @@ from typing import Any
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.api.jobs.schemas import FOLD_SCORE_COLUMNS, FoldScorePublic
-from service.jobs.service import fold_scores_page
-from service.store.models import Job
+from service.auth import Principal
+from service.jobs.service import fold_scores_page, foreign_job_ids
+from service.store.models import FoldScore, Job
 
 PAGE = 1000
 
@@ -22,7 +23,21 @@ def _cell(value: Any) -> Any:
     return json.dumps(value, sort_keys=True) if isinstance(value, dict) else value
 
 
-def fold_score_lines(sessions: sessionmaker[Session], job_id: str) -> Iterator[str]:
+def public_scores(
+    session: Session, principal: Principal, rows: list[FoldScore]
+) -> list[FoldScorePublic]:
+    """Scores as the API shows them: the computing job's id only when the caller may read it."""
+    hidden = foreign_job_ids(session, principal, {r.job_id for r in rows})
+    public = [FoldScorePublic.model_validate(r, from_attributes=True) for r in rows]
+    for score in public:
+        if score.job_id in hidden:
+            score.job_id = None  # computed by another team's job, shared by content
+    return public
+
+
+def fold_score_lines(
+    sessions: sessionmaker[Session], job_id: str, principal: Principal
+) -> Iterator[str]:
     """The header, then one line per score, cells formatted as the JSON listing formats them."""
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
@@ -34,10 +49,7 @@ def fold_score_lines(sessions: sessionmaker[Session], job_id: str) -> Iterator[s
         with sessions() as session:
             job = session.get_one(Job, job_id)
             page = fold_scores_page(session, job, after_id=after, limit=PAGE)
-            rows = [
-                FoldScorePublic.model_validate(r, from_attributes=True).model_dump(mode="json")
-                for r in page
-            ]
+            rows = [s.model_dump(mode="json") for s in public_scores(session, principal, page)]
         for row in rows:
             writer.writerow([_cell(row[c]) for c in FOLD_SCORE_COLUMNS])
         yield buffer.getvalue()

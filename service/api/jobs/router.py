@@ -12,6 +12,7 @@ from sqlalchemy.exc import IntegrityError
 
 from service.api.datasets.service import confine_path_source, server_base_dir
 from service.api.deps import (
+    CancellerDep,
     DispatcherDep,
     ReaderDep,
     SessionDep,
@@ -22,7 +23,6 @@ from service.api.deps import (
 from service.api.jobs import export
 from service.api.jobs.schemas import (
     FoldScorePage,
-    FoldScorePublic,
     JobLinks,
     JobList,
     JobProgress,
@@ -31,6 +31,7 @@ from service.api.jobs.schemas import (
     JobSummary,
 )
 from service.api.problems import problem_responses
+from service.auth import Action
 from service.dispatch.base import mark_published
 from service.errors import BadInput
 from service.jobs import service
@@ -233,9 +234,9 @@ def list_jobs(
     summary="Cancel a queued or running job (finished jobs are left as they are)",
     responses=problem_responses(401, 403, 404, 422),
 )
-def cancel_job(job_id: JobId, principal: SubmitterDep, session: SessionDep) -> JobPublic:
-    """Units stop between fits; queued units never start."""
-    job = service.cancel_job(session, service.get_job(session, job_id, principal))
+def cancel_job(job_id: JobId, principal: CancellerDep, session: SessionDep) -> JobPublic:
+    """Units stop between fits; queued units never start. Only the job's own team may cancel."""
+    job = service.cancel_job(session, service.get_job(session, job_id, principal, Action.CANCEL))
     session.commit()
     return _public(job)
 
@@ -256,7 +257,7 @@ def list_fold_scores(
     """Scores of the job's candidates on its folds, whichever job computed them."""
     job = service.get_job(session, job_id, principal)
     rows = service.fold_scores_page(session, job, after_id=after, limit=limit)
-    data = [FoldScorePublic.model_validate(r, from_attributes=True) for r in rows]
+    data = export.public_scores(session, principal, rows)
     return FoldScorePage(data=data, next_after=data[-1].id if len(data) == limit else None)
 
 
@@ -279,7 +280,7 @@ def export_fold_scores(
     """Streamed page by page, each page read in its own short session."""
     job = service.get_job(session, job_id, principal)
     return StreamingResponse(
-        export.fold_score_lines(sessions, job.id),
+        export.fold_score_lines(sessions, job.id, principal),
         media_type="text/csv; charset=utf-8",
         headers={"Content-Disposition": f'attachment; filename="fold-scores-{job.id}.csv"'},
     )

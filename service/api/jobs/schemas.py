@@ -154,7 +154,10 @@ class FoldScorePublic(BaseModel):
     seed: int | None
     versions: dict[str, str]
     worker: str
-    job_id: str
+    job_id: str | None = Field(
+        description="The job whose unit computed the score; null when it was another team's "
+        "job (scores are shared by content: same table, fold and candidate)."
+    )
     created_at: datetime
 
 
