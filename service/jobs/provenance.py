@@ -16,7 +16,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.auth import Action, Principal, reaches_every_team
-from service.jobs.service import foreign_job_ids
+from service.jobs.service import OTHER_TEAM, foreign_job_ids
 from service.store.models import (
     Audit,
     Candidate,
@@ -30,8 +30,6 @@ from service.store.models import (
     JobFold,
     WorkUnit,
 )
-
-OTHER_TEAM = "another team's job"
 
 
 def _when(moment: Any) -> str | None:

@@ -78,7 +78,8 @@ def submit_job(
                 )
             return Submitted(earlier, False)
     if isinstance(data, dict) and isinstance(data.get("dataset"), str):
-        visible_dataset(session, data["dataset"], principal)
+        # an analyst reads other teams' tables but may not copy one into its own team's jobs
+        visible_dataset(session, data["dataset"], principal, Action.SUBMIT)
     prepared = prepare_submission(
         data, session=session, settings=settings, base_dir=base_dir or settings.home
     )
@@ -136,6 +137,29 @@ def get_job(
         raise not_visible("job", job_id)
     authorize(principal, action, job.team, what="job", ident=job_id)
     return job
+
+
+OTHER_TEAM = "another team's job"
+
+
+def result_for(session: Session, principal: Principal, job: Job) -> dict[str, Any] | None:
+    """A succeeded job's result as the principal may see it: the jobs that computed its outer
+    scores are named only when the principal may read them."""
+    if job.status != "succeeded" or job.result is None:
+        return None
+    result = dict(job.result)
+    work = result.get("work")
+    rows = work.get("outer_computed_by") if isinstance(work, dict) else None
+    if not rows:
+        return result
+    hidden = foreign_job_ids(session, principal, {r["job_id"] for r in rows if r.get("job_id")})
+    if hidden:
+        masked = [
+            {**r, "job_id": None, "computed_by": OTHER_TEAM} if r.get("job_id") in hidden else r
+            for r in rows
+        ]
+        result["work"] = {**work, "outer_computed_by": masked}
+    return result
 
 
 def foreign_job_ids(session: Session, principal: Principal, job_ids: set[str]) -> set[str]:

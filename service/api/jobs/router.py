@@ -9,6 +9,7 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Body, Header, Path, Query, Response
 from fastapi.responses import StreamingResponse
 from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session
 
 from service.api.datasets.service import confine_path_source, server_base_dir
 from service.api.deps import (
@@ -31,7 +32,7 @@ from service.api.jobs.schemas import (
     JobSummary,
 )
 from service.api.problems import problem_responses
-from service.auth import Action
+from service.auth import Action, Principal
 from service.dispatch.base import mark_published
 from service.errors import BadInput
 from service.jobs import service
@@ -77,12 +78,12 @@ def _summary(job: Job) -> JobSummary:
     )
 
 
-def _public(job: Job) -> JobPublic:
+def _public(job: Job, session: Session, principal: Principal) -> JobPublic:
     base = f"/v1/jobs/{job.id}"
     return JobPublic(
         **_summary(job).model_dump(),
         error=job.error,
-        result=job.result if job.status == "succeeded" else None,
+        result=service.result_for(session, principal, job),
         links=JobLinks(
             job=base,
             cancel=f"{base}/cancel",
@@ -171,7 +172,7 @@ def submit_job(
             log.exception("publishing job %s failed; the reconciler will publish it", job.id)
     response.status_code = 202 if submitted.created else 200
     response.headers["Location"] = f"/v1/jobs/{job.id}"
-    return _public(job)
+    return _public(job, session, principal)
 
 
 @router.get(
@@ -182,7 +183,7 @@ def submit_job(
 )
 def get_job(job_id: JobId, principal: ReaderDep, session: SessionDep) -> JobPublic:
     """Another team's job is a 404, as if it did not exist."""
-    return _public(service.get_job(session, job_id, principal))
+    return _public(service.get_job(session, job_id, principal), session, principal)
 
 
 def _aware(moment: datetime | None) -> datetime | None:
@@ -238,7 +239,7 @@ def cancel_job(job_id: JobId, principal: CancellerDep, session: SessionDep) -> J
     """Units stop between fits; queued units never start. Only the job's own team may cancel."""
     job = service.cancel_job(session, service.get_job(session, job_id, principal, Action.CANCEL))
     session.commit()
-    return _public(job)
+    return _public(job, session, principal)
 
 
 @router.get(
