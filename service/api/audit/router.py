@@ -65,7 +65,11 @@ def start_audit(
     response: Response,
     body: Annotated[dict[str, Any] | None, AUDIT_BODY] = None,
 ) -> AuditPublic:
-    """202 with Location /v1/audits/{id}; the recomputation runs on a worker."""
+    """202 with Location /v1/audits/{id}; the recomputation runs on a worker.
+
+    Needs the `submit` scope and a job of the token's own team: another team's job answers 404,
+    as a missing one does, analyst tokens included (they read other teams' work, never start it).
+    """
     fraction, seed, tolerance = check_audit_request(body)
     job = service.get_job(session, job_id, principal, Action.AUDIT)
     audit = request_audit(

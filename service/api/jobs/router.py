@@ -236,7 +236,11 @@ def list_jobs(
     responses=problem_responses(401, 403, 404, 422),
 )
 def cancel_job(job_id: JobId, principal: CancellerDep, session: SessionDep) -> JobPublic:
-    """Units stop between fits; queued units never start. Only the job's own team may cancel."""
+    """Units stop between fits; queued units never start.
+
+    Needs the `submit` scope and a job of the token's own team: another team's job answers 404,
+    as a missing one does, analyst tokens included.
+    """
     job = service.cancel_job(session, service.get_job(session, job_id, principal, Action.CANCEL))
     session.commit()
     return _public(job, session, principal)

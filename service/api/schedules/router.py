@@ -147,7 +147,11 @@ def refresh_now(
     settings: SettingsDep,
     dispatcher: DispatcherDep,
 ) -> RefreshPublic:
-    """202 with the refresh; a new job's units are published after the commit."""
+    """202 with the refresh; a new job's units are published after the commit.
+
+    Needs the `submit` scope and a schedule of the token's own team: another team's schedule
+    answers 404, as a missing one does, analyst tokens included.
+    """
     # Short sessions, no request-wide one: on SQLite an open transaction holds the write lock
     # the refresh's own transaction needs.
     with sessions() as session:
