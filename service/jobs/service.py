@@ -149,9 +149,9 @@ def result_for(session: Session, principal: Principal, job: Job) -> dict[str, An
         return None
     result = dict(job.result)
     work = result.get("work")
-    rows = work.get("outer_computed_by") if isinstance(work, dict) else None
-    if not rows:
+    if not isinstance(work, dict) or not work.get("outer_computed_by"):
         return result
+    rows = work["outer_computed_by"]
     hidden = foreign_job_ids(session, principal, {r["job_id"] for r in rows if r.get("job_id")})
     if hidden:
         masked = [
