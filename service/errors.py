@@ -10,3 +10,23 @@ class BadInput(ValueError):
         super().__init__(f"{field}: {message}" if field else message)
         self.field = field
         self.message = message
+
+
+class NotFound(LookupError):
+    """No such object, or not one the caller may see (the two are not told apart)."""
+
+
+def not_visible(what: str, ident: object) -> NotFound:
+    """The one answer for both "there is no such object" and "it is not yours"."""
+    return NotFound(f"no {what} {ident!r} is visible to your team.")
+
+
+class MissingScope(PermissionError):
+    """The caller's token lacks the scope an action needs (said without looking at any object)."""
+
+    def __init__(self, scope: str, held: frozenset[str]) -> None:
+        super().__init__(
+            f"this action needs a token with the {scope!r} scope; this token has "
+            f"{', '.join(sorted(held)) or 'none'}."
+        )
+        self.scope = scope

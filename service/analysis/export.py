@@ -18,7 +18,9 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 from sqlalchemy.orm import Session, sessionmaker
 
+from service.auth import Principal
 from service.jobs.fold_rows import FoldContext
+from service.jobs.service import foreign_job_ids
 from service.store.models import FoldScore
 
 PAGE = 1000
@@ -77,8 +79,9 @@ JOB_PARQUET_SCHEMA = pa.schema(
 PageFetcher = Callable[[Session, int, int], list[FoldScore]]
 
 
-def score_row(score: FoldScore) -> dict[str, Any]:
-    """One score as a flat row: versions as sorted JSON text, created_at as an aware datetime."""
+def score_row(score: FoldScore, hidden: frozenset[str] = frozenset()) -> dict[str, Any]:
+    """One score as a flat row: versions as sorted JSON text, created_at as an aware datetime
+    (job_id empty when another team's job, one of `hidden`, computed it)."""
     return {
         "id": score.id,
         "fold_fingerprint": score.fold_fingerprint,
@@ -92,20 +95,24 @@ def score_row(score: FoldScore) -> dict[str, Any]:
         "seed": score.seed,
         "versions": json.dumps(score.versions, sort_keys=True),
         "worker": score.worker,
-        "job_id": score.job_id,
+        "job_id": None if score.job_id in hidden else score.job_id,
         "created_at": score.created_at,
     }
 
 
 def score_pages(
-    sessions: sessionmaker[Session], fetch: PageFetcher, context: FoldContext | None = None
+    sessions: sessionmaker[Session],
+    fetch: PageFetcher,
+    principal: Principal,
+    context: FoldContext | None = None,
 ) -> Iterator[list[dict]]:
     """Pages of flat rows, each read in its own session, until a short page ends the keyset."""
     after = 0
     while True:
         with sessions() as session:
             page = fetch(session, after, PAGE)
-            rows = [score_row(s) for s in page]
+            hidden = frozenset(foreign_job_ids(session, principal, {s.job_id for s in page}))
+            rows = [score_row(s, hidden) for s in page]
             if context is not None:
                 for row, score in zip(rows, page, strict=True):
                     row.update(context.flat_extra(score.fold_fingerprint, score.candidate_key))
@@ -121,13 +128,15 @@ def _csv_cell(value: Any) -> Any:
     return value.isoformat() if isinstance(value, datetime) else value
 
 
-def csv_chunks(sessions: sessionmaker[Session], fetch: PageFetcher) -> Iterator[str]:
+def csv_chunks(
+    sessions: sessionmaker[Session], fetch: PageFetcher, principal: Principal
+) -> Iterator[str]:
     """The header, then one chunk of CSV lines per page."""
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
     writer.writerow(COLUMNS)
     yield buffer.getvalue()
-    for rows in score_pages(sessions, fetch):
+    for rows in score_pages(sessions, fetch, principal):
         buffer.seek(0)
         buffer.truncate()
         for row in rows:
@@ -162,7 +171,10 @@ class _Drain(io.RawIOBase):
 
 
 def parquet_chunks(
-    sessions: sessionmaker[Session], fetch: PageFetcher, context: FoldContext | None = None
+    sessions: sessionmaker[Session],
+    fetch: PageFetcher,
+    principal: Principal,
+    context: FoldContext | None = None,
 ) -> Iterator[bytes]:
     """A Parquet file streamed as it is written: one row group per page, the footer last.
 
@@ -175,7 +187,7 @@ def parquet_chunks(
     drain = _Drain()
     writer = pq.ParquetWriter(drain, schema)
     try:
-        for rows in score_pages(sessions, fetch, context):
+        for rows in score_pages(sessions, fetch, principal, context):
             writer.write_table(pa.Table.from_pylist(rows, schema=schema))
             yield drain.take()
     finally:

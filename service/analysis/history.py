@@ -9,7 +9,7 @@ from typing import Any
 from sqlalchemy import or_, select
 from sqlalchemy.orm import Session
 
-from service.auth import Principal
+from service.auth import Action, Principal, reaches_every_team
 from service.jobs.service import job_query, visible_dataset
 from service.store.models import Refresh, Schedule
 
@@ -94,7 +94,7 @@ def dataset_history(session: Session, principal: Principal, content_hash: str) -
         )
         .order_by(Refresh.due_at, Refresh.id)
     )
-    if not principal.analyst:
+    if not reaches_every_team(principal, Action.READ):
         refresh_query = refresh_query.where(Schedule.team == principal.team)
     refreshes = [
         RefreshPoint(

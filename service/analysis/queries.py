@@ -12,7 +12,7 @@ from sqlalchemy import Select, func, select, tuple_
 from sqlalchemy.orm import Session
 
 from service.analysis.compare import Comparison, compare_outer_scores, outer_scores_from_result
-from service.auth import Principal
+from service.auth import Action, Principal, reaches_every_team
 from service.errors import BadInput
 from service.jobs.service import NotFound, get_job, job_query, visible_dataset
 from service.store.models import FoldScore, Job, JobCandidate, JobFold
@@ -41,7 +41,7 @@ def dataset_fold_score_query(
 ) -> Select[FoldScore]:
     """Every stored score of the dataset that some visible job's plan holds, in id order."""
     jobs = select(Job.id).where(Job.dataset_hash == content_hash)
-    if not principal.analyst:
+    if not reaches_every_team(principal, Action.READ):
         jobs = jobs.where(Job.team == principal.team)
     # A score belongs to a job's plan when the job has both its fold and its candidate; the
     # score may have been computed by another job (reuse), so job_id alone would miss it. The

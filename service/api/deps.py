@@ -10,9 +10,10 @@ from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.api.problems import ProblemError
-from service.auth import Principal, authenticate
+from service.auth import Action, Principal, authenticate, authorize
 from service.config import Settings
 from service.dispatch.base import Dispatcher
+from service.errors import MissingScope
 
 # auto_error=False: a missing header must become our 401 problem, not FastAPI's plain error.
 _bearer = HTTPBearer(auto_error=False, description="A token from `foldwise token create`.")
@@ -77,7 +78,7 @@ def get_principal(
     if principal is None:
         raise ProblemError(
             401,
-            "the bearer token is unknown or revoked; ask for a new one.",
+            "the bearer token is unknown, expired or revoked; ask for a new one.",
             headers={"WWW-Authenticate": 'Bearer error="invalid_token"'},
         )
     return principal
@@ -86,20 +87,25 @@ def get_principal(
 PrincipalDep = Annotated[Principal, Depends(get_principal)]
 
 
-def require(scope: str) -> Callable[[Principal], Principal]:
-    """A dependency that passes the caller through if its token has `scope` (or admin)."""
+def allowed(action: Action) -> Callable[[Principal], Principal]:
+    """A dependency that passes the caller through if its token may do `action` at all.
+
+    The object's team is checked where the object is loaded (service.auth.authorize again, with
+    the owner), so an object the caller may not act on answers 404 like a missing one.
+    """
 
     def check(principal: PrincipalDep) -> Principal:
-        if scope not in principal.scopes and "admin" not in principal.scopes:
-            raise ProblemError(
-                403,
-                f"this route needs a token with the {scope!r} scope; this token has "
-                f"{', '.join(sorted(principal.scopes)) or 'none'}.",
-            )
+        try:
+            authorize(principal, action)
+        except MissingScope as exc:
+            raise ProblemError(403, str(exc)) from None
         return principal
 
     return check
 
 
-ReaderDep = Annotated[Principal, Depends(require("read"))]
-SubmitterDep = Annotated[Principal, Depends(require("submit"))]
+ReaderDep = Annotated[Principal, Depends(allowed(Action.READ))]
+SubmitterDep = Annotated[Principal, Depends(allowed(Action.SUBMIT))]
+CancellerDep = Annotated[Principal, Depends(allowed(Action.CANCEL))]
+AuditorDep = Annotated[Principal, Depends(allowed(Action.AUDIT))]
+SchedulerDep = Annotated[Principal, Depends(allowed(Action.SCHEDULE))]

@@ -13,7 +13,7 @@ from fastapi.responses import JSONResponse
 from pydantic import BaseModel, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
 
-from service.errors import BadInput
+from service.errors import BadInput, MissingScope
 from service.jobs.request import field_path
 from service.jobs.service import Conflict, NotFound
 
@@ -174,6 +174,9 @@ def install_problem_handlers(app: FastAPI) -> None:
     async def on_not_found(request: Request, exc: Exception) -> JSONResponse:
         return problem_response(request, 404, str(exc))
 
+    async def on_missing_scope(request: Request, exc: Exception) -> JSONResponse:
+        return problem_response(request, 403, str(exc))
+
     async def on_crash(request: Request, exc: Exception) -> JSONResponse:
         # The traceback goes to the log only: it can hold paths and data the caller must not see.
         log.error("unhandled error on %s %s", request.method, request.url.path, exc_info=exc)
@@ -187,4 +190,5 @@ def install_problem_handlers(app: FastAPI) -> None:
     app.add_exception_handler(BadInput, on_bad_input)
     app.add_exception_handler(Conflict, on_conflict)
     app.add_exception_handler(NotFound, on_not_found)
+    app.add_exception_handler(MissingScope, on_missing_scope)
     app.add_exception_handler(Exception, on_crash)

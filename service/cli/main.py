@@ -13,7 +13,8 @@ from service.cli import analyst_cmd, handover_cmd, workers_cmd
 from service.cli.audit_cmd import audit
 from service.cli.demo_cmd import demo
 from service.cli.output import fail, refuse, stderr, stdout
-from service.cli.server_cmd import serve, token_app
+from service.cli.server_cmd import serve
+from service.cli.token_cmd import token_app
 from service.cli.webhook_cmd import webhook_secret
 from service.config import load_settings
 from service.errors import BadInput

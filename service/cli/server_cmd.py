@@ -1,19 +1,15 @@
-"""`foldwise serve` and `foldwise token create`: the API process and its bearer tokens."""
+"""`foldwise serve`: the API process (tokens are in token_cmd)."""
 
 from __future__ import annotations
 
-import sys
 from typing import Annotated
 
 import typer
 from sqlalchemy.engine import make_url
-from sqlalchemy.exc import SQLAlchemyError
 
-from service.cli.output import fail, refuse, stderr
+from service.cli.output import refuse
 from service.config import Settings, load_settings
 from service.errors import BadInput
-
-token_app = typer.Typer(help="Bearer tokens for the REST API.", no_args_is_help=True)
 
 
 def embedded_store(settings: Settings) -> bool:
@@ -55,35 +51,3 @@ def serve(
         refuse(exc)
     upgrade_if_embedded(settings)
     uvicorn.run(app, host=host, port=port, log_level="info")
-
-
-@token_app.command("create")
-def create(
-    team: Annotated[str, typer.Option(help="The team the token acts for.")],
-    scopes: Annotated[str, typer.Option(help="Comma-separated: submit, read, admin.")],
-    analyst: Annotated[
-        bool, typer.Option("--analyst", help="May read every team's datasets and jobs.")
-    ] = False,
-) -> None:
-    """Print a new token alone on stdout; only its hash is stored, so keep it now."""
-    from service.auth import create_token, parse_scopes
-    from service.store.db import make_engine, make_session_factory
-
-    try:
-        settings = load_settings()
-        scope_list = parse_scopes(scopes)
-        upgrade_if_embedded(settings)
-        engine = make_engine(settings.database_url)
-        try:
-            with make_session_factory(engine).begin() as session:
-                token = create_token(session, team=team, scopes=scope_list, analyst=analyst)
-        finally:
-            engine.dispose()
-    except BadInput as exc:
-        refuse(exc)
-    except SQLAlchemyError as exc:
-        fail(
-            f"the store could not keep the token ({type(exc).__name__}); run `foldwise db upgrade`."
-        )
-    sys.stdout.write(token + "\n")
-    stderr.print(f"token for team {team.strip()!r} ({', '.join(scope_list)})", markup=False)

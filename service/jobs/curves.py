@@ -200,7 +200,9 @@ def create_submission(
     """Store a prepared selection job or learning curve; returns the id the caller follows."""
     if isinstance(prepared, PreparedCurve):
         return create_curve(session, prepared, settings, idempotency_key=idempotency_key, team=team)
-    return create_job(session, prepared, settings, idempotency_key=idempotency_key)
+    return create_job(
+        session, prepared, settings, idempotency_key=idempotency_key, team=team or "local"
+    )
 
 
 def child_ids(session: Session, parent_id: str) -> list[str]:

@@ -1,5 +1,11 @@
 """A job's whole trail, read from the store: table, request, candidates, folds, units, scores,
-final model and audits."""
+final model and audits.
+
+Scores are shared across teams by content (the same table, fold and candidate give the same
+number), so a trail can point at other teams' jobs; for a caller who may not read those teams,
+their job ids are left out and the entry says "another team's job", and only the caller's own
+team's registration of the table is shown.
+"""
 
 from __future__ import annotations
 
@@ -9,6 +15,8 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from service.auth import Action, Principal, reaches_every_team
+from service.jobs.service import OTHER_TEAM, foreign_job_ids
 from service.store.models import (
     Audit,
     Candidate,
@@ -28,20 +36,27 @@ def _when(moment: Any) -> str | None:
     return moment.isoformat() if moment is not None else None
 
 
-def _dataset(session: Session, job: Job) -> dict[str, Any]:
+def _dataset(session: Session, job: Job, principal: Principal) -> dict[str, Any]:
     dataset = session.scalars(select(Dataset).where(Dataset.content_hash == job.dataset_hash)).one()
-    teams = session.scalars(
-        select(DatasetRegistration.team)
-        .where(DatasetRegistration.content_hash == job.dataset_hash)
-        .order_by(DatasetRegistration.created_at)
+    registrations = list(
+        session.scalars(
+            select(DatasetRegistration)
+            .where(DatasetRegistration.content_hash == job.dataset_hash)
+            .order_by(DatasetRegistration.created_at)
+        )
     )
+    everyone = reaches_every_team(principal, Action.READ)
+    shown = [r for r in registrations if everyone or r.team == principal.team]
+    # the origin of the job's team's copy: another team may have brought the same bytes first
+    own = next((r for r in registrations if r.team == job.team), None)
+    stored_at = dataset.created_at if everyone else (own.created_at if own else None)
     return {
         "content_hash": dataset.content_hash,
         "n_rows": dataset.n_rows,
         "n_columns": dataset.n_columns,
-        "origin": dataset.origin,
-        "registered_by": list(teams),
-        "stored_at": _when(dataset.created_at),
+        "origin": (own.origin if own else None) or {},
+        "registered_by": [r.team for r in shown],
+        "stored_at": _when(stored_at),
     }
 
 
@@ -86,7 +101,7 @@ def _folds(session: Session, job_id: str) -> list[dict[str, Any]]:
     ]
 
 
-def _units(session: Session, job_id: str) -> list[dict[str, Any]]:
+def _units(session: Session, job_id: str, hidden: set[str]) -> list[dict[str, Any]]:
     units = session.scalars(select(WorkUnit).where(WorkUnit.job_id == job_id).order_by(WorkUnit.id))
     return [
         {
@@ -100,7 +115,8 @@ def _units(session: Session, job_id: str) -> list[dict[str, Any]]:
             "fits": u.fits,
             "seconds": u.seconds,
             "reused": u.reused,
-            "source_job_id": u.source_job_id,
+            "source_job_id": None if u.source_job_id in hidden else u.source_job_id,
+            **({"source": OTHER_TEAM} if u.source_job_id in hidden else {}),
             "created_at": _when(u.created_at),
             "started_at": _when(u.started_at),
             "finished_at": _when(u.finished_at),
@@ -109,7 +125,7 @@ def _units(session: Session, job_id: str) -> list[dict[str, Any]]:
     ]
 
 
-def _score_summary(session: Session, job: Job) -> list[dict[str, Any]]:
+def _score_summary(session: Session, job: Job, principal: Principal) -> list[dict[str, Any]]:
     """The job's scores grouped by who computed them: job, worker and versions."""
     folds = select(JobFold.fingerprint).where(JobFold.job_id == job.id)
     keys = select(JobCandidate.candidate_key).where(JobCandidate.job_id == job.id)
@@ -122,13 +138,23 @@ def _score_summary(session: Session, job: Job) -> list[dict[str, Any]]:
             FoldScore.candidate_key.in_(keys),
         )
     )
-    for job_id, worker, versions in counts:
-        key = (job_id, worker, json.dumps(versions, sort_keys=True))
+    rows = list(counts)
+    hidden = foreign_job_ids(session, principal, {job_id for job_id, _, _ in rows})
+    for job_id, worker, versions in rows:
+        shown = None if job_id in hidden else job_id
+        key = (shown or "", worker, json.dumps(versions, sort_keys=True))
         entry = merged.setdefault(
-            key, {"job_id": job_id, "worker": worker, "versions": versions, "scores": 0}
+            key,
+            {
+                "job_id": shown,
+                "computed_by": OTHER_TEAM if shown is None else "job",
+                "worker": worker,
+                "versions": versions,
+                "scores": 0,
+            },
         )
         entry["scores"] += 1
-    return sorted(merged.values(), key=lambda e: (e["job_id"], e["worker"]))
+    return sorted(merged.values(), key=lambda e: (e["job_id"] or "", e["worker"]))
 
 
 def _final_model(session: Session, job_id: str) -> dict[str, Any] | None:
@@ -168,8 +194,16 @@ def _audits(session: Session, job_id: str) -> list[dict[str, Any]]:
     return out
 
 
-def provenance(session: Session, job: Job) -> dict[str, Any]:
-    """The whole trail of a job, as GET /v1/jobs/{id}/provenance shows it."""
+def provenance(session: Session, job: Job, principal: Principal) -> dict[str, Any]:
+    """The whole trail of a job, as GET /v1/jobs/{id}/provenance shows it to `principal`."""
+    sources = set(
+        session.scalars(
+            select(WorkUnit.source_job_id).where(
+                WorkUnit.job_id == job.id, WorkUnit.source_job_id.is_not(None)
+            )
+        )
+    )
+    hidden = foreign_job_ids(session, principal, {s for s in sources if s})
     return {
         "job": {
             "id": job.id,
@@ -179,12 +213,12 @@ def provenance(session: Session, job: Job) -> dict[str, Any]:
             "started_at": _when(job.started_at),
             "finished_at": _when(job.finished_at),
         },
-        "dataset": _dataset(session, job),
+        "dataset": _dataset(session, job, principal),
         "request": job.request,
         "candidates": _candidates(session, job.id),
         "folds": _folds(session, job.id),
-        "units": _units(session, job.id),
-        "fold_scores": _score_summary(session, job),
+        "units": _units(session, job.id, hidden),
+        "fold_scores": _score_summary(session, job, principal),
         "final_model": _final_model(session, job.id),
         "audits": _audits(session, job.id),
     }

@@ -16,9 +16,11 @@ from typing import Any
 from sqlalchemy import Select, func, select, update
 from sqlalchemy.orm import Session
 
-from service.auth import Principal
+from service.auth import Action, Principal, authorize, reaches_every_team
 from service.config import Settings
 from service.datasets.sources import check_table_size
+from service.errors import NotFound as NotFound  # re-exported: callers catch it from here
+from service.errors import not_visible
 from service.jobs.curves import create_submission, prepare_submission
 from service.notify.outbox import queue_job_notice
 from service.notify.targets import check_webhook_target
@@ -36,10 +38,6 @@ from service.store.models import (
 
 class Conflict(Exception):
     """The request clashes with stored state (an idempotency key reused with another body)."""
-
-
-class NotFound(LookupError):
-    """No such object, or not one the caller may see (the two are not told apart)."""
 
 
 def request_hash(data: Any) -> str:
@@ -66,19 +64,22 @@ def submit_job(
     base_dir: Path | None = None,
 ) -> Submitted:
     """Validate and store a job for the principal's team (BadInput leaves nothing behind)."""
+    authorize(principal, Action.SUBMIT)
     body_hash = request_hash(data)
     if idempotency_key is not None:
+        # keys are the team's own: another team's use of the same key is none of its business
         earlier = session.scalars(
-            select(Job).where(Job.idempotency_key == idempotency_key)
+            select(Job).where(Job.team == principal.team, Job.idempotency_key == idempotency_key)
         ).one_or_none()
         if earlier is not None:
-            if earlier.request_hash != body_hash or earlier.team != principal.team:
+            if earlier.request_hash != body_hash:
                 raise Conflict(
                     "this Idempotency-Key was used with a different request; use a new key."
                 )
             return Submitted(earlier, False)
     if isinstance(data, dict) and isinstance(data.get("dataset"), str):
-        visible_dataset(session, data["dataset"], principal)
+        # an analyst reads other teams' tables but may not copy one into its own team's jobs
+        visible_dataset(session, data["dataset"], principal, Action.SUBMIT)
     prepared = prepare_submission(
         data,
         session=session,
@@ -102,31 +103,78 @@ def submit_job(
     job = session.get_one(Job, job_id)
     job.team, job.request_hash = principal.team, body_hash
     job.webhook_url = webhook
-    register_dataset(session, prepared.table.content_hash, principal.team)
+    register_dataset(
+        session, prepared.table.content_hash, principal.team, origin=prepared.table.origin
+    )
     session.flush()
     return Submitted(job, True)
 
 
-def register_dataset(session: Session, content_hash: str, team: str) -> None:
-    """Let `team` see a stored table (idempotent)."""
+def register_dataset(
+    session: Session, content_hash: str, team: str, *, origin: dict[str, str] | None = None
+) -> None:
+    """Let `team` see a stored table (idempotent), remembering where its copy came from."""
     if session.get(DatasetRegistration, (team, content_hash)) is None:
-        session.add(DatasetRegistration(team=team, content_hash=content_hash))
+        session.add(
+            DatasetRegistration(
+                team=team, content_hash=content_hash, origin=dict(origin) if origin else None
+            )
+        )
 
 
-def visible_dataset(session: Session, content_hash: str, principal: Principal) -> None:
-    """Raise NotFound unless the principal's team registered the table (or is an analyst)."""
+def visible_dataset(
+    session: Session, content_hash: str, principal: Principal, action: Action = Action.READ
+) -> None:
+    """Raise NotFound unless the matrix lets the principal act on the table."""
     query = select(DatasetRegistration.team).where(DatasetRegistration.content_hash == content_hash)
     teams = set(session.scalars(query))
-    if not teams or not (principal.analyst or principal.team in teams):
-        raise NotFound(f"no dataset {content_hash!r} is visible to team {principal.team!r}")
+    if not teams:
+        raise not_visible("dataset", content_hash)
+    authorize(principal, action, teams, what="dataset", ident=content_hash)
 
 
-def get_job(session: Session, job_id: str, principal: Principal) -> Job:
-    """The job, if the principal may see it."""
+def get_job(
+    session: Session, job_id: str, principal: Principal, action: Action = Action.READ
+) -> Job:
+    """The job, if the matrix lets the principal do `action` to it (else NotFound, as missing)."""
     job = session.get(Job, job_id)
-    if job is None or not principal.may_see(job.team):
-        raise NotFound(f"no job {job_id!r}")
+    if job is None:
+        raise not_visible("job", job_id)
+    authorize(principal, action, job.team, what="job", ident=job_id)
     return job
+
+
+OTHER_TEAM = "another team's job"
+
+
+def result_for(session: Session, principal: Principal, job: Job) -> dict[str, Any] | None:
+    """A succeeded job's result as the principal may see it: the jobs that computed its outer
+    scores are named only when the principal may read them."""
+    if job.status != "succeeded" or job.result is None:
+        return None
+    result = dict(job.result)
+    work = result.get("work")
+    if not isinstance(work, dict) or not work.get("outer_computed_by"):
+        return result
+    rows = work["outer_computed_by"]
+    hidden = foreign_job_ids(session, principal, {r["job_id"] for r in rows if r.get("job_id")})
+    if hidden:
+        masked = [
+            {**r, "job_id": None, "computed_by": OTHER_TEAM} if r.get("job_id") in hidden else r
+            for r in rows
+        ]
+        result["work"] = {**work, "outer_computed_by": masked}
+    return result
+
+
+def foreign_job_ids(session: Session, principal: Principal, job_ids: set[str]) -> set[str]:
+    """Those of `job_ids` that belong to teams the principal may not read (to be left out)."""
+    if not job_ids or reaches_every_team(principal, Action.READ):
+        return set()
+    mine = set(
+        session.scalars(select(Job.id).where(Job.id.in_(job_ids), Job.team == principal.team))
+    )
+    return job_ids - mine
 
 
 def job_query(
@@ -141,7 +189,7 @@ def job_query(
 ) -> Select[Job]:
     """Jobs the principal may see, filtered, newest first."""
     query = select(Job)
-    if not principal.analyst:
+    if not reaches_every_team(principal, Action.READ):
         query = query.where(Job.team == principal.team)
     if dataset_hash:
         query = query.where(Job.dataset_hash == dataset_hash)

@@ -98,6 +98,7 @@ def create_job(
     settings: Settings,
     *,
     idempotency_key: str | None = None,
+    team: str = "local",
 ) -> str:
     """Store the job with its dataset, candidates, folds and inner units; returns its id.
 
@@ -147,6 +148,7 @@ def create_job(
             request=prepared.request.model_dump(mode="json"),
             units_total=len(first_units) + len(plan.outer) + 1,
             idempotency_key=idempotency_key,
+            team=team,  # set before the flush: the idempotency key is unique per team
         )
     )
     session.flush()

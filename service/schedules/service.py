@@ -10,13 +10,12 @@ from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_valida
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
-from service.auth import Principal
+from service.auth import Action, Principal, authorize, reaches_every_team
 from service.config import Settings
 from service.datasets.sources import DatasetSource, check_table_size
-from service.errors import BadInput
+from service.errors import BadInput, not_visible
 from service.jobs.prepare import PreparedJob, prepare_job
 from service.jobs.request import bad_input_from
-from service.jobs.service import NotFound
 from service.notify.targets import check_webhook_target
 from service.schedules.cron import next_after, parse_cron, zone
 from service.store.db import utcnow
@@ -80,6 +79,7 @@ def create_schedule(
     session: Session, data: Any, *, principal: Principal, settings: Settings
 ) -> Schedule:
     """Validate everything (the template prepared against the current data), then store."""
+    authorize(principal, Action.SCHEDULE)  # always for the caller's own team
     if not isinstance(data, dict):
         raise BadInput("request", "a schedule must be a JSON object; see the README example.")
     try:
@@ -119,11 +119,14 @@ def create_schedule(
     return schedule
 
 
-def get_schedule(session: Session, schedule_id: str, principal: Principal) -> Schedule:
-    """The schedule, if the principal may see it."""
+def get_schedule(
+    session: Session, schedule_id: str, principal: Principal, action: Action = Action.READ
+) -> Schedule:
+    """The schedule, if the matrix lets the principal do `action` to it (else NotFound)."""
     schedule = session.get(Schedule, schedule_id)
-    if schedule is None or not principal.may_see(schedule.team):
-        raise NotFound(f"no schedule {schedule_id!r}")
+    if schedule is None:
+        raise not_visible("schedule", schedule_id)
+    authorize(principal, action, schedule.team, what="schedule", ident=schedule_id)
     return schedule
 
 
@@ -132,7 +135,7 @@ def list_schedules(
 ) -> tuple[list[Schedule], int]:
     """A page of the principal's schedules, newest first, and the total count."""
     query = select(Schedule)
-    if not principal.analyst:
+    if not reaches_every_team(principal, Action.READ):
         query = query.where(Schedule.team == principal.team)
     total = session.scalar(select(func.count()).select_from(query.subquery()))
     rows = session.scalars(

@@ -102,6 +102,8 @@ class Job(Base):
     __table_args__ = (
         CheckConstraint(_one_of("status", JOB_STATUSES), name="status"),
         CheckConstraint(_one_of("stage", JOB_STAGES), name="stage"),
+        # keys are per team: another team's key neither clashes nor names their job
+        UniqueConstraint("team", "idempotency_key"),
     )
 
     id: Mapped[str] = mapped_column(String(32), primary_key=True)  # uuid4 hex, made by the caller
@@ -115,7 +117,7 @@ class Job(Base):
     units_total: Mapped[int] = mapped_column(default=0, server_default="0")
     units_done: Mapped[int] = mapped_column(default=0, server_default="0")
     cancel_requested: Mapped[bool] = mapped_column(Boolean, default=False, server_default=false())
-    idempotency_key: Mapped[str | None] = mapped_column(String(200), unique=True)
+    idempotency_key: Mapped[str | None] = mapped_column(String(200))
     # sha256 of the canonical request body: the same Idempotency-Key with another body is refused
     request_hash: Mapped[Hash64 | None]
     # jobs belong to the team of the token that submitted them (the command line uses "local")
@@ -305,6 +307,8 @@ class DatasetRegistration(Base):
     content_hash: Mapped[Hash64] = mapped_column(
         ForeignKey("dataset.content_hash"), primary_key=True
     )
+    # where this team's copy came from (the same bytes from another team keep their own origin)
+    origin: Mapped[JsonDoc | None]
     created_at: Mapped[CreatedAt]
 
 
@@ -315,11 +319,14 @@ class ApiToken(Base):
 
     id: Mapped[int] = mapped_column(primary_key=True)
     token_hash: Mapped[Hash64] = mapped_column(unique=True)
+    # "fw_" and the first random characters, what `token list` shows (NULL for older tokens)
+    prefix: Mapped[str | None] = mapped_column(String(16))
     team: Mapped[str] = mapped_column(String(100))
     scopes: Mapped[JsonList]  # any of "submit", "read", "admin"
     # an analyst token may read every team's datasets and jobs
     analyst: Mapped[bool] = mapped_column(Boolean, default=False, server_default=false())
     created_at: Mapped[CreatedAt]
+    expires_at: Mapped[datetime | None]
     revoked_at: Mapped[datetime | None]
 
 

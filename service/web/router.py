@@ -19,6 +19,7 @@ from service.store.models import Dataset
 from service.web import dataset_view, handover_view, views
 from service.web.compare_view import compare_page
 from service.web.job_state import REFRESH_SECONDS
+from service.web.origin import cross_site_reason
 from service.web.session import (
     COOKIE,
     LIFETIME_SECONDS,
@@ -106,6 +107,20 @@ def stylesheet() -> Response:
     return Response(_stylesheet(), media_type="text/css", headers={"Cache-Control": "max-age=3600"})
 
 
+def _refuse_cross_site(request: Request) -> Response | None:
+    reason = cross_site_reason(request)
+    if reason is None:
+        return None
+    return _page(
+        "sign_in.html",
+        403,
+        title="Sign in",
+        next="/reports/",
+        error=f"{reason}; sign in from this server's own sign-in page.",
+        reader=None,
+    )
+
+
 @router.get("/sign-in")
 def sign_in_form(request: Request, sessions: SessionsDep, next: str | None = None) -> Response:
     """The sign-in form (or straight on, if the session is already good)."""
@@ -122,6 +137,9 @@ def sign_in(
     next: Annotated[str, Form(max_length=2000)] = "/reports/",
 ) -> Response:
     """Check a pasted token; a reader gets a signed session cookie, never the token itself."""
+    refused = _refuse_cross_site(request)
+    if refused is not None:
+        return refused
     with sessions() as session:
         reader = reader_for_token(session, token) if token.strip() else None
     if reader is None:
@@ -148,8 +166,11 @@ def sign_in(
 
 
 @router.post("/sign-out")
-def sign_out() -> Response:
+def sign_out(request: Request) -> Response:
     """Forget the session cookie."""
+    refused = _refuse_cross_site(request)
+    if refused is not None:
+        return refused
     answer = RedirectResponse("/reports/sign-in", status_code=303)
     answer.delete_cookie(COOKIE, path="/reports", httponly=True, samesite="strict")
     return answer

@@ -15,10 +15,9 @@ import secrets
 import time
 from dataclasses import dataclass
 
-from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from service.auth import Principal, hash_token
+from service.auth import Action, Principal, has_scope, is_live, live_token, principal_of
 from service.store.models import ApiToken
 
 COOKIE = "foldwise_session"
@@ -64,25 +63,18 @@ class Reader:
     principal: Principal
 
 
-def _may_read(scopes: list[str]) -> bool:
-    return "read" in scopes or "admin" in scopes
+def _reader(row: ApiToken | None) -> Reader | None:
+    if row is None or not is_live(row):
+        return None
+    principal = principal_of(row)
+    return Reader(row.id, principal) if has_scope(principal, Action.READ) else None
 
 
 def reader_for_token(session: Session, token: str) -> Reader | None:
-    """The reader behind a pasted token, if it is valid, unrevoked and may read."""
-    row = session.scalars(
-        select(ApiToken).where(
-            ApiToken.token_hash == hash_token(token.strip()), ApiToken.revoked_at.is_(None)
-        )
-    ).one_or_none()
-    if row is None or not _may_read(list(row.scopes)):
-        return None
-    return Reader(row.id, Principal(row.team, frozenset(row.scopes), bool(row.analyst)))
+    """The reader behind a pasted token, if it is valid, unrevoked, unexpired and may read."""
+    return _reader(live_token(session, token))
 
 
 def reader_for_id(session: Session, token_id: int) -> Reader | None:
-    """The reader of a cookie's token id; a token revoked since sign-in no longer reads."""
-    row = session.get(ApiToken, token_id)
-    if row is None or row.revoked_at is not None or not _may_read(list(row.scopes)):
-        return None
-    return Reader(row.id, Principal(row.team, frozenset(row.scopes), bool(row.analyst)))
+    """The reader of a cookie's token id; a token revoked or expired since sign-in reads no more."""
+    return _reader(session.get(ApiToken, token_id))

@@ -128,8 +128,8 @@ def main(n_rows: int) -> None:
                     print(line)
 
         for label, chunks in (
-            ("csv", lambda: export.csv_chunks(sessions, fetch)),
-            ("parquet", lambda: export.parquet_chunks(sessions, fetch)),
+            ("csv", lambda: export.csv_chunks(sessions, fetch, reader)),
+            ("parquet", lambda: export.parquet_chunks(sessions, fetch, reader)),
         ):
             # timed without tracemalloc (it slows allocation-heavy code several times over)
             started = time.perf_counter()

@@ -108,7 +108,7 @@ def test_parquet_is_written_one_row_group_per_page(
     def fetch(session: Any, after: int, limit: int) -> list[Any]:
         return queries.dataset_fold_scores_page(session, lab, iris, after_id=after, limit=limit)
 
-    chunks = list(export.parquet_chunks(seeded.server.sessions, fetch))
+    chunks = list(export.parquet_chunks(seeded.server.sessions, fetch, lab))
     listing = _json_records(_listing(seeded, f"/v1/datasets/{iris}/fold-scores"))
     parquet = pq.ParquetFile(io.BytesIO(b"".join(chunks)))
     assert parquet.metadata.num_row_groups == math.ceil(len(listing) / 7)

@@ -95,7 +95,7 @@ def test_queries_comparison_and_export_on_postgresql(pg_jobs: Any) -> None:
             session, READER, dataset, after_id=after, limit=limit
         )
 
-    body = b"".join(export.parquet_chunks(sessions, fetch))
+    body = b"".join(export.parquet_chunks(sessions, fetch, READER))
     table = pq.read_table(io.BytesIO(body))
     with sessions() as session:
         everything = queries.dataset_fold_scores_page(session, READER, dataset, limit=1000)

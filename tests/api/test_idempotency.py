@@ -9,6 +9,7 @@ from sqlalchemy import func, select
 
 from service.store.models import Job
 
+from .server import IRIS_REQUEST as IRIS
 from .server import Server
 
 
@@ -51,17 +52,27 @@ def test_same_key_with_another_body_is_a_conflict(
     assert _jobs_with_key(server, key) == 1
 
 
-def test_another_team_reusing_a_key_is_a_conflict(
+def test_another_teams_key_is_theirs_alone(
     server: Server, token: str, iris_request: dict[str, Any]
 ) -> None:
+    """Keys are per team: B using A's key (same body or not) gets a new job of its own."""
     key = uuid.uuid4().hex
     other = server.token(f"other-{uuid.uuid4().hex[:6]}")
     with server.client(token) as mine, server.client(other) as theirs:
-        assert mine.post("/v1/jobs", json=iris_request, headers={"Idempotency-Key": key}).is_success
-        clash = theirs.post("/v1/jobs", json=iris_request, headers={"Idempotency-Key": key})
-    # 409 and not the first team's job: a key must not leak another team's job id
-    assert clash.status_code == 409
-    assert "id" not in clash.json()
+        first = mine.post("/v1/jobs", json=iris_request, headers={"Idempotency-Key": key})
+        same = theirs.post("/v1/jobs", json=iris_request, headers={"Idempotency-Key": key})
+        again = theirs.post("/v1/jobs", json=iris_request, headers={"Idempotency-Key": key})
+        iris_request["outer"]["seed"] = 7
+        changed = theirs.post("/v1/jobs", json=iris_request, headers={"Idempotency-Key": key})
+        mine_again = mine.post("/v1/jobs", json=IRIS, headers={"Idempotency-Key": key})
+    assert first.status_code == 202 and same.status_code == 202
+    assert same.json()["id"] != first.json()["id"]
+    assert same.json()["team"] != first.json()["team"]
+    # B's own key now names B's job, and B's other body is B's own conflict, never A's
+    assert again.status_code == 200 and again.json()["id"] == same.json()["id"]
+    assert changed.status_code == 409 and first.json()["id"] not in changed.text
+    assert mine_again.status_code == 200 and mine_again.json()["id"] == first.json()["id"]
+    assert _jobs_with_key(server, key) == 2
 
 
 def test_a_key_longer_than_200_characters_is_refused(

@@ -18,9 +18,10 @@ from service.api.analysis.schemas import (
     history_public,
 )
 from service.api.deps import ReaderDep, SessionDep, SessionsDep
+from service.api.jobs.export import public_scores
 from service.api.jobs.router import AllMetrics
 from service.api.jobs.router import _summary as job_summary  # one listing shape for jobs
-from service.api.jobs.schemas import FoldScorePage, FoldScorePublic, JobList
+from service.api.jobs.schemas import FoldScorePage, JobList
 from service.api.problems import problem_responses
 from service.auth import Principal
 from service.errors import BadInput
@@ -90,7 +91,7 @@ def list_dataset_fold_scores(
         metric=metric,
         role=role,
     )
-    data = [FoldScorePublic.model_validate(r, from_attributes=True) for r in rows]
+    data = public_scores(session, principal, rows)
     return FoldScorePage(data=data, next_after=data[-1].id if len(data) == limit else None)
 
 
@@ -136,7 +137,7 @@ def export_dataset_csv(
         principal, content_hash, candidate_key=candidate_key, metric=metric, role=role
     )
     return _stream(
-        export.csv_chunks(sessions, fetch),
+        export.csv_chunks(sessions, fetch, principal),
         "text/csv; charset=utf-8",
         f"fold-scores-{content_hash[:12]}.csv",
     )
@@ -167,7 +168,7 @@ def export_dataset_parquet(
         principal, content_hash, candidate_key=candidate_key, metric=metric, role=role
     )
     return _stream(
-        export.parquet_chunks(sessions, fetch),
+        export.parquet_chunks(sessions, fetch, principal),
         "application/vnd.apache.parquet",
         f"fold-scores-{content_hash[:12]}.parquet",
     )
@@ -201,7 +202,7 @@ def export_job_parquet(
         )
 
     return _stream(
-        export.parquet_chunks(sessions, fetch, fold_context(session, found)),
+        export.parquet_chunks(sessions, fetch, principal, fold_context(session, found)),
         "application/vnd.apache.parquet",
         f"fold-scores-{found}.parquet",
     )

@@ -6,13 +6,17 @@ import logging
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Body, Path, Response
+from sqlalchemy.orm import Session
 
 from service.api.audit.schemas import AuditPublic, Provenance
-from service.api.deps import DispatcherDep, ReaderDep, SessionDep
+from service.api.deps import AuditorDep, DispatcherDep, ReaderDep, SessionDep
 from service.api.problems import problem_responses
+from service.auth import Action, Principal, authorize
+from service.errors import not_visible
 from service.jobs import service
 from service.jobs.audit import audit_view, check_audit_request, request_audit
 from service.jobs.provenance import provenance
+from service.jobs.service import foreign_job_ids
 from service.store.models import Audit
 
 log = logging.getLogger(__name__)
@@ -28,6 +32,24 @@ AUDIT_BODY = Body(
 )
 
 
+def _shown(session: Session, principal: Principal, audit: Audit) -> AuditPublic:
+    # an audited score may have been computed by another team's job: its id is not the caller's
+    view = audit_view(audit)
+    items = (view.get("report") or {}).get("items") or []
+    hidden = foreign_job_ids(
+        session, principal, {i["computed_by_job"] for i in items if i.get("computed_by_job")}
+    )
+    if hidden:
+        view["report"] = {
+            **view["report"],
+            "items": [
+                {**i, "computed_by_job": None} if i.get("computed_by_job") in hidden else i
+                for i in items
+            ],
+        }
+    return AuditPublic(**view)
+
+
 @router.post(
     "/jobs/{job_id}/audit",
     response_model=AuditPublic,
@@ -37,15 +59,19 @@ AUDIT_BODY = Body(
 )
 def start_audit(
     job_id: JobId,
-    principal: ReaderDep,
+    principal: AuditorDep,
     session: SessionDep,
     dispatcher: DispatcherDep,
     response: Response,
     body: Annotated[dict[str, Any] | None, AUDIT_BODY] = None,
 ) -> AuditPublic:
-    """202 with Location /v1/audits/{id}; the recomputation runs on a worker."""
+    """202 with Location /v1/audits/{id}; the recomputation runs on a worker.
+
+    Needs the `submit` scope and a job of the token's own team: another team's job answers 404,
+    as a missing one does, analyst tokens included (they read other teams' work, never start it).
+    """
     fraction, seed, tolerance = check_audit_request(body)
-    job = service.get_job(session, job_id, principal)
+    job = service.get_job(session, job_id, principal, Action.AUDIT)
     audit = request_audit(
         session, job, fraction=fraction, seed=seed, tolerance=tolerance, team=principal.team
     )
@@ -55,7 +81,7 @@ def start_audit(
     except Exception:
         log.exception("publishing audit %s failed; it stays queued", audit.id)
     response.headers["Location"] = f"/v1/audits/{audit.id}"
-    return AuditPublic(**audit_view(audit))
+    return _shown(session, principal, audit)
 
 
 @router.get(
@@ -65,11 +91,12 @@ def start_audit(
     responses=problem_responses(401, 403, 404, 422),
 )
 def get_audit(audit_id: AuditId, principal: ReaderDep, session: SessionDep) -> AuditPublic:
-    """Another team's audit is a 404."""
+    """Another team's audit is a 404 (analysts read every team's)."""
     audit = session.get(Audit, audit_id)
-    if audit is None or not principal.may_see(audit.team):
-        raise service.NotFound(f"no audit {audit_id!r}")
-    return AuditPublic(**audit_view(audit))
+    if audit is None:
+        raise not_visible("audit", audit_id)
+    authorize(principal, Action.READ, audit.team, what="audit", ident=audit_id)
+    return _shown(session, principal, audit)
 
 
 @router.get(
@@ -80,4 +107,5 @@ def get_audit(audit_id: AuditId, principal: ReaderDep, session: SessionDep) -> A
 )
 def get_provenance(job_id: JobId, principal: ReaderDep, session: SessionDep) -> Provenance:
     """Who computed what, with which versions, and what audits found."""
-    return Provenance(**provenance(session, service.get_job(session, job_id, principal)))
+    job = service.get_job(session, job_id, principal)
+    return Provenance(**provenance(session, job, principal))

@@ -24,7 +24,7 @@ from service.config import Settings
 from service.datasets.files import read_dataset_file
 from service.datasets.sources import table_from_frame
 from service.errors import BadInput
-from service.store.models import Dataset
+from service.store.models import Dataset, DatasetRegistration
 
 router = APIRouter(prefix="/v1/datasets", tags=["datasets"])
 
@@ -33,27 +33,38 @@ ContentHash = Annotated[
 ]
 
 
-def _summary(dataset: Dataset) -> DatasetSummary:
+def _summary(dataset: Dataset, copy: DatasetRegistration | None) -> DatasetSummary:
+    # origin and time of the caller's team's own copy (the same bytes may have come from
+    # another team first, under another name)
+    origin = (copy.origin if copy is not None else None) or {}
     return DatasetSummary(
         content_hash=dataset.content_hash,
         n_rows=dataset.n_rows,
         n_columns=dataset.n_columns,
-        origin={str(k): str(v) for k, v in dataset.origin.items()},
-        created_at=dataset.created_at,
+        origin={str(k): str(v) for k, v in origin.items()},
+        created_at=copy.created_at if copy is not None else dataset.created_at,
     )
 
 
-def _public(dataset: Dataset, settings: Settings) -> DatasetPublic:
+def _public(
+    session: Session, dataset: Dataset, principal: Principal, settings: Settings
+) -> DatasetPublic:
+    copy = service.team_copies(session, principal, [dataset.content_hash]).get(dataset.content_hash)
     columns = [ColumnPublic.model_validate(c) for c in service.column_summaries(dataset, settings)]
-    return DatasetPublic(**_summary(dataset).model_dump(), columns=columns)
+    return DatasetPublic(**_summary(dataset, copy).model_dump(), columns=columns)
 
 
 def _answer(
-    session: Session, content_hash: str, created: bool, settings: Settings, response: Response
+    session: Session,
+    content_hash: str,
+    created: bool,
+    principal: Principal,
+    settings: Settings,
+    response: Response,
 ) -> DatasetPublic:
     response.status_code = 201 if created else 200
     response.headers["Location"] = f"/v1/datasets/{content_hash}"
-    return _public(service.stored_dataset(session, content_hash), settings)
+    return _public(session, service.stored_dataset(session, content_hash), principal, settings)
 
 
 @router.post(
@@ -82,7 +93,7 @@ def register_dataset(
     # Loaded before the session is first used, so no transaction is open while a file is read.
     table = service.load_source(source, settings, team=principal.team)
     created = service.store_table(session, table, team=principal.team, settings=settings)
-    return _answer(session, table.content_hash, created, settings, response)
+    return _answer(session, table.content_hash, created, principal, settings, response)
 
 
 def _register_upload(
@@ -102,7 +113,7 @@ def _register_upload(
     service.check_shape(raw, settings, field=UPLOAD_FIELD)
     table = table_from_frame(raw, {"upload": spooled.filename, "format": fmt}, field=UPLOAD_FIELD)
     created = service.store_table(session, table, team=principal.team, settings=settings)
-    return _answer(session, table.content_hash, created, settings, response)
+    return _answer(session, table.content_hash, created, principal, settings, response)
 
 
 @router.post(
@@ -163,7 +174,8 @@ def get_dataset(
     content_hash: ContentHash, principal: ReaderDep, session: SessionDep, settings: SettingsDep
 ) -> DatasetPublic:
     """The table's shape, columns and origin, if the caller's team registered it."""
-    return _public(service.get_dataset(session, content_hash, principal), settings)
+    dataset = service.get_dataset(session, content_hash, principal)
+    return _public(session, dataset, principal, settings)
 
 
 @router.get(
@@ -180,4 +192,5 @@ def list_datasets(
 ) -> DatasetList:
     """Newest first, with the total count."""
     rows, count = service.list_datasets(session, principal, limit=limit, offset=offset)
-    return DatasetList(data=[_summary(d) for d in rows], count=count)
+    copies = service.team_copies(session, principal, [d.content_hash for d in rows])
+    return DatasetList(data=[_summary(d, copies.get(d.content_hash)) for d in rows], count=count)

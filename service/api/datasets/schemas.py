@@ -33,8 +33,10 @@ class DatasetSummary(BaseModel):
     content_hash: str = Field(description="sha256 of the table's canonical serialisation.")
     n_rows: int
     n_columns: int
-    origin: dict[str, str] = Field(description="Where the rows first came from.")
-    created_at: datetime = Field(description="When the table was first stored.")
+    origin: dict[str, str] = Field(
+        description="Where the caller's team's copy came from (its own file name or source)."
+    )
+    created_at: datetime = Field(description="When the caller's team registered the table.")
 
 
 class DatasetPublic(DatasetSummary):

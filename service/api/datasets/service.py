@@ -9,7 +9,7 @@ import pandas as pd
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
-from service.auth import Principal
+from service.auth import Action, Principal, reaches_every_team
 from service.config import Settings
 from service.datasets.kinds import override_hint
 from service.datasets.sources import (
@@ -88,7 +88,7 @@ def store_table(session: Session, table: LoadedTable, *, team: str, settings: Se
         ],
     )
     known = session.get(DatasetRegistration, (team, table.content_hash)) is not None
-    register_dataset(session, table.content_hash, team)
+    register_dataset(session, table.content_hash, team, origin=table.origin)
     session.flush()
     return not known
 
@@ -103,6 +103,24 @@ def stored_dataset(session: Session, content_hash: str) -> Dataset:
     return dataset
 
 
+def team_copies(
+    session: Session, principal: Principal, hashes: list[str]
+) -> dict[str, DatasetRegistration]:
+    """Per table, the registration the caller is shown: its own team's, else (analysts only)
+    the earliest; another team's file name or query never reaches a team that cannot read it."""
+    rows = session.scalars(
+        select(DatasetRegistration)
+        .where(DatasetRegistration.content_hash.in_(hashes))
+        .order_by(DatasetRegistration.created_at, DatasetRegistration.team)
+    )
+    shown: dict[str, DatasetRegistration] = {}
+    everyone = reaches_every_team(principal, Action.READ)
+    for row in rows:
+        if row.team == principal.team or (everyone and row.content_hash not in shown):
+            shown[row.content_hash] = row
+    return shown
+
+
 def get_dataset(session: Session, content_hash: str, principal: Principal) -> Dataset:
     """The stored dataset, if the principal's team registered it (or it is an analyst)."""
     visible_dataset(session, content_hash, principal)
@@ -114,7 +132,7 @@ def list_datasets(
 ) -> tuple[list[Dataset], int]:
     """A page of the datasets the principal may see, newest first, and the total."""
     query = select(Dataset)
-    if not principal.analyst:
+    if not reaches_every_team(principal, Action.READ):
         mine = select(DatasetRegistration.content_hash).where(
             DatasetRegistration.team == principal.team
         )

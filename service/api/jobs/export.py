@@ -11,8 +11,9 @@ from typing import Any
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.api.jobs.schemas import FOLD_SCORE_COLUMNS, FoldScorePublic
+from service.auth import Principal
 from service.jobs.fold_rows import EXTRA_COLUMNS, FoldContext, describe_score, fold_context
-from service.jobs.service import fold_scores_page
+from service.jobs.service import fold_scores_page, foreign_job_ids
 from service.store.models import FoldScore, Job
 
 PAGE = 1000
@@ -26,21 +27,32 @@ def _cell(value: Any) -> Any:
 STORED_COLUMNS = tuple(c for c in FOLD_SCORE_COLUMNS if c not in EXTRA_COLUMNS)
 
 
-def public_scores(scores: list[FoldScore], context: FoldContext) -> list[FoldScorePublic]:
-    """Stored scores as the listing shows them, with their fold's place and candidate."""
-    return [
+def public_scores(
+    session: Session,
+    principal: Principal,
+    scores: list[FoldScore],
+    context: FoldContext | None = None,
+) -> list[FoldScorePublic]:
+    """Stored scores as the listing shows them; with a job's `context`, also their fold's place
+    and candidate. The computing job's id only when the caller may read it."""
+    hidden = foreign_job_ids(session, principal, {s.job_id for s in scores})
+    public = [
         FoldScorePublic.model_validate(
             {
                 **{c: getattr(score, c) for c in STORED_COLUMNS},
-                **describe_score(score, context),
+                **(describe_score(score, context) if context is not None else {}),
             }
         )
         for score in scores
     ]
+    for score in public:
+        if score.job_id in hidden:
+            score.job_id = None  # computed by another team's job, shared by content
+    return public
 
 
 def fold_score_lines(
-    sessions: sessionmaker[Session], job_id: str, *, all_metrics: bool = False
+    sessions: sessionmaker[Session], job_id: str, principal: Principal, *, all_metrics: bool = False
 ) -> Iterator[str]:
     """The header, then one line per score, cells formatted as the JSON listing formats them."""
     buffer = io.StringIO()
@@ -57,7 +69,9 @@ def fold_score_lines(
             page = fold_scores_page(
                 session, job, after_id=after, limit=PAGE, all_metrics=all_metrics
             )
-            rows = [r.model_dump(mode="json") for r in public_scores(page, context)]
+            rows = [
+                r.model_dump(mode="json") for r in public_scores(session, principal, page, context)
+            ]
         for row in rows:
             writer.writerow([_cell(row[c]) for c in FOLD_SCORE_COLUMNS])
         yield buffer.getvalue()

@@ -9,9 +9,11 @@ from typing import Annotated, Any
 from fastapi import APIRouter, Body, Header, Path, Query, Response
 from fastapi.responses import StreamingResponse
 from sqlalchemy.exc import IntegrityError
+from sqlalchemy.orm import Session
 
 from service.api.datasets.service import confine_path_source, server_base_dir
 from service.api.deps import (
+    CancellerDep,
     DispatcherDep,
     ReaderDep,
     SessionDep,
@@ -30,6 +32,7 @@ from service.api.jobs.schemas import (
     JobSummary,
 )
 from service.api.problems import problem_responses
+from service.auth import Action, Principal
 from service.dispatch.base import mark_published
 from service.errors import BadInput
 from service.jobs import service
@@ -83,12 +86,12 @@ def _summary(job: Job) -> JobSummary:
     )
 
 
-def _public(job: Job) -> JobPublic:
+def _public(job: Job, session: Session, principal: Principal) -> JobPublic:
     base = f"/v1/jobs/{job.id}"
     return JobPublic(
         **_summary(job).model_dump(),
         error=job.error,
-        result=job.result if job.status == "succeeded" else None,
+        result=service.result_for(session, principal, job),
         links=JobLinks(
             job=base,
             cancel=f"{base}/cancel",
@@ -177,7 +180,7 @@ def submit_job(
             log.exception("publishing job %s failed; the reconciler will publish it", job.id)
     response.status_code = 202 if submitted.created else 200
     response.headers["Location"] = f"/v1/jobs/{job.id}"
-    return _public(job)
+    return _public(job, session, principal)
 
 
 @router.get(
@@ -188,7 +191,7 @@ def submit_job(
 )
 def get_job(job_id: JobId, principal: ReaderDep, session: SessionDep) -> JobPublic:
     """Another team's job is a 404, as if it did not exist."""
-    return _public(service.get_job(session, job_id, principal))
+    return _public(service.get_job(session, job_id, principal), session, principal)
 
 
 def _aware(moment: datetime | None) -> datetime | None:
@@ -240,11 +243,15 @@ def list_jobs(
     summary="Cancel a queued or running job (finished jobs are left as they are)",
     responses=problem_responses(401, 403, 404, 422),
 )
-def cancel_job(job_id: JobId, principal: SubmitterDep, session: SessionDep) -> JobPublic:
-    """Units stop between fits; queued units never start."""
-    job = service.cancel_job(session, service.get_job(session, job_id, principal))
+def cancel_job(job_id: JobId, principal: CancellerDep, session: SessionDep) -> JobPublic:
+    """Units stop between fits; queued units never start.
+
+    Needs the `submit` scope and a job of the token's own team: another team's job answers 404,
+    as a missing one does, analyst tokens included.
+    """
+    job = service.cancel_job(session, service.get_job(session, job_id, principal, Action.CANCEL))
     session.commit()
-    return _public(job)
+    return _public(job, session, principal)
 
 
 @router.get(
@@ -266,7 +273,7 @@ def list_fold_scores(
     rows = service.fold_scores_page(
         session, job, after_id=after, limit=limit, all_metrics=all_metrics
     )
-    data = export.public_scores(rows, fold_context(session, job.id))
+    data = export.public_scores(session, principal, rows, fold_context(session, job.id))
     return FoldScorePage(data=data, next_after=data[-1].id if len(data) == limit else None)
 
 
@@ -293,7 +300,7 @@ def export_fold_scores(
     """Streamed page by page, each page read in its own short session."""
     job = service.get_job(session, job_id, principal)
     return StreamingResponse(
-        export.fold_score_lines(sessions, job.id, all_metrics=all_metrics),
+        export.fold_score_lines(sessions, job.id, principal, all_metrics=all_metrics),
         media_type="text/csv; charset=utf-8",
         headers={"Content-Disposition": f'attachment; filename="fold-scores-{job.id}.csv"'},
     )

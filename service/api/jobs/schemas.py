@@ -163,7 +163,10 @@ class FoldScorePublic(BaseModel):
     seed: int | None
     versions: dict[str, str]
     worker: str
-    job_id: str
+    job_id: str | None = Field(
+        description="The job whose unit computed the score; null when it was another team's "
+        "job (scores are shared by content: same table, fold and candidate)."
+    )
     created_at: datetime
     # where the fold sits in this job's plan, and the candidate behind the key (fold_rows.py)
     role: str | None = Field(default=None, description="outer, inner or final_inner.")

@@ -10,10 +10,10 @@ from fastapi import APIRouter, Body, Path, Query, Response
 from service.api.deps import (
     DispatcherDep,
     ReaderDep,
+    SchedulerDep,
     SessionDep,
     SessionsDep,
     SettingsDep,
-    SubmitterDep,
 )
 from service.api.problems import problem_responses
 from service.api.schedules.schemas import (
@@ -23,6 +23,7 @@ from service.api.schedules.schemas import (
     ScheduleList,
     SchedulePublic,
 )
+from service.auth import Action
 from service.dispatch.base import mark_published
 from service.schedules import service
 from service.schedules.tick import trigger_refresh
@@ -71,7 +72,7 @@ def _refresh(row: Refresh) -> RefreshPublic:
 )
 def create_schedule(
     body: Annotated[dict[str, Any], Body(description="source, template, cron, timezone, ...")],
-    principal: SubmitterDep,
+    principal: SchedulerDep,
     session: SessionDep,
     settings: SettingsDep,
     response: Response,
@@ -141,16 +142,20 @@ def list_refreshes(
 )
 def refresh_now(
     schedule_id: ScheduleId,
-    principal: SubmitterDep,
+    principal: SchedulerDep,
     sessions: SessionsDep,
     settings: SettingsDep,
     dispatcher: DispatcherDep,
 ) -> RefreshPublic:
-    """202 with the refresh; a new job's units are published after the commit."""
+    """202 with the refresh; a new job's units are published after the commit.
+
+    Needs the `submit` scope and a schedule of the token's own team: another team's schedule
+    answers 404, as a missing one does, analyst tokens included.
+    """
     # Short sessions, no request-wide one: on SQLite an open transaction holds the write lock
     # the refresh's own transaction needs.
     with sessions() as session:
-        service.get_schedule(session, schedule_id, principal)
+        service.get_schedule(session, schedule_id, principal, Action.SCHEDULE)
     refresh_id, units = trigger_refresh(sessions, schedule_id, settings)
     if units:
         try:
