@@ -49,8 +49,8 @@ def candidate_key(
 ) -> str:
     """sha256 of the candidate's canonical JSON (sorted keys, no spaces).
 
-    `preprocess` is "auto", "none" or a recipe's full JSON; `inputs` (declared column types,
-    the weights column) enters only when given, so keys of requests without them are unchanged.
+    `preprocess` is "auto", "none" or a recipe's full JSON; `inputs` holds what else makes the
+    candidate's scores: the problem (target, task, features), declared column types, weights.
     """
     body: dict[str, Any] = {"estimator": estimator, "params": params, "preprocess": preprocess}
     if inputs:
@@ -71,7 +71,22 @@ def key_parts(spec: SelectionSpec) -> tuple[str | dict[str, Any], dict[str, Any]
         }
     if spec.weights:
         inputs["weights"] = spec.weights
+    # What is predicted from what: a plain k-fold ignores the labels, so two jobs on one table
+    # with another target, task or feature set share fold fingerprints, and must not share scores.
+    inputs["problem"] = problem_of(spec)
     return preprocess, inputs
+
+
+def problem_of(spec: SelectionSpec) -> dict[str, Any]:
+    """The target, the task and the feature columns (as listed, or all but the reserved ones)."""
+    if spec.features is not None:
+        features: Any = list(spec.features)
+    else:
+        reserved = {spec.target} | ({spec.weights} if spec.weights else set())
+        for plan in (spec.outer, spec.inner):
+            reserved |= {c for c in (plan.groups, plan.order_by) if c}
+        features = {"all_but": sorted(reserved)}
+    return {"target": spec.target, "task": spec.task, "features": features}
 
 
 def _check_model_params(cls: Any, params: dict[str, Any], spec: SelectionSpec, field: str) -> None:

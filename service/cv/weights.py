@@ -13,6 +13,7 @@ import numpy as np
 import numpy.typing as npt
 import pandas as pd
 from sklearn import config_context
+from sklearn.base import BaseEstimator
 
 from service.cv.errors import SpecError
 from service.cv.estimators import estimator_class
@@ -77,10 +78,8 @@ def check_weight_families(spec: SelectionSpec) -> None:
             )
 
 
-def _request_weights(estimator: Any) -> None:
-    """Ask every step whose fit takes sample_weight for it, walking pipelines and wrappers."""
-    if isinstance(estimator, str) or estimator is None:
-        return  # "passthrough" / "drop"
+def _children(estimator: Any) -> list[Any]:
+    """The steps, transformers and wrapped estimators directly inside `estimator`."""
     children: list[Any] = []
     if hasattr(estimator, "steps"):
         children += [step for _, step in estimator.steps]
@@ -90,7 +89,14 @@ def _request_weights(estimator: Any) -> None:
         child = getattr(estimator, attribute, None)
         if child is not None and not isinstance(child, str):
             children.append(child)
-    for child in children:
+    return children
+
+
+def _request_weights(estimator: Any) -> None:
+    """Ask every step whose fit takes sample_weight for it, walking pipelines and wrappers."""
+    if isinstance(estimator, str) or estimator is None:
+        return  # "passthrough" / "drop"
+    for child in _children(estimator):
         _request_weights(child)
     if fit_takes_weights(type(estimator)) and hasattr(estimator, "set_fit_request"):
         estimator.set_fit_request(sample_weight=True)
@@ -104,4 +110,22 @@ def fit_model(model: Any, X: Any, y: Any, weights: npt.NDArray[np.float64] | Non
     # each step that requested it (scalers, the L1 model of a selector, the estimator)
     with config_context(enable_metadata_routing=True):
         _request_weights(model)
-        return model.fit(X, y, sample_weight=weights)
+        model.fit(X, y, sample_weight=weights)
+    _forget_requests(model)
+    return model
+
+
+def _forget_requests(estimator: Any) -> None:
+    """Drop the per-instance routing requests once fitted: prediction needs none, and a request
+    refers back to its estimator, a cycle that skops cannot write (the handed-over model)."""
+    # every estimator reachable through attributes: the fitted clones (transformers_, regressor_,
+    # estimator_) carry the requests too, since clone() copies them
+    if isinstance(estimator, (list, tuple)):
+        for item in estimator:
+            _forget_requests(item)
+        return
+    if not isinstance(estimator, BaseEstimator):
+        return
+    for value in list(vars(estimator).values()):
+        _forget_requests(value)
+    vars(estimator).pop("_metadata_request", None)

@@ -79,18 +79,55 @@ def refusal(request: dict[str, Any], frame: pd.DataFrame | None = None) -> SpecE
 # --- candidate keys ---------------------------------------------------------------------------
 
 
-def _old_key(estimator: str, params: dict[str, Any], preprocess: str) -> str:
-    # the key as it was computed before recipes existed: stored work must keep its keys
-    body = {"estimator": estimator, "params": params, "preprocess": preprocess}
+def _plain_key(estimator: str, params: dict[str, Any], preprocess: str) -> str:
+    # the key of a request without recipe, weights or column types: the candidate, its
+    # preprocessing and the problem it was scored on (target, task, every column but the target)
+    body = {
+        "estimator": estimator,
+        "params": params,
+        "preprocess": preprocess,
+        "inputs": {
+            "problem": {
+                "target": "target",
+                "task": "classification",
+                "features": {"all_but": ["target"]},
+            }
+        },
+    }
     text = json.dumps(body, sort_keys=True, separators=(",", ":"), allow_nan=False)
     return hashlib.sha256(text.encode()).hexdigest()
 
 
 @pytest.mark.parametrize("preprocess", ["auto", "none"])
-def test_keys_of_requests_without_the_new_fields_are_unchanged(preprocess: str) -> None:
+def test_keys_of_plain_requests_are_the_candidate_and_its_problem(preprocess: str) -> None:
     plan = plan_for(iris_request(preprocess=preprocess))
     for candidate in plan.candidates:
-        assert candidate.key == _old_key(candidate.estimator, candidate.params, preprocess)
+        assert candidate.key == _plain_key(candidate.estimator, candidate.params, preprocess)
+
+
+def test_another_target_or_feature_set_gives_other_keys() -> None:
+    # A plain k-fold ignores the labels, so these jobs share fold fingerprints on one table:
+    # only the key keeps one job's scores from being reused as the other's.
+    base = iris_request(
+        target="petal width (cm)",
+        task="regression",
+        families=[{"estimator": "Ridge", "grid": {"alpha": [0.1, 1.0]}}],
+        outer={"method": "kfold", "k": 3},
+        inner={"method": "kfold", "k": 2},
+        metrics=["r2"],
+    )
+    other_target = {**base, "target": "petal length (cm)"}
+    fewer_features = {**base, "features": ["sepal length (cm)", "sepal width (cm)"]}
+    keys = {
+        name: {c.key for c in plan_for(request).candidates}
+        for name, request in [
+            ("base", base),
+            ("other target", other_target),
+            ("fewer features", fewer_features),
+        ]
+    }
+    assert keys["base"].isdisjoint(keys["other target"])
+    assert keys["base"].isdisjoint(keys["fewer features"])
 
 
 def test_recipe_weights_and_column_types_each_give_other_keys() -> None:
@@ -383,3 +420,34 @@ def test_column_type_refusals(columns: dict[str, Any], field: str) -> None:
     error = refusal(demo_request(columns=columns), demo_frame())
     assert error.field == field, error.message
     assert error.message.endswith(".")
+
+
+@pytest.mark.parametrize(
+    "preprocess",
+    ["auto", {"target": "log1p"}, {"select": {"method": "l1_model", "alpha": 0.001}}],
+    ids=["auto", "log target", "l1 selection"],
+)
+def test_a_model_fitted_with_weights_is_written_in_skops_format(preprocess: Any) -> None:
+    # Routing requests refer back to their estimator; the handed-over file must not carry them.
+    import skops.io as sio
+
+    from service.cv.weights import fit_model
+    from service.jobs.model_file import model_bytes
+
+    frame = iris_with(1.0 + (np.arange(150) % 4))
+    request = iris_request(
+        target="petal width (cm)",
+        task="regression",
+        families=[{"estimator": "Ridge"}],
+        outer={"method": "kfold", "k": 3},
+        inner={"method": "kfold", "k": 3},
+        metrics=["r2"],
+        features=["sepal length (cm)", "sepal width (cm)", "petal length (cm)"],
+        weights="weight",
+        preprocess=preprocess,
+    )
+    plan = plan_for(request, frame)
+    model = build_pipeline(plan.candidates[0], plan.table, "regression", plan.spec.recipe)
+    fit_model(model, plan.table.X, plan.y, plan.weights)
+    loaded = sio.loads(model_bytes(model), trusted=sio.get_untrusted_types(data=model_bytes(model)))
+    assert np.array_equal(loaded.predict(plan.table.X), model.predict(plan.table.X))

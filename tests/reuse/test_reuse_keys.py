@@ -73,3 +73,28 @@ def test_each_recipe_weights_and_column_type_is_fitted_afresh_and_then_reused(
     assert again.result["work"]["units_reused"] == again.result["work"]["units_total"]
     assert _outer(again.result) == _outer(runs["weights"].result)
     assert again.result["final_pick"] == runs["weights"].result["final_pick"]
+
+
+def test_another_target_or_fewer_features_on_the_same_folds_is_fitted_afresh(
+    pg_settings: Settings, weighted_iris: Path
+) -> None:
+    # A plain k-fold ignores the labels, so these jobs have the same fold fingerprints on the
+    # same dataset hash; reusing one's scores for the other would report the wrong problem.
+    plain = {
+        "task": "regression",
+        "families": [{"estimator": "Ridge", "grid": {"alpha": [0.1, 1.0]}}],
+        "outer": {"method": "kfold", "k": 3},
+        "inner": {"method": "kfold", "k": 2},
+        "metrics": ["r2"],
+    }
+    width = ["sepal length (cm)", "sepal width (cm)", "petal length (cm)"]
+    length = ["sepal length (cm)", "sepal width (cm)", "petal width (cm)"]
+    first = _run(pg_settings, weighted_iris, **plain, target="petal width (cm)", features=width)
+    assert first.result["work"]["units_reused"] == 0
+    for target, features in [("petal length (cm)", length), ("petal width (cm)", width[:2])]:
+        other = _run(pg_settings, weighted_iris, **plain, target=target, features=features)
+        work = other.result["work"]
+        assert work["units_reused"] == 0, (target, features)
+        assert work["units_computed"] == work["units_total"], (target, features)
+    again = _run(pg_settings, weighted_iris, **plain, target="petal width (cm)", features=width)
+    assert again.result["work"]["fits"] == 0
