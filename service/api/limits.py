@@ -14,6 +14,9 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from service.api.problems import problem_response
 
 JSON_BODY_LIMIT = 1 << 20
+# the largest integer SQL stores (a signed 64-bit BIGINT): offsets and keyset ids past it would
+# overflow the driver's conversion, so every list route bounds them with Query(le=...)
+MAX_SQL_INT = 2**63 - 1
 
 
 def _detail(limit: int) -> str:

@@ -12,6 +12,7 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from pydantic import BaseModel, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
+from starlette.routing import Route
 
 from service.errors import BadInput
 from service.jobs.request import field_path
@@ -146,6 +147,19 @@ def _validation_problem(request: Request, exc: RequestValidationError) -> JSONRe
     return problem_response(request, 422, _sentence(first), field=field)
 
 
+def allowed_methods(request: Request) -> list[str]:
+    """Every method some route of the app answers on this request's path."""
+    methods: set[str] = set()
+    for route in request.app.router.routes:
+        if (
+            isinstance(route, Route)
+            and route.methods
+            and route.path_regex.match(request.scope["path"])
+        ):
+            methods |= route.methods
+    return sorted(methods)
+
+
 def install_problem_handlers(app: FastAPI) -> None:
     """Register the handlers that turn every error into a problem document."""
 
@@ -158,7 +172,8 @@ def install_problem_handlers(app: FastAPI) -> None:
     async def on_http(request: Request, exc: Exception) -> JSONResponse:
         assert isinstance(exc, StarletteHTTPException)
         detail = exc.detail if isinstance(exc.detail, str) else HTTPStatus(exc.status_code).phrase
-        return problem_response(request, exc.status_code, detail, headers=exc.headers)
+        field = getattr(exc, "field", None)  # json_body.BodyProblem names the field
+        return problem_response(request, exc.status_code, detail, field=field, headers=exc.headers)
 
     async def on_validation(request: Request, exc: Exception) -> JSONResponse:
         assert isinstance(exc, RequestValidationError)

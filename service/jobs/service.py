@@ -20,6 +20,7 @@ from service.auth import Principal
 from service.config import Settings
 from service.datasets.sources import check_table_size
 from service.jobs.curves import create_submission, prepare_submission
+from service.json_values import check_json_values
 from service.notify.outbox import queue_job_notice
 from service.notify.targets import check_webhook_target
 from service.store.db import utcnow
@@ -66,6 +67,7 @@ def submit_job(
     base_dir: Path | None = None,
 ) -> Submitted:
     """Validate and store a job for the principal's team (BadInput leaves nothing behind)."""
+    check_json_values(data)  # NaN or Infinity is the caller's to fix, not a hashing crash
     body_hash = request_hash(data)
     if idempotency_key is not None:
         earlier = session.scalars(

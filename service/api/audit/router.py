@@ -9,6 +9,7 @@ from fastapi import APIRouter, Body, Path, Response
 
 from service.api.audit.schemas import AuditPublic, Provenance
 from service.api.deps import DispatcherDep, ReaderDep, SessionDep
+from service.api.json_body import StrictJsonRoute
 from service.api.problems import problem_responses
 from service.jobs import service
 from service.jobs.audit import audit_view, check_audit_request, request_audit
@@ -16,7 +17,7 @@ from service.jobs.provenance import provenance
 from service.store.models import Audit
 
 log = logging.getLogger(__name__)
-router = APIRouter(prefix="/v1", tags=["audits"])
+router = APIRouter(prefix="/v1", tags=["audits"], route_class=StrictJsonRoute)
 
 JobId = Annotated[str, Path(max_length=64, description="The job's id.")]
 AuditId = Annotated[str, Path(max_length=64, description="The audit's id.")]
