@@ -23,6 +23,22 @@ from .server import IRIS_REQUEST, Server
 MAX_SQL_INT = 2**63 - 1  # PostgreSQL's BIGINT and SQLite's INTEGER hold no more
 
 
+def _timed_post(client: Any, body: dict[str, Any]) -> tuple[Any, float]:
+    """The answer and the median seconds of three identical posts, after one warm-up post.
+
+    The warm-up keeps a fresh server's first-request costs (connections, lazy imports) out of
+    the figure: what is measured is the cost of refusing the request.
+    """
+    client.post("/v1/jobs", json=body)
+    times, answer = [], None
+    for _ in range(3):
+        started = time.monotonic()
+        answer = client.post("/v1/jobs", json=body)
+        times.append(time.monotonic() - started)
+    print(f"refused in {sorted(times)[1]:.3f} s (median of {[round(t, 3) for t in times]})")
+    return answer, sorted(times)[1]
+
+
 def _problem(answer: Any, status: int = 422) -> dict[str, Any]:
     assert answer.status_code == status, answer.text
     assert answer.headers["content-type"] == "application/problem+json"
@@ -38,9 +54,7 @@ def test_a_million_outer_repeats_is_refused_in_well_under_a_second(
     request["outer"]["repeats"] = 1_000_000
     before = server.snapshot()
     with server.client(token) as client:
-        started = time.monotonic()
-        answer = client.post("/v1/jobs", json=request)
-        elapsed = time.monotonic() - started
+        answer, elapsed = _timed_post(client, request)
     problem = _problem(answer)
     assert problem["field"] == "outer.repeats"
     assert elapsed < 1.0, f"{elapsed:.2f} s"
@@ -57,9 +71,7 @@ def test_a_job_past_the_fits_cap_states_the_number_and_the_cap(server: Server, t
     cap = load_settings(server.env).max_job_fits
     before = server.snapshot()
     with server.client(token) as client:
-        started = time.monotonic()
-        answer = client.post("/v1/jobs", json=request)
-        elapsed = time.monotonic() - started
+        answer, elapsed = _timed_post(client, request)
     problem = _problem(answer)
     assert problem["field"] == "outer.repeats"
     assert problem["detail"] == (

@@ -34,7 +34,7 @@ AUDIT_BODY = Body(
     response_model=AuditPublic,
     status_code=202,
     summary="Recompute a sample (or all) of a succeeded job's units and compare with the store",
-    responses=problem_responses(401, 403, 404, 422),
+    responses=problem_responses(400, 401, 403, 404, 413, 422),
 )
 def start_audit(
     job_id: JobId,
