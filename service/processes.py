@@ -35,15 +35,9 @@ def die_with_parent() -> None:
         log.warning("could not ask the kernel to stop this process with its parent")
 
 
-def pool_pids(pool: ProcessPoolExecutor) -> list[int]:
-    """The process ids of a pool's live processes."""
-    # ProcessPoolExecutor keeps them in a private dict; there is no public accessor
-    processes = getattr(pool, "_processes", None) or {}
-    return [int(pid) for pid in processes]
-
-
 def stop_pool(pool: ProcessPoolExecutor, *, grace: float = 2.0) -> list[int]:
     """Shut a pool down now: cancel what waits, terminate what runs; returns the pids stopped."""
+    # ProcessPoolExecutor keeps its processes in a private dict; there is no public accessor
     processes = list((getattr(pool, "_processes", None) or {}).values())
     pool.shutdown(wait=False, cancel_futures=True)
     for process in processes:

@@ -173,7 +173,15 @@ def install_problem_handlers(app: FastAPI) -> None:
         assert isinstance(exc, StarletteHTTPException)
         detail = exc.detail if isinstance(exc.detail, str) else HTTPStatus(exc.status_code).phrase
         field = getattr(exc, "field", None)  # json_body.BodyProblem names the field
-        return problem_response(request, exc.status_code, detail, field=field, headers=exc.headers)
+        headers = dict(exc.headers or {})
+        if exc.status_code == 405:
+            # Starlette names the methods of the first route that matched the path only
+            allowed = allowed_methods(request)
+            headers["Allow"] = ", ".join(allowed)
+            detail = f"{request.method} is not a method of this path; use {' or '.join(allowed)}."
+        elif exc.status_code == 404 and detail == HTTPStatus.NOT_FOUND.phrase:
+            detail = "there is no route at this path; /openapi.json lists every route."
+        return problem_response(request, exc.status_code, detail, field=field, headers=headers)
 
     async def on_validation(request: Request, exc: Exception) -> JSONResponse:
         assert isinstance(exc, RequestValidationError)
@@ -187,7 +195,9 @@ def install_problem_handlers(app: FastAPI) -> None:
         return problem_response(request, 409, str(exc))
 
     async def on_not_found(request: Request, exc: Exception) -> JSONResponse:
-        return problem_response(request, 404, str(exc))
+        # one sentence that says what to do, the same for "missing" and "not yours"
+        detail = f"{str(exc).rstrip('.')}; check the id, and that your team may see it."
+        return problem_response(request, 404, detail)
 
     async def on_crash(request: Request, exc: Exception) -> JSONResponse:
         # The traceback goes to the log only: it can hold paths and data the caller must not see.

@@ -12,10 +12,8 @@ import numpy as np
 from sklearn.model_selection import ParameterGrid
 
 from service.cv.estimators import check_params, estimator_class, has_random_state
-from service.cv.size import MAX_CANDIDATES, check_search_space, family_size
+from service.cv.size import check_search_space
 from service.cv.spec import RangeSpec, SelectionSpec
-
-__all__ = ["MAX_CANDIDATES", "Candidate", "candidate_key", "enumerate_candidates", "family_size"]
 
 # Estimators with a random_state but none given get this one, recorded in the candidate's
 # params, so that the same request always gives the same fold scores.
