@@ -12,7 +12,7 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from pydantic import BaseModel, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
-from starlette.routing import Route
+from starlette.routing import Match
 
 from service.errors import BadInput
 from service.jobs.request import field_path
@@ -147,17 +147,18 @@ def _validation_problem(request: Request, exc: RequestValidationError) -> JSONRe
     return problem_response(request, 422, _sentence(first), field=field)
 
 
+_METHODS = ("DELETE", "GET", "HEAD", "PATCH", "POST", "PUT")
+
+
 def allowed_methods(request: Request) -> list[str]:
     """Every method some route of the app answers on this request's path."""
-    methods: set[str] = set()
-    for route in request.app.router.routes:
-        if (
-            isinstance(route, Route)
-            and route.methods
-            and route.path_regex.match(request.scope["path"])
-        ):
-            methods |= route.methods
-    return sorted(methods)
+    # asked of the router itself (BaseRoute.matches), so routes of included routers count too
+    allowed = []
+    for method in _METHODS:
+        scope = {**request.scope, "method": method}
+        if any(route.matches(scope)[0] == Match.FULL for route in request.app.router.routes):
+            allowed.append(method)
+    return allowed
 
 
 def install_problem_handlers(app: FastAPI) -> None:
