@@ -32,14 +32,16 @@ from service.store.models import Dataset
 router = APIRouter(prefix="/v1/datasets", tags=["datasets"], route_class=StrictJsonRoute)
 
 
-class Sha256Convertor(StringConvertor):
-    """A path segment of 64 lower-case hex digits, so `GET /v1/datasets/upload` is a 405."""
+class NotUploadConvertor(StringConvertor):
+    """A path segment other than `upload`, so `GET /v1/datasets/upload` is a 405, not a 422.
 
-    regex = "[0-9a-f]{64}"
+    Other non-hashes still reach the route and get its 422 naming `content_hash`.
+    """
+
+    regex = "(?!upload$)[^/]+"
 
 
-# Without it `/{content_hash}` would match `upload` and answer GET with a 422 about the hash.
-register_url_convertor("sha256", Sha256Convertor())
+register_url_convertor("not_upload", NotUploadConvertor())
 
 ContentHash = Annotated[
     str, Path(pattern=r"^[0-9a-f]{64}$", description="sha256 hex of the canonical table.")
@@ -167,7 +169,7 @@ async def upload_dataset(
 
 
 @router.get(
-    "/{content_hash:sha256}",
+    "/{content_hash:not_upload}",
     response_model=DatasetPublic,
     summary="Get a registered table by its content hash",
     responses=problem_responses(401, 403, 404, 422),
