@@ -48,6 +48,8 @@ class Settings:
     max_upload_bytes: int = 200 * 1024 * 1024
     max_rows: int = 2_000_000
     max_columns: int = 2_000
+    # one job's fits in all (service/cv/size.py), checked before any fold or candidate is built
+    max_job_fits: int = 200_000
     # hard time limit of one unit; the soft limit, the lease and the broker's visibility timeout
     # are derived from it so that soft < hard < lease < visibility always holds
     unit_time_limit: int = 3_000
@@ -181,6 +183,7 @@ def load_settings(env: dict[str, str] | None = None) -> Settings:
         max_upload_bytes=int(_number(env, "FOLDWISE_MAX_UPLOAD_MB", 200) * 1024 * 1024),
         max_rows=int(_number(env, "FOLDWISE_MAX_ROWS", 2_000_000)),
         max_columns=int(_number(env, "FOLDWISE_MAX_COLUMNS", 2_000)),
+        max_job_fits=int(_number(env, "FOLDWISE_MAX_JOB_FITS", 200_000)),
         unit_time_limit=int(_number(env, "FOLDWISE_UNIT_TIME_LIMIT", 3_000)),
         reconcile_seconds=_number(env, "FOLDWISE_RECONCILE_SECONDS", 30),
         republish_after=_number(env, "FOLDWISE_REPUBLISH_AFTER", 300),

@@ -18,7 +18,8 @@ from service.api.datasets.router import router as datasets_router
 from service.api.health.router import router as health_router
 from service.api.jobs.handover_routes import router as handover_router
 from service.api.jobs.router import router as jobs_router
-from service.api.limits import BodyCap
+from service.api.limits import BodyCap, NoNulInUrl
+from service.api.openapi_statuses import add_shared_statuses
 from service.api.problems import PROBLEM_MEDIA_TYPE, install_problem_handlers
 from service.api.schedules.router import router as schedules_router
 from service.config import Settings
@@ -26,12 +27,14 @@ from service.datasets.sql_roles import start_role_check
 from service.dispatch.base import Dispatcher
 from service.errors import BadInput
 from service.jobs.request import JobRequest
+from service.schedules.service import ScheduleRequest
 from service.store.db import make_engine, make_session_factory
 from service.web.router import router as reports_router
 
 log = logging.getLogger(__name__)
 JOBS_PATH = "/v1/jobs"
 UPLOAD_PATH = "/v1/datasets/upload"
+SCHEDULES_PATH = "/v1/schedules"
 
 
 def local_workers_from_env(env: dict[str, str] | None = None) -> int:
@@ -74,11 +77,15 @@ def _document(app: FastAPI) -> dict[str, Any]:
                     content[PROBLEM_MEDIA_TYPE] = content.pop("application/json")
     # The route takes the body as a plain object (so errors come from our own sentences); the
     # document still describes job request v1, so a generated client builds it correctly.
-    request_schema = JobRequest.model_json_schema(ref_template="#/components/schemas/{model}")
-    schemas.update(request_schema.pop("$defs", {}))
-    schemas["JobRequest"] = request_schema
-    body = doc["paths"][JOBS_PATH]["post"]["requestBody"]
-    body["content"] = {"application/json": {"schema": {"$ref": "#/components/schemas/JobRequest"}}}
+    # The same for schedules: required fields in the document, so `{}` is not admitted there.
+    for path, model in ((JOBS_PATH, JobRequest), (SCHEDULES_PATH, ScheduleRequest)):
+        request_schema = model.model_json_schema(ref_template="#/components/schemas/{model}")
+        schemas.update(request_schema.pop("$defs", {}))
+        schemas[model.__name__] = request_schema
+        body = doc["paths"][path]["post"]["requestBody"]
+        ref = {"$ref": f"#/components/schemas/{model.__name__}"}
+        body["content"] = {"application/json": {"schema": ref}}
+    add_shared_statuses(doc)
     app.openapi_schema = doc
     return doc
 
@@ -122,5 +129,6 @@ def create_app(settings: Settings, *, local_workers: int | None = None) -> FastA
     app.include_router(analysis_router)
     app.include_router(reports_router)
     app.add_middleware(BodyCap, exempt=(UPLOAD_PATH,))
+    app.add_middleware(NoNulInUrl)
     app.openapi = lambda: _document(app)  # type: ignore[method-assign]
     return app

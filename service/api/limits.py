@@ -14,6 +14,9 @@ from starlette.types import ASGIApp, Message, Receive, Scope, Send
 from service.api.problems import problem_response
 
 JSON_BODY_LIMIT = 1 << 20
+# the largest integer SQL stores (a signed 64-bit BIGINT): offsets and keyset ids past it would
+# overflow the driver's conversion, so every list route bounds them with Query(le=...)
+MAX_SQL_INT = 2**63 - 1
 
 
 def _detail(limit: int) -> str:
@@ -53,3 +56,27 @@ class BodyCap:
             return message
 
         await self.app(scope, capped, send)
+
+
+class NoNulInUrl:
+    """Refuse a path or query string holding a NUL character (%00) with a 400 problem.
+
+    PostgreSQL's text columns cannot hold NUL, so an id or filter with one would fail inside the
+    driver as a 500; SQLite would take it. Refused here, both stores answer alike.
+    """
+
+    def __init__(self, app: ASGIApp) -> None:
+        self.app = app
+
+    async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
+        if scope["type"] == "http":
+            raw = scope.get("raw_path") or scope["path"].encode()
+            query = scope.get("query_string", b"")
+            if b"\x00" in raw or b"%00" in raw or b"%00" in query or b"\x00" in query:
+                detail = (
+                    "the address holds a NUL character (%00); remove it from the path and query."
+                )
+                response = problem_response(scope["path"].replace("\x00", ""), 400, detail)
+                await response(scope, receive, send)
+                return
+        await self.app(scope, receive, send)

@@ -12,6 +12,7 @@ from fastapi.exceptions import RequestValidationError
 from fastapi.responses import JSONResponse
 from pydantic import BaseModel, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
+from starlette.routing import Match
 
 from service.errors import BadInput, MissingScope
 from service.jobs.request import field_path
@@ -146,6 +147,20 @@ def _validation_problem(request: Request, exc: RequestValidationError) -> JSONRe
     return problem_response(request, 422, _sentence(first), field=field)
 
 
+_METHODS = ("DELETE", "GET", "HEAD", "PATCH", "POST", "PUT")
+
+
+def allowed_methods(request: Request) -> list[str]:
+    """Every method some route of the app answers on this request's path."""
+    # asked of the router itself (BaseRoute.matches), so routes of included routers count too
+    allowed = []
+    for method in _METHODS:
+        scope = {**request.scope, "method": method}
+        if any(route.matches(scope)[0] == Match.FULL for route in request.app.router.routes):
+            allowed.append(method)
+    return allowed
+
+
 def install_problem_handlers(app: FastAPI) -> None:
     """Register the handlers that turn every error into a problem document."""
 
@@ -158,7 +173,16 @@ def install_problem_handlers(app: FastAPI) -> None:
     async def on_http(request: Request, exc: Exception) -> JSONResponse:
         assert isinstance(exc, StarletteHTTPException)
         detail = exc.detail if isinstance(exc.detail, str) else HTTPStatus(exc.status_code).phrase
-        return problem_response(request, exc.status_code, detail, headers=exc.headers)
+        field = getattr(exc, "field", None)  # json_body.BodyProblem names the field
+        headers = dict(exc.headers or {})
+        if exc.status_code == 405:
+            # Starlette names the methods of the first route that matched the path only
+            allowed = allowed_methods(request)
+            headers["Allow"] = ", ".join(allowed)
+            detail = f"{request.method} is not a method of this path; use {' or '.join(allowed)}."
+        elif exc.status_code == 404 and detail == HTTPStatus.NOT_FOUND.phrase:
+            detail = "there is no route at this path; /openapi.json lists every route."
+        return problem_response(request, exc.status_code, detail, field=field, headers=headers)
 
     async def on_validation(request: Request, exc: Exception) -> JSONResponse:
         assert isinstance(exc, RequestValidationError)
@@ -172,7 +196,9 @@ def install_problem_handlers(app: FastAPI) -> None:
         return problem_response(request, 409, str(exc))
 
     async def on_not_found(request: Request, exc: Exception) -> JSONResponse:
-        return problem_response(request, 404, str(exc))
+        # one sentence that says what to do, the same for "missing" and "not yours"
+        detail = f"{str(exc).rstrip('.')}; check the id, and that your team may see it."
+        return problem_response(request, 404, detail)
 
     async def on_missing_scope(request: Request, exc: Exception) -> JSONResponse:
         return problem_response(request, 403, str(exc))

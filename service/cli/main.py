@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import json
+import os
+import signal
 import sys
 from pathlib import Path
 from typing import Annotated, Any
@@ -25,6 +27,10 @@ app = typer.Typer(
     pretty_exceptions_enable=False,
     add_completion=False,
 )
+# `foldwise select` stops within this many seconds of SIGTERM or Ctrl-C with --workers > 1:
+# the pool's processes get 2 s to go before they are killed (service/processes.py). With one
+# worker the fit in progress runs in this process and ends first.
+SELECT_STOP_GRACE = 5
 dataset_app = typer.Typer(help="Registered tables.", no_args_is_help=True)
 db_app = typer.Typer(help="The store's schema.", no_args_is_help=True)
 app.add_typer(dataset_app, name="dataset")
@@ -80,12 +86,19 @@ def select(
     workers: Annotated[int, typer.Option(help="Local worker processes.")] = 1,
 ) -> None:
     """Run a selection job here (embedded mode) and print its result."""
+    # SIGTERM stops a run as Ctrl-C does: the job is marked cancelled and the pool stopped
+    signal.signal(signal.SIGTERM, signal.default_int_handler)
     try:
         _select(_read_job_file(job_file), as_json=as_json, workers=workers, base_dir=Path.cwd())
     except BadInput as exc:
         refuse(exc)
     except KeyboardInterrupt:
-        fail("interrupted; the job is marked cancelled.")
+        stderr.print("failed: interrupted; the job is marked cancelled.", markup=False)
+        sys.stdout.flush()
+        sys.stderr.flush()
+        # The job is cancelled and the pool stopped; skip the interpreter's teardown of
+        # scikit-learn, pandas and pyarrow, which takes seconds, so a stop is prompt.
+        os._exit(1)
 
 
 @dataset_app.command("inspect")

@@ -2,14 +2,29 @@
 
 from __future__ import annotations
 
-from typing import Annotated
+import os
+import threading
+from types import FrameType
+from typing import TYPE_CHECKING, Annotated
 
 import typer
 from sqlalchemy.engine import make_url
 
-from service.cli.output import refuse
+from service.cli.output import refuse, stderr
 from service.config import Settings, load_settings
 from service.errors import BadInput
+
+if TYPE_CHECKING:
+    import uvicorn
+
+# After SIGTERM (or Ctrl-C) requests in flight get REQUEST_GRACE seconds to finish before
+# uvicorn cancels them; then the lifespan stops the local pool's processes (2 s each to go,
+# then killed) and hands their units back. A request thread that cannot be cancelled (a long
+# computation) must not keep the process alive: at EXIT_DEADLINE the process exits regardless,
+# and the pool's processes die with it. STOP_GRACE is the bound the deploy guide states.
+REQUEST_GRACE = 10
+EXIT_DEADLINE = 15
+STOP_GRACE = 20
 
 
 def embedded_store(settings: Settings) -> bool:
@@ -50,4 +65,32 @@ def serve(
     except BadInput as exc:
         refuse(exc)
     upgrade_if_embedded(settings)
-    uvicorn.run(app, host=host, port=port, log_level="info")
+    config = uvicorn.Config(
+        app, host=host, port=port, log_level="info", timeout_graceful_shutdown=REQUEST_GRACE
+    )
+    server_class = _bounded_shutdown(uvicorn.Server)
+    server_class(config).run()
+
+
+def _exit_now() -> None:
+    stderr.print(
+        f"foldwise serve: still running {EXIT_DEADLINE} s after the stop signal; exiting now",
+        markup=False,
+    )
+    os._exit(1)  # no interpreter shutdown: it would wait for the stuck request thread
+
+
+def _bounded_shutdown(base: type[uvicorn.Server]) -> type[uvicorn.Server]:
+    """uvicorn's server class, with a deadline on the whole shutdown."""
+
+    class BoundedShutdown(base):  # type: ignore[valid-type,misc]
+        """Starts the shutdown watchdog on the first stop signal."""
+
+        def handle_exit(self, sig: int, frame: FrameType | None) -> None:
+            if not self.should_exit:
+                watchdog = threading.Timer(EXIT_DEADLINE, _exit_now)
+                watchdog.daemon = True
+                watchdog.start()
+            super().handle_exit(sig, frame)
+
+    return BoundedShutdown

@@ -14,11 +14,8 @@ from sklearn.model_selection import ParameterGrid
 from service.cv.errors import SpecError
 from service.cv.estimators import check_params, estimator_class, has_random_state
 from service.cv.recipe_spec import split_params
-from service.cv.spec import FamilySpec, RangeSpec, SelectionSpec
-
-# A job fans out to outer k x inner k x candidates fits; past this many candidates a request is
-# almost surely a mistake (or a denial of service) and is refused before anything is stored.
-MAX_CANDIDATES = 2000
+from service.cv.size import check_search_space
+from service.cv.spec import RangeSpec, SelectionSpec
 
 # Estimators with a random_state but none given get this one, recorded in the candidate's
 # params, so that the same request always gives the same fold scores.
@@ -101,12 +98,6 @@ def _check_model_params(cls: Any, params: dict[str, Any], spec: SelectionSpec, f
         )
 
 
-def family_size(family: FamilySpec) -> int:
-    """How many points a family expands to, computed without expanding it."""
-    size = math.prod(len(v) for v in family.grid.values())
-    return size * (family.draws or 1)
-
-
 def draw_ranges(ranges: dict[str, RangeSpec], draws: int, seed: int) -> list[dict[str, Any]]:
     """`draws` points from the ranges, one seeded generator, keys in sorted order."""
     rng = np.random.default_rng(seed)
@@ -132,13 +123,7 @@ def enumerate_candidates(spec: SelectionSpec) -> list[Candidate]:
     Ranges are drawn and crossed with the grid (grid point outer, draw inner). A point that
     equals an earlier one is dropped: it would always tie with its twin and lose the tie.
     """
-    total = sum(family_size(f) for f in spec.families)
-    if total > MAX_CANDIDATES:
-        raise SpecError(
-            "families",
-            f"the search space has {total:,} candidates, more than the limit of "
-            f"{MAX_CANDIDATES:,}; use fewer grid values or draws.",
-        )
+    check_search_space(spec)
     out: list[Candidate] = []
     seen: set[str] = set()
     preprocess, inputs = key_parts(spec)

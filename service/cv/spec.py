@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Any, Literal
+from typing import Annotated, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
@@ -12,9 +12,22 @@ SplitMethod = Literal["kfold", "stratified_kfold", "group_kfold", "time_series"]
 Task = Literal["classification", "regression"]
 JsonValue = Any  # a value that came from JSON: checked against the estimator's own constraints
 
+# Bounds on every number and list that drives work or memory. The whole job's fits are capped
+# as well (size.py); these keep each field sensible on its own, so the sentence names it.
+MAX_FOLDS = 1_000  # k of one split plan (leave-one-out on up to 1,000 rows)
+MAX_REPEATS = 100
+MAX_GRID_VALUES = 2_000  # values of one hyperparameter; also the most draws (MAX_CANDIDATES)
+MAX_FAMILIES = 100
+MAX_PARAMS = 100  # hyperparameters named in one family's fixed, grid or ranges
+MAX_METRICS = 20
+MAX_FEATURES = 100_000
+MAX_NAME = 1_000  # characters of a column, estimator or metric name
+Name = Annotated[str, Field(min_length=1, max_length=MAX_NAME)]
+
 
 class _Strict(BaseModel):
-    model_config = ConfigDict(extra="forbid", frozen=True)
+    # allow_inf_nan=False: JSON has no NaN or Infinity, and a fold score cannot use them
+    model_config = ConfigDict(extra="forbid", frozen=True, allow_inf_nan=False)
 
 
 class RangeSpec(_Strict):
@@ -37,11 +50,13 @@ class RangeSpec(_Strict):
 class FamilySpec(_Strict):
     """One estimator type with fixed values, a grid and ranges; neither means one candidate."""
 
-    estimator: str
-    fixed: dict[str, JsonValue] = Field(default_factory=dict)
-    grid: dict[str, list[JsonValue]] = Field(default_factory=dict)
-    ranges: dict[str, RangeSpec] = Field(default_factory=dict)
-    draws: int | None = Field(default=None, ge=1)
+    estimator: Name
+    fixed: dict[Name, JsonValue] = Field(default_factory=dict, max_length=MAX_PARAMS)
+    grid: dict[Name, Annotated[list[JsonValue], Field(max_length=MAX_GRID_VALUES)]] = Field(
+        default_factory=dict, max_length=MAX_PARAMS
+    )
+    ranges: dict[Name, RangeSpec] = Field(default_factory=dict, max_length=MAX_PARAMS)
+    draws: int | None = Field(default=None, ge=1, le=MAX_GRID_VALUES)
     draw_seed: int = Field(default=0, ge=0, le=2**32 - 1)
 
     @model_validator(mode="after")
@@ -71,11 +86,11 @@ class SplitSpec(_Strict):
     """How rows are divided: method, k, repeats and seed (plus groups or order column)."""
 
     method: SplitMethod
-    k: int = 5
-    repeats: int = Field(default=1, ge=1)
+    k: int = Field(default=5, le=MAX_FOLDS)
+    repeats: int = Field(default=1, ge=1, le=MAX_REPEATS)
     seed: int | None = Field(default=None, ge=0, le=2**32 - 1)  # numpy's seed range
-    groups: str | None = None
-    order_by: str | None = None
+    groups: Name | None = None
+    order_by: Name | None = None
     # time_series only, as scikit-learn's TimeSeriesSplit takes them (see _time_options)
     gap: int = Field(default=0, ge=0)
     max_train_size: int | None = Field(default=None, ge=1)
@@ -125,15 +140,15 @@ def _time_options(plan: SplitSpec) -> None:
 class SelectionSpec(_Strict):
     """Everything the engine needs to run nested cross-validation on a table."""
 
-    target: str
-    features: list[str] | None = None
+    target: Name
+    features: list[Name] | None = Field(default=None, max_length=MAX_FEATURES)
     task: Task
-    families: list[FamilySpec] = Field(min_length=1)
+    families: list[FamilySpec] = Field(min_length=1, max_length=MAX_FAMILIES)
     preprocess: Literal["auto", "none"] | Recipe = "auto"
     outer: SplitSpec
     inner: SplitSpec
-    metrics: list[str] = Field(min_length=1)
-    pick_by: str | None = None
+    metrics: list[Name] = Field(min_length=1, max_length=MAX_METRICS)
+    pick_by: Name | None = None
     # a share of each outer training part (seeded, stratified for classification; subsample.py)
     train_fraction: float = Field(default=1.0, gt=0, le=1)
     subsample_seed: int = Field(default=0, ge=0, le=2**32 - 1)

@@ -105,6 +105,7 @@ def _read_parquet(path: Path, field: str) -> pd.DataFrame:
         with pq.ParquetFile(path) as parquet:
             # Names first: pyarrow's own error for a repeated name does not say what to fix.
             _check_unique(parquet.schema_arrow.names, path, field)
+            _check_flat(parquet.schema_arrow, path, field)
             table = parquet.read()
     except BadInput:
         raise
@@ -122,6 +123,18 @@ def _read_parquet(path: Path, field: str) -> pd.DataFrame:
             f"{path} holds column types foldwise cannot read ({_brief(exc)}); "
             "store numbers, text, booleans or timestamps.",
         ) from None
+
+
+def _check_flat(schema: pa.Schema, path: Path, field: str) -> None:
+    """Refuse list, struct and map columns: a model input is one value per row and column."""
+    for column in schema:
+        if pa.types.is_nested(column.type):
+            raise BadInput(
+                field,
+                f"{path} has a nested column {column.name!r} ({column.type}); foldwise reads one "
+                "number, text, boolean or timestamp per cell, so flatten it into plain columns "
+                "or drop it.",
+            )
 
 
 def _check_utf8_text(path: Path, field: str) -> None:

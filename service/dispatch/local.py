@@ -8,11 +8,12 @@ from __future__ import annotations
 
 import logging
 import multiprocessing
+import socket
 import threading
 from concurrent.futures import Future, ProcessPoolExecutor
 from typing import Any
 
-from sqlalchemy import select
+from sqlalchemy import select, update
 from threadpoolctl import threadpool_limits
 
 from service.config import Settings
@@ -21,16 +22,21 @@ from service.jobs.execute import UnitReport, worker_name
 from service.jobs.reconcile import reconcile
 from service.jobs.work import run_and_advance
 from service.notify.delivery import deliver_due
+from service.processes import die_with_parent, stop_pool
 from service.schedules.tick import tick_schedules
 from service.store.db import make_engine, make_session_factory
 from service.store.models import Job, WorkUnit
 
 log = logging.getLogger(__name__)
 _child: dict[str, Any] = {}
+# seconds a pool process has, after SIGTERM, to go before it is killed
+SHUTDOWN_GRACE = 2.0
 
 
 def _child_start(settings: Settings) -> None:
-    # a fresh process (forkserver): its own engine, one BLAS thread per process
+    # a fresh process (forkserver): its own engine, one BLAS thread per process; it dies with
+    # the fork server, which dies with the API process
+    die_with_parent()
     _child["limits"] = threadpool_limits(1)
     _child["sessions"] = make_session_factory(make_engine(settings.database_url))
     _child["settings"] = settings
@@ -110,6 +116,8 @@ class LocalPool:
                 lost = reconcile(self._sessions, self.settings).republish
                 with self._lock:
                     for unit_id in dict.fromkeys(self._queued() + lost):
+                        if self._stop.is_set():
+                            break
                         if unit_id in self._inflight:
                             continue
                         self._inflight.add(unit_id)
@@ -134,20 +142,52 @@ class LocalPool:
         def done(future: Future[UnitReport]) -> None:
             with self._lock:
                 self._inflight.discard(unit_id)
-            if future.exception() is not None:
+            # at shutdown the pool's processes are stopped on purpose (close, below)
+            if not self._stop.is_set() and future.exception() is not None:
                 log.error("unit %s crashed its process: %s", unit_id, future.exception())
             self._wake.set()
 
         return done
 
     def close(self) -> None:
-        """Stop polling and shut the pool down (running units finish first)."""
+        """Stop polling and stop the pool's processes now, handing their units back.
+
+        Units stop mid-fit rather than holding up the server's shutdown (a unit may run for
+        up to FOLDWISE_UNIT_TIME_LIMIT seconds); their claims go back to queued, so the next
+        start runs them again at once instead of waiting for their leases to run out.
+        """
         self._stop.set()
         self._wake.set()
-        self._thread.join(timeout=10)
-        self._ticker.join(timeout=10)
-        self._pool.shutdown(wait=True, cancel_futures=True)
+        with self._lock:
+            pass  # a tick handing out units finishes; every later one sees _stop
+        stopped = stop_pool(self._pool, grace=SHUTDOWN_GRACE)
+        self._release_claims(stopped)
+        # both threads are daemons and check _stop between ticks; a tick stuck in a slow
+        # webhook receiver is not waited for beyond this
+        self._thread.join(timeout=2)
+        self._ticker.join(timeout=2)
         self._engine.dispose()
+
+    def _release_claims(self, pids: list[int]) -> None:
+        """Put the units the stopped processes were running back in the queue."""
+        workers = [f"{socket.gethostname()}:{pid}" for pid in pids]
+        if not workers:
+            return
+        try:
+            with self._sessions.begin() as session:
+                session.execute(
+                    update(WorkUnit)
+                    .where(WorkUnit.status == "running", WorkUnit.worker.in_(workers))
+                    .values(
+                        status="queued",
+                        lease_until=None,
+                        worker=None,
+                        # a shutdown is not a failed attempt
+                        attempts=WorkUnit.attempts - 1,
+                    )
+                )
+        except Exception:  # their leases still run out, and the reconciler re-queues them
+            log.exception("could not hand back the units of the stopped pool processes")
 
 
 def _log_crash(what: str) -> Any:

@@ -26,7 +26,7 @@ from service.cv.plan import build_plan
 from service.cv.selection import describe_values
 from service.datasets.sources import LoadedTable
 from service.errors import BadInput
-from service.jobs.prepare import PreparedJob, prepare_job
+from service.jobs.prepare import PreparedJob, check_request_size, prepare_job
 from service.jobs.request import JobRequest, parse_job_request
 from service.jobs.submit import create_job
 from service.notify.outbox import queue_job_notice
@@ -111,6 +111,8 @@ def prepare_curve(
     if "sizes" not in data:
         raise BadInput("sizes", f"a learning curve needs sizes, {_EXAMPLE}.")
     sizes = check_sizes(data["sizes"])
+    # every size is a whole selection: the job's fits cap holds for all of them together
+    check_request_size(parse_job_request(_child_body(data, 1.0)), settings, sizes=len(sizes))
     # planned once at full size first, so a problem of the request itself keeps its own field
     whole = prepare_job(
         _child_body(data, 1.0), session=session, settings=settings, base_dir=base_dir, team=team

@@ -27,6 +27,7 @@ from service.jobs.embedded import (
 from service.jobs.plans import LoadedPlan, remember
 from service.jobs.reuse import start_if_settled
 from service.jobs.service import cancel_job
+from service.processes import stop_pool
 from service.store.db import make_engine, make_session_factory, upgrade_database
 from service.store.models import Job
 
@@ -96,7 +97,12 @@ def run_embedded_curve(
                 else None
             )
             with pool or nullcontext():
-                _drive_children(sessions, children, settings, pool, progress)
+                try:
+                    _drive_children(sessions, children, settings, pool, progress)
+                except BaseException:
+                    if pool is not None:
+                        stop_pool(pool)  # as embedded.run_embedded: stop the fits now
+                    raise
         except BaseException:
             with sessions.begin() as session:
                 cancel_job(session, session.get_one(Job, parent_id))

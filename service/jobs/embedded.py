@@ -26,6 +26,7 @@ from service.jobs.reuse import start_if_settled
 from service.jobs.service import cancel_job
 from service.jobs.submit import create_job
 from service.jobs.work import run_and_advance
+from service.processes import die_with_parent, stop_pool
 from service.store.db import dispose_after_fork, make_engine, make_session_factory, upgrade_database
 from service.store.models import Job, WorkUnit
 
@@ -49,6 +50,7 @@ _child: dict[str, Any] = {}
 
 
 def _child_start(engine: Engine, settings: Settings) -> None:
+    die_with_parent()  # a killed `foldwise select` takes its pool with it
     dispose_after_fork(engine)
     # one BLAS/OpenMP thread per process: two processes on two cores must not fight over them
     _child["limits"] = threadpool_limits(1)
@@ -151,7 +153,13 @@ def run_embedded(
                     initializer=_child_start,
                     initargs=(engine, settings),
                 ) as pool:
-                    _drive(sessions, job_id, settings, pool, total, progress)
+                    try:
+                        _drive(sessions, job_id, settings, pool, total, progress)
+                    except BaseException:
+                        # SIGTERM or Ctrl-C: stop the fits now rather than after the units
+                        # running in the pool finish (leaving the block would wait for them)
+                        stop_pool(pool)
+                        raise
             else:
                 _drive(sessions, job_id, settings, None, total, progress)
         except BaseException:

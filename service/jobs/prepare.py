@@ -12,6 +12,7 @@ from sqlalchemy.orm import Session
 from service.config import Settings
 from service.cv.errors import SpecError
 from service.cv.plan import SelectionPlan, build_plan
+from service.cv.size import check_job_size
 from service.datasets.sources import LoadedTable, load_table
 from service.datasets.sql_source import SqlAccess
 from service.datasets.store import read_table
@@ -44,11 +45,20 @@ def _registered(session: Session, content_hash: str, settings: Settings) -> Load
     return LoadedTable(frame, kinds, content_hash, dict(dataset.origin))
 
 
+def check_request_size(request: JobRequest, settings: Settings, *, sizes: int = 1) -> None:
+    """Refuse a request past the job fits cap, before its table is loaded or planned."""
+    try:
+        check_job_size(request, max_fits=settings.max_job_fits, sizes=sizes)
+    except SpecError as exc:
+        raise BadInput(exc.field, exc.message) from None
+
+
 def prepare_job(
     data: Any, *, session: Session, settings: Settings, base_dir: Path, team: str | None = None
 ) -> PreparedJob:
     """Parse, load and plan a job request for `team` (None: the local command line)."""
     request = parse_job_request(data)
+    check_request_size(request, settings)
     if isinstance(request.dataset, str):
         table = _registered(session, request.dataset, settings)
     else:

@@ -10,6 +10,7 @@ from pydantic import Field, StrictBool, ValidationError
 from service.cv.spec import SelectionSpec
 from service.datasets.sources import DatasetSource
 from service.errors import BadInput
+from service.json_values import check_json_values
 
 
 class JobRequest(SelectionSpec):
@@ -79,6 +80,7 @@ def parse_job_request(data: Any) -> JobRequest:
     """Validate a decoded JSON body as job request v1; raises BadInput."""
     if not isinstance(data, dict):
         raise BadInput("request", "a job request must be a JSON object; see the README example.")
+    check_json_values(data)
     try:
         return JobRequest.model_validate(data)
     except ValidationError as exc:

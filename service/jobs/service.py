@@ -22,6 +22,7 @@ from service.datasets.sources import check_table_size
 from service.errors import NotFound as NotFound  # re-exported: callers catch it from here
 from service.errors import not_visible
 from service.jobs.curves import create_submission, prepare_submission
+from service.json_values import check_json_values
 from service.notify.outbox import queue_job_notice
 from service.notify.targets import check_webhook_target
 from service.store.db import utcnow
@@ -65,6 +66,7 @@ def submit_job(
 ) -> Submitted:
     """Validate and store a job for the principal's team (BadInput leaves nothing behind)."""
     authorize(principal, Action.SUBMIT)
+    check_json_values(data)  # NaN or Infinity is the caller's to fix, not a hashing crash
     body_hash = request_hash(data)
     if idempotency_key is not None:
         # keys are the team's own: another team's use of the same key is none of its business

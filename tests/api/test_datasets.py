@@ -9,6 +9,8 @@ from typing import Any
 
 import httpx
 import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
 import pytest
 
 from .conftest import MAX_COLUMNS
@@ -80,9 +82,17 @@ def _csv_bytes(n_columns: int, n_rows: int = 3) -> bytes:
     return ("\n".join([header, *rows]) + "\n").encode()
 
 
+def _nested_parquet_bytes() -> bytes:
+    buffer = io.BytesIO()
+    table = pa.table([pa.array([1.0, 2.0]), pa.array([[1, 2], [3]])], names=["a", "readings"])
+    pq.write_table(table, buffer)
+    return buffer.getvalue()
+
+
 BAD_UPLOADS = [
     ("junk bytes", "table.csv", os.urandom(4096) + b"\x00", 422),
     ("junk parquet", "table.parquet", b"PAR1 this is not parquet PAR1", 422),
+    ("nested parquet column", "table.parquet", _nested_parquet_bytes(), 422),
     ("header only", "table.csv", b"a,b,c\n", 422),
     ("empty file", "table.csv", b"", 422),
     ("ragged rows", "table.csv", b"a,b\n1,2\n3,4,5,6\n", 422),

@@ -211,10 +211,17 @@ CASES = [
     ),
     # Beyond the first catalogue: values that pass scikit-learn's constraints but are not JSON
     # (a store key is the candidate's canonical JSON), and seeds numpy cannot take.
-    Case("infinite-hyperparameter", "families[0].grid.C", family(grid={"C": [float("inf")]})),
+    # non-finite numbers are refused before anything reads them, naming the exact place
+    Case("infinite-hyperparameter", "families[0].grid.C[0]", family(grid={"C": [float("inf")]})),
+    Case(
+        "minus-infinity-fixed-value",
+        "families[0].fixed.tol",
+        family(fixed={"max_iter": 500, "tol": float("-inf")}),
+        contains=("-Infinity",),
+    ),
     Case(
         "nan-inside-dict-hyperparameter",
-        "families[1].fixed.metric_params",
+        "families[1].fixed.metric_params.p",
         lambda r: r["families"][1].update(fixed={"metric_params": {"p": float("nan")}}),
     ),
     Case("seed-too-large", "outer.seed", split("outer", seed=2**33)),
@@ -289,6 +296,25 @@ CASES = [
         contains=("KNeighborsClassifier",),
         files={"weighted.csv": with_column("w", ["1"] * N_ROWS)},
     ),
+    # bounds on what drives work: refused from the numbers alone, before any fold is built
+    Case(
+        "a-million-repeats",
+        "outer.repeats",
+        split("outer", repeats=1_000_000),
+        contains=("100", "1000000"),
+    ),
+    Case("k-past-the-cap", "outer.k", split("outer", k=5_000), contains=("1000",)),
+    # 10 x 100 outer folds x (2 inner folds x 102 candidates + 1) + (2 x 102 + 1) = 205,205
+    Case(
+        "job-past-the-fits-cap",
+        "outer.repeats",
+        lambda r: (
+            r["outer"].update(k=10, repeats=100),
+            r["families"][0]["grid"].update(C=[0.01 * (i + 1) for i in range(100)]),
+        ),
+        contains=("205,205 fits", "at most 200,000", "reduce outer.repeats"),
+    ),
+    Case("target-name-too-long", "target", top(target="t" * 5_000), contains=("1000",)),
 ]
 CASE_IDS = [c.id for c in CASES]
 assert len(set(CASE_IDS)) == len(CASE_IDS), "case ids must be unique"

@@ -86,6 +86,22 @@ def _duplicate_parquet_columns(d: Path) -> Path:
     return d / "dup.parquet"
 
 
+def _nested_parquet(kind: str) -> Callable[[Path], Path]:
+    """A Parquet file whose column `readings` is a list, struct or map column."""
+    nested = {
+        "list": pa.array([[1, 2], [3]]),
+        "struct": pa.array([{"lo": 1, "hi": 2}, {"lo": 3, "hi": 4}]),
+        "map": pa.array([[("a", 1)], [("b", 2)]], type=pa.map_(pa.string(), pa.int64())),
+    }[kind]
+
+    def make(d: Path) -> Path:
+        table = pa.table([pa.array([1.0, 2.0]), nested], names=["pressure", "readings"])
+        pq.write_table(table, d / f"{kind}.parquet")
+        return d / f"{kind}.parquet"
+
+    return make
+
+
 def _bad_gzip(d: Path) -> Path:
     (d / "bad.csv.gz").write_bytes(b"\x1f\x8b\x08\x00truncated")
     return d / "bad.csv.gz"
@@ -113,6 +129,9 @@ BAD_FILES: dict[str, tuple[Callable[[Path], Path], str]] = {
     "junk Parquet": (_junk_parquet, "not a readable Parquet file"),
     "zero-row Parquet": (_zero_row_parquet, "no rows"),
     "duplicate Parquet columns": (_duplicate_parquet_columns, "repeated column names (x)"),
+    "list Parquet column": (_nested_parquet("list"), "nested column 'readings' (list<"),
+    "struct Parquet column": (_nested_parquet("struct"), "nested column 'readings' (struct<"),
+    "map Parquet column": (_nested_parquet("map"), "nested column 'readings' (map<"),
     "bad gzip": (_bad_gzip, "could not be read"),
     "gzipped binary": (_gzip_of_binary, "binary"),
 }

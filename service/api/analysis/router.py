@@ -22,6 +22,8 @@ from service.api.jobs.export import public_scores
 from service.api.jobs.router import AllMetrics
 from service.api.jobs.router import _summary as job_summary  # one listing shape for jobs
 from service.api.jobs.schemas import FoldScorePage, JobList
+from service.api.json_body import StrictJsonRoute
+from service.api.limits import MAX_SQL_INT
 from service.api.problems import problem_responses
 from service.auth import Principal
 from service.errors import BadInput
@@ -29,7 +31,7 @@ from service.jobs import service
 from service.jobs.fold_rows import fold_context
 from service.store.models import FoldScore, Job
 
-router = APIRouter(tags=["analysis"])
+router = APIRouter(tags=["analysis"], route_class=StrictJsonRoute)
 
 ContentHash = Annotated[
     str, Path(pattern=r"^[0-9a-f]{64}$", description="sha256 hex of the canonical table.")
@@ -56,7 +58,7 @@ def list_dataset_jobs(
     principal: ReaderDep,
     session: SessionDep,
     limit: Annotated[int, Query(ge=1, le=200)] = 50,
-    offset: Annotated[int, Query(ge=0)] = 0,
+    offset: Annotated[int, Query(ge=0, le=MAX_SQL_INT)] = 0,
 ) -> JobList:
     """The caller's team's jobs on the table (an analyst's: every team's) with the count."""
     jobs, count = queries.dataset_jobs(session, principal, content_hash, limit=limit, offset=offset)
@@ -76,7 +78,9 @@ def list_dataset_fold_scores(
     candidate_key: CandidateFilter = None,
     metric: MetricFilter = None,
     role: RoleFilter = None,
-    after: Annotated[int, Query(ge=0, description="Return scores with id greater than this.")] = 0,
+    after: Annotated[
+        int, Query(ge=0, le=MAX_SQL_INT, description="Return scores with id greater than this.")
+    ] = 0,
     limit: Annotated[int, Query(ge=1, le=queries.MAX_PAGE)] = 100,
 ) -> FoldScorePage:
     """Scores on the folds and candidates of the visible jobs on the table, in id order."""

@@ -10,6 +10,7 @@ from sqlalchemy.orm import Session
 
 from service.api.audit.schemas import AuditPublic, Provenance
 from service.api.deps import AuditorDep, DispatcherDep, ReaderDep, SessionDep
+from service.api.json_body import StrictJsonRoute
 from service.api.problems import problem_responses
 from service.auth import Action, Principal, authorize
 from service.errors import not_visible
@@ -20,7 +21,7 @@ from service.jobs.service import foreign_job_ids
 from service.store.models import Audit
 
 log = logging.getLogger(__name__)
-router = APIRouter(prefix="/v1", tags=["audits"])
+router = APIRouter(prefix="/v1", tags=["audits"], route_class=StrictJsonRoute)
 
 JobId = Annotated[str, Path(max_length=64, description="The job's id.")]
 AuditId = Annotated[str, Path(max_length=64, description="The audit's id.")]
@@ -55,7 +56,7 @@ def _shown(session: Session, principal: Principal, audit: Audit) -> AuditPublic:
     response_model=AuditPublic,
     status_code=202,
     summary="Recompute a sample (or all) of a succeeded job's units and compare with the store",
-    responses=problem_responses(401, 403, 404, 422),
+    responses=problem_responses(400, 401, 403, 404, 413, 422),
 )
 def start_audit(
     job_id: JobId,

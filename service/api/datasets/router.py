@@ -7,6 +7,7 @@ from typing import Annotated
 from fastapi import APIRouter, Body, Path, Query, Request, Response
 from sqlalchemy.orm import Session
 from starlette.concurrency import run_in_threadpool
+from starlette.convertors import StringConvertor, register_url_convertor
 
 from service.api.datasets import service
 from service.api.datasets.schemas import (
@@ -18,6 +19,8 @@ from service.api.datasets.schemas import (
 )
 from service.api.datasets.upload import UPLOAD_FIELD, SpooledUpload, spool_upload
 from service.api.deps import ReaderDep, SessionDep, SettingsDep, SubmitterDep
+from service.api.json_body import StrictJsonRoute
+from service.api.limits import MAX_SQL_INT
 from service.api.problems import problem_responses
 from service.auth import Principal
 from service.config import Settings
@@ -26,7 +29,19 @@ from service.datasets.sources import table_from_frame
 from service.errors import BadInput
 from service.store.models import Dataset, DatasetRegistration
 
-router = APIRouter(prefix="/v1/datasets", tags=["datasets"])
+router = APIRouter(prefix="/v1/datasets", tags=["datasets"], route_class=StrictJsonRoute)
+
+
+class NotUploadConvertor(StringConvertor):
+    """A path segment other than `upload`, so `GET /v1/datasets/upload` is a 405, not a 422.
+
+    Other non-hashes still reach the route and get its 422 naming `content_hash`.
+    """
+
+    regex = "(?!upload$)[^/]+"
+
+
+register_url_convertor("not_upload", NotUploadConvertor())
 
 ContentHash = Annotated[
     str, Path(pattern=r"^[0-9a-f]{64}$", description="sha256 hex of the canonical table.")
@@ -165,7 +180,7 @@ async def upload_dataset(
 
 
 @router.get(
-    "/{content_hash}",
+    "/{content_hash:not_upload}",
     response_model=DatasetPublic,
     summary="Get a registered table by its content hash",
     responses=problem_responses(401, 403, 404, 422),
@@ -188,7 +203,7 @@ def list_datasets(
     principal: ReaderDep,
     session: SessionDep,
     limit: Annotated[int, Query(ge=1, le=200)] = 50,
-    offset: Annotated[int, Query(ge=0)] = 0,
+    offset: Annotated[int, Query(ge=0, le=MAX_SQL_INT)] = 0,
 ) -> DatasetList:
     """Newest first, with the total count."""
     rows, count = service.list_datasets(session, principal, limit=limit, offset=offset)

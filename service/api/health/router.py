@@ -15,10 +15,11 @@ from sqlalchemy import text
 
 from service.api.deps import SessionsDep, SettingsDep
 from service.api.health.metrics import CONTENT_TYPE, render_metrics
+from service.api.json_body import StrictJsonRoute
 from service.api.problems import ProblemError, problem_responses
 
 log = logging.getLogger(__name__)
-router = APIRouter(tags=["health"])
+router = APIRouter(tags=["health"], route_class=StrictJsonRoute)
 BROKER_TIMEOUT_SECONDS = 2.0
 
 

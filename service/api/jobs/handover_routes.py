@@ -18,6 +18,8 @@ from pydantic import BaseModel, ConfigDict
 from service.analysis import predictions
 from service.api.deps import ReaderDep, SessionDep, SessionsDep, SettingsDep
 from service.api.jobs.router import JobId
+from service.api.json_body import StrictJsonRoute
+from service.api.limits import MAX_SQL_INT
 from service.api.problems import ProblemError, problem_responses
 from service.jobs import model_file, service
 from service.jobs.model_card import card_markdown, model_card
@@ -25,7 +27,7 @@ from service.jobs.outer_predictions import NotReady, require_result
 from service.jobs.plans import plan_for_job
 from service.store.models import FinalModel, Job
 
-router = APIRouter(prefix="/v1/jobs", tags=["handover"])
+router = APIRouter(prefix="/v1/jobs", tags=["handover"], route_class=StrictJsonRoute)
 SHA_HEADER = "X-Model-Sha256"
 UNTRUSTED_HEADER = "X-Model-Untrusted-Types"
 _ANSWERS = problem_responses(401, 403, 404, 409, 422)
@@ -160,7 +162,9 @@ def list_predictions(
     principal: ReaderDep,
     session: SessionDep,
     settings: SettingsDep,
-    after: Annotated[int, Query(ge=0, description="Rows already read (0 to start).")] = 0,
+    after: Annotated[
+        int, Query(ge=0, le=MAX_SQL_INT, description="Rows already read (0 to start).")
+    ] = 0,
     limit: Annotated[int, Query(ge=1, le=predictions.MAX_PAGE)] = 1000,
 ) -> PredictionPage:
     """Per outer test row: row index, repeat, fold, pick, actual, predicted, probabilities."""

@@ -31,6 +31,8 @@ from service.api.jobs.schemas import (
     JobStatus,
     JobSummary,
 )
+from service.api.json_body import StrictJsonRoute
+from service.api.limits import MAX_SQL_INT
 from service.api.problems import problem_responses
 from service.auth import Action, Principal
 from service.dispatch.base import mark_published
@@ -42,7 +44,7 @@ from service.jobs.reuse import start_if_settled
 from service.store.models import Job
 
 log = logging.getLogger(__name__)
-router = APIRouter(prefix="/v1/jobs", tags=["jobs"])
+router = APIRouter(prefix="/v1/jobs", tags=["jobs"], route_class=StrictJsonRoute)
 
 JobId = Annotated[str, Path(max_length=64, description="The job's id.")]
 IdempotencyKey = Annotated[
@@ -219,7 +221,7 @@ def list_jobs(
     ] = None,
     schedule_id: Annotated[str | None, Query(max_length=32)] = None,
     limit: Annotated[int, Query(ge=1, le=200)] = 50,
-    offset: Annotated[int, Query(ge=0)] = 0,
+    offset: Annotated[int, Query(ge=0, le=MAX_SQL_INT)] = 0,
 ) -> JobList:
     """The caller's team's jobs (an analyst's: every team's) with the total count."""
     jobs, count = service.list_jobs(
@@ -264,7 +266,9 @@ def list_fold_scores(
     job_id: JobId,
     principal: ReaderDep,
     session: SessionDep,
-    after: Annotated[int, Query(ge=0, description="Return scores with id greater than this.")] = 0,
+    after: Annotated[
+        int, Query(ge=0, le=MAX_SQL_INT, description="Return scores with id greater than this.")
+    ] = 0,
     limit: Annotated[int, Query(ge=1, le=1000)] = 100,
     all_metrics: AllMetrics = False,
 ) -> FoldScorePage:

@@ -15,6 +15,8 @@ from service.api.deps import (
     SessionsDep,
     SettingsDep,
 )
+from service.api.json_body import StrictJsonRoute
+from service.api.limits import MAX_SQL_INT
 from service.api.problems import problem_responses
 from service.api.schedules.schemas import (
     RefreshList,
@@ -30,7 +32,7 @@ from service.schedules.tick import trigger_refresh
 from service.store.models import Refresh, Schedule
 
 log = logging.getLogger(__name__)
-router = APIRouter(prefix="/v1/schedules", tags=["schedules"])
+router = APIRouter(prefix="/v1/schedules", tags=["schedules"], route_class=StrictJsonRoute)
 
 ScheduleId = Annotated[str, Path(max_length=64, description="The schedule's id.")]
 
@@ -94,7 +96,7 @@ def list_schedules(
     principal: ReaderDep,
     session: SessionDep,
     limit: Annotated[int, Query(ge=1, le=200)] = 50,
-    offset: Annotated[int, Query(ge=0)] = 0,
+    offset: Annotated[int, Query(ge=0, le=MAX_SQL_INT)] = 0,
 ) -> ScheduleList:
     """The caller's team's schedules (an analyst's: every team's)."""
     rows, count = service.list_schedules(session, principal, limit=limit, offset=offset)
@@ -125,7 +127,7 @@ def list_refreshes(
     principal: ReaderDep,
     session: SessionDep,
     limit: Annotated[int, Query(ge=1, le=200)] = 50,
-    offset: Annotated[int, Query(ge=0)] = 0,
+    offset: Annotated[int, Query(ge=0, le=MAX_SQL_INT)] = 0,
 ) -> RefreshList:
     """Each with its status, job and comparison."""
     schedule = service.get_schedule(session, schedule_id, principal)
