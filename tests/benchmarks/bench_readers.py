@@ -28,12 +28,12 @@ import psycopg
 import redis
 
 REPO = Path(__file__).resolve().parents[2]
-sys.path[:0] = [str(REPO)]
+sys.path[:0] = [str(REPO), str(REPO / "tests")]  # the tests import their helpers as api.*
 
-from tests.api.load import run_readers  # noqa: E402
-from tests.api.server import Server, running_server  # noqa: E402
-from tests.distributed.stack import Stack  # noqa: E402
-from tests.distributed.test_readers_under_load import _finished_job  # noqa: E402
+from api.load import run_readers  # noqa: E402
+from api.server import Server, running_server  # noqa: E402
+from distributed.stack import Stack  # noqa: E402
+from distributed.test_readers_under_load import _finished_job  # noqa: E402
 
 PG_ADMIN = "host=127.0.0.1 port=5432 user=postgres dbname=postgres"
 PG_URL = "postgresql+psycopg://postgres@127.0.0.1:5432"

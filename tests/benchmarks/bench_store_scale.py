@@ -119,7 +119,7 @@ def _column_expr(table: str, column: str, offsets: dict[str, int], dataset: str)
     return f"t.{column}"
 
 
-def _clone(session: Session, first: int, last: int, n: int, dataset: str) -> None:
+def _clone(session: Connection, first: int, last: int, n: int, dataset: str) -> None:
     """Clones first..last of every job row in the store's template job, for `dataset`."""
     offsets = {
         name: int(
@@ -146,14 +146,21 @@ def fill(engine: Engine, scale: float, home: Path, url: str) -> tuple[str, int]:
     settings = load_settings({"FOLDWISE_HOME": str(home), "FOLDWISE_DATABASE_URL": url})
     started = time.monotonic()
     outcome = run_embedded(TEMPLATE_REQUEST, settings=settings, workers=2, base_dir=REPO)
-    sessions = make_session_factory(engine)
-    with sessions.begin() as session:
-        template = session.get_one(Job, outcome.job_id)
+    # One connection throughout: the template rows sit in its temporary tables.
+    with engine.connect() as session:
+        template = session.execute(select(Job).where(Job.id == outcome.job_id)).one()
         busy = template.dataset_hash
         per_job = session.scalar(select(func.count()).where(FoldScore.job_id == template.id))
         print(f"template job: {per_job} fold scores, {time.monotonic() - started:.0f} s")
         session.execute(text("UPDATE job SET team = :team"), {"team": TEAM})
-        session.execute(text("UPDATE dataset_registration SET team = :team"), {"team": TEAM})
+        # run_embedded (the command line's path) registers no team; the API would have
+        session.execute(
+            text(
+                "INSERT INTO dataset_registration (team, content_hash, created_at) "
+                "VALUES (:team, :hash, now()) ON CONFLICT DO NOTHING"
+            ),
+            {"team": TEAM, "hash": busy},
+        )
         for table in (*JOB_TABLES, "dataset"):
             session.execute(
                 text(
@@ -201,6 +208,7 @@ def fill(engine: Engine, scale: float, home: Path, url: str) -> tuple[str, int]:
                     f"(SELECT max(id) FROM {name}))"
                 )
             )
+        session.commit()
     with engine.connect().execution_options(isolation_level="AUTOCOMMIT") as connection:
         connection.execute(text("VACUUM ANALYZE"))
     return busy, n_busy

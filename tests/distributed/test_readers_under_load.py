@@ -17,9 +17,8 @@ from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
-
-from tests.api.load import LoadReport, run_readers
-from tests.api.server import IRIS_REQUEST, Server, running_server
+from api.load import LoadReport, run_readers
+from api.server import IRIS_REQUEST, Server, running_server
 
 from .stack import REPO, Stack
 
