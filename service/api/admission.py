@@ -22,7 +22,7 @@ from starlette.types import ASGIApp, Receive, Scope, Send
 from service.api.problems import problem_response
 from service.errors import BadInput
 
-DEFAULT_THREADS = 8
+DEFAULT_THREADS = 4
 QUEUE_WAIT_SECONDS = 2.0
 RETRY_AFTER_SECONDS = 1
 # Paths that never queue: they touch no shared resource, or have a limiter of their own.
@@ -30,7 +30,7 @@ UNBOUNDED_PREFIXES = ("/healthz", "/readyz", "/problems/", "/reports/static/")
 
 
 def api_threads_from_env(env: dict[str, str] | None = None) -> int:
-    """FOLDWISE_API_THREADS: requests served at once per API process (default 8)."""
+    """FOLDWISE_API_THREADS: requests served at once per API process (default 4)."""
     raw = (os.environ if env is None else env).get("FOLDWISE_API_THREADS") or str(DEFAULT_THREADS)
     if not raw.isdigit() or not 1 <= int(raw) <= 256:
         raise BadInput(
