@@ -5,15 +5,17 @@ Each reader asks in turn for GET /v1/jobs/{id} and a page of its fold scores
 with Retry-After is back-pressure, not an error: the reader waits the seconds it names and asks
 again, and the 429 is counted apart. Anything else but a 200 (another status, a transport error,
 no answer within REQUEST_TIMEOUT) is an error. A prober asks /healthz every PROBE_EVERY seconds
-throughout; an answer later than a second counts as a missed probe.
+throughout, from a process of its own; an answer later than a second counts as a missed probe.
 """
 
 from __future__ import annotations
 
 import asyncio
+import multiprocessing
 import statistics
 import time
 from dataclasses import dataclass, field
+from typing import Any
 
 import httpx
 
@@ -83,20 +85,21 @@ async def _reader(
         turn += 1
 
 
-async def _prober(base_url: str, stop_at: float, report: LoadReport) -> None:
-    async with httpx.AsyncClient(base_url=base_url, timeout=PROBE_DEADLINE) as client:
+def _probe_loop(base_url: str, seconds: float, answers: Any) -> None:
+    """Ask /healthz every PROBE_EVERY s for `seconds`; send back (latency, ok) pairs."""
+    stop_at = time.monotonic() + seconds
+    found: list[tuple[float, bool]] = []
+    with httpx.Client(base_url=base_url, timeout=PROBE_DEADLINE) as client:
         while time.monotonic() < stop_at:
             started = time.monotonic()
             try:
-                answer = await client.get("/healthz")
-                ok = answer.status_code == 200
+                ok = client.get("/healthz").status_code == 200
             except httpx.HTTPError:
                 ok = False
             elapsed = time.monotonic() - started
-            report.probes.append(elapsed)
-            if not ok or elapsed > PROBE_DEADLINE:
-                report.missed_probes += 1
-            await asyncio.sleep(max(0.0, PROBE_EVERY - elapsed))
+            found.append((elapsed, ok))
+            time.sleep(max(0.0, PROBE_EVERY - elapsed))
+    answers.put(found)
 
 
 async def _recovery(base_url: str, token: str, path: str, limit: float = 60.0) -> float:
@@ -121,16 +124,22 @@ async def _run(base_url: str, token: str, job_id: str, readers: int, seconds: fl
     paths = (f"/v1/jobs/{job_id}", f"/v1/jobs/{job_id}/fold-scores?limit=100")
     limits = httpx.Limits(max_connections=readers, max_keepalive_connections=readers)
     stop_at = time.monotonic() + seconds
+    # The prober is a process of its own: the readers' event loop is busy, and a probe timed
+    # on it would measure the load generator's own delay, not the server's.
+    answers: Any = multiprocessing.Queue()
+    prober = multiprocessing.Process(target=_probe_loop, args=(base_url, seconds, answers))
+    prober.start()
     async with httpx.AsyncClient(
         base_url=base_url,
         headers={"Authorization": f"Bearer {token}"},
         timeout=REQUEST_TIMEOUT,
         limits=limits,
     ) as client:
-        await asyncio.gather(
-            _prober(base_url, stop_at, report),
-            *(_reader(client, paths, stop_at, report) for _ in range(readers)),
-        )
+        await asyncio.gather(*(_reader(client, paths, stop_at, report) for _ in range(readers)))
+    found = answers.get(timeout=REQUEST_TIMEOUT + seconds)
+    prober.join(timeout=REQUEST_TIMEOUT)
+    report.probes = [elapsed for elapsed, _ in found]
+    report.missed_probes = sum(1 for e, ok in found if not ok or e > PROBE_DEADLINE)
     report.recovery_seconds = await _recovery(base_url, token, paths[0])
     return report
 
