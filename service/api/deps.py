@@ -25,9 +25,15 @@ def get_settings(request: Request) -> Settings:
     return settings
 
 
+# Methods that only read: their sessions begin deferred on SQLite and take no write lock.
+READ_METHODS = frozenset({"GET", "HEAD"})
+
+
 def get_sessions(request: Request) -> sessionmaker[Session]:
-    """The session factory the lifespan opened (for work that needs its own short sessions)."""
-    sessions: sessionmaker[Session] = request.app.state.sessions
+    """The session factory for this request: reading ones for GET and HEAD, writing ones else."""
+    state = request.app.state
+    reads = request.method in READ_METHODS and hasattr(state, "read_sessions")
+    sessions: sessionmaker[Session] = state.read_sessions if reads else state.sessions
     return sessions
 
 
@@ -61,7 +67,7 @@ _CHALLENGE = {"WWW-Authenticate": "Bearer"}
 
 
 def get_principal(
-    sessions: SessionsDep,
+    request: Request,
     credentials: Annotated[HTTPAuthorizationCredentials | None, Depends(_bearer)],
 ) -> Principal:
     """The caller behind the bearer token; a 401 problem without one or with a bad one."""
@@ -71,9 +77,9 @@ def get_principal(
             "send an Authorization: Bearer <token> header; `foldwise token create` makes one.",
             headers=_CHALLENGE,
         )
-    # A short session of its own: on SQLite every transaction takes the write lock, so the
-    # request's session should not begin until the handler needs it.
-    with sessions() as session:
+    # A short session of its own, reading only (it begins deferred on SQLite whatever the method),
+    # so checking a token never waits for the write lock.
+    with request.app.state.read_sessions() as session:
         principal = authenticate(session, credentials.credentials)
     if principal is None:
         raise ProblemError(

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import logging
 from collections.abc import Mapping
+from dataclasses import dataclass
 from http import HTTPStatus
 from typing import Any
 
@@ -21,20 +22,97 @@ from service.jobs.service import Conflict, NotFound
 log = logging.getLogger(__name__)
 
 PROBLEM_MEDIA_TYPE = "application/problem+json"
-PROBLEM_BASE = "https://foldwise.dev/problems/"
+# Relative references (RFC 9457 section 3.1.1: resolved against the response's own URI), so each
+# type names a page this very server serves (service/api/problem_pages.py), behind any host name.
+PROBLEM_BASE = "/problems/"
+
+
+@dataclass(frozen=True)
+class ProblemType:
+    """One kind of problem: its page's slug, the status it comes with, and what to do about it."""
+
+    slug: str
+    status: int
+    title: str
+    explanation: str
+
+    @property
+    def uri(self) -> str:
+        """The `type` URI of problem documents of this kind."""
+        return PROBLEM_BASE + self.slug
+
 
 # One problem type per way a request can go wrong; clients branch on `type`, people read `detail`.
-_TYPES: dict[int, tuple[str, str]] = {
-    400: ("unreadable-body", "The request body could not be read"),
-    401: ("unauthenticated", "A valid bearer token is required"),
-    403: ("forbidden", "The token lacks the scope this route needs"),
-    404: ("not-found", "No such resource"),
-    409: ("conflict", "The request conflicts with stored state"),
-    413: ("too-large", "The request is larger than this server accepts"),
-    422: ("bad-input", "The request has a field to fix"),
-    500: ("internal", "The server failed to handle the request"),
-    503: ("unavailable", "A service this server depends on is unreachable"),
-}
+PROBLEM_TYPES: tuple[ProblemType, ...] = (
+    ProblemType(
+        "unreadable-body",
+        400,
+        "The request body could not be read",
+        "The body is not valid JSON. Send one JSON object with Content-Type: application/json.",
+    ),
+    ProblemType(
+        "unauthenticated",
+        401,
+        "A valid bearer token is required",
+        "Send an Authorization: Bearer header with a token from `foldwise token create`; an "
+        "unknown or revoked token is refused the same way.",
+    ),
+    ProblemType(
+        "forbidden",
+        403,
+        "The token lacks the scope this route needs",
+        "The token is valid but its scopes do not cover this route; `detail` names the scope "
+        "needed. Ask an administrator for a token that has it.",
+    ),
+    ProblemType(
+        "not-found",
+        404,
+        "No such resource",
+        "No job, dataset, schedule or page with that id is visible to this token. Check the id.",
+    ),
+    ProblemType(
+        "conflict",
+        409,
+        "The request conflicts with stored state",
+        "The resource is not in a state that allows this request (for example cancelling a "
+        "finished job); `detail` says which state it is in.",
+    ),
+    ProblemType(
+        "too-large",
+        413,
+        "The request is larger than this server accepts",
+        "The body exceeds the server's cap. Job requests are small JSON objects; tables go to "
+        "/v1/datasets/upload, which has its own cap (FOLDWISE_MAX_UPLOAD_MB).",
+    ),
+    ProblemType(
+        "bad-input",
+        422,
+        "The request has a field to fix",
+        "A field of the request is missing or not valid; `field` names it and `detail` says "
+        "what to change. Nothing of the request was stored.",
+    ),
+    ProblemType(
+        "busy",
+        429,
+        "The server is at its limit of concurrent requests",
+        "Too many heavy requests are in flight at once. Nothing was done; wait the seconds the "
+        "Retry-After header gives and send the same request again.",
+    ),
+    ProblemType(
+        "internal",
+        500,
+        "The server failed to handle the request",
+        "An unexpected error; it is in the server's log. Try again later, and report it if it "
+        "persists.",
+    ),
+    ProblemType(
+        "unavailable",
+        503,
+        "A service this server depends on is unreachable",
+        "The database or the broker does not answer; `detail` names which. Try again later.",
+    ),
+)
+_BY_STATUS: dict[int, ProblemType] = {kind.status: kind for kind in PROBLEM_TYPES}
 
 
 class Problem(BaseModel):
@@ -68,9 +146,9 @@ class ProblemError(Exception):
 
 def problem_type(status: int) -> tuple[str, str]:
     """The type URI and title for a status; about:blank with the reason phrase otherwise."""
-    if status in _TYPES:
-        slug, title = _TYPES[status]
-        return PROBLEM_BASE + slug, title
+    kind = _BY_STATUS.get(status)
+    if kind is not None:
+        return kind.uri, kind.title
     return "about:blank", HTTPStatus(status).phrase
 
 

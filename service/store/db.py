@@ -24,6 +24,7 @@ __all__ = [
     "dispose_after_fork",
     "insert_ignoring_duplicates",
     "make_engine",
+    "make_read_session_factory",
     "make_session_factory",
     "upgrade_database",
     "utcnow",
@@ -32,7 +33,11 @@ __all__ = [
 MIGRATIONS = Path(__file__).resolve().parent / "migrations"
 # The newest revision in migrations/versions (a test holds it to Alembic's own head). A store
 # already there is left alone without importing Alembic, which costs a command half a second.
-HEAD_REVISION = "0004"
+HEAD_REVISION = "0006"
+# PostgreSQL ends a transaction left idle this long; our transactions are well under a second.
+IDLE_TX_MS = 60_000
+# The execution option that makes a SQLite transaction begin deferred (see _tune_sqlite).
+READ_ONLY_OPTION = "foldwise_read_only"
 # Any constant will do; it only has to be the same in every process that migrates.
 _MIGRATION_LOCK = 0x666F6C64  # "fold"
 
@@ -43,18 +48,35 @@ def _dump_json(value: Any) -> str:
     return json.dumps(value, allow_nan=False, separators=(",", ":"))
 
 
-def make_engine(url: str, *, busy_timeout_ms: int = 30_000, durable_commits: bool = True) -> Engine:
+def make_engine(
+    url: str,
+    *,
+    busy_timeout_ms: int = 30_000,
+    durable_commits: bool = True,
+    pool_size: int = 2,
+    max_overflow: int = 3,
+    pool_timeout: float = 30.0,
+) -> Engine:
     """An engine for `url`, tuned for SQLite's single writer or a small PostgreSQL pool.
 
     `durable_commits=False` (PostgreSQL only) lets a commit return before its WAL record is
     flushed. A server crash may then lose the last few transactions whole, never half of one:
     fit for workers, whose lost work shows as a unit still queued or under an expired lease that
     the reconciler hands out again; never for the API, which promises a stored job.
+    The pool settings apply to PostgreSQL; the API sizes them to its thread limit (admission.py).
     """
     parsed = make_url(url)
     if parsed.get_backend_name() != "sqlite":
         engine = create_engine(
-            url, json_serializer=_dump_json, pool_pre_ping=True, pool_size=2, max_overflow=3
+            url,
+            json_serializer=_dump_json,
+            pool_pre_ping=True,
+            pool_size=pool_size,
+            max_overflow=max_overflow,
+            pool_timeout=pool_timeout,
+            # A transaction left open by a stuck caller is ended by the server instead of holding
+            # a connection "idle in transaction" (and its snapshot) for good.
+            connect_args={"options": f"-c idle_in_transaction_session_timeout={IDLE_TX_MS}"},
         )
         if not durable_commits:
 
@@ -98,9 +120,13 @@ def _tune_sqlite(engine: Engine, busy_timeout_ms: int) -> None:
     def _on_begin(connection: Connection) -> None:
         # IMMEDIATE takes the write lock up front, where the busy timeout applies. A deferred
         # transaction that reads and then writes fails with SQLITE_BUSY at once when another
-        # writer got in between, and waiting cannot help it. The cost is that read-only
-        # transactions queue behind writers too; ours are short.
-        connection.exec_driver_sql("BEGIN IMMEDIATE")
+        # writer got in between, and waiting cannot help it. Sessions made for reading
+        # (make_read_session_factory) begin deferred instead: in WAL mode they read a snapshot
+        # and never wait for the writer, so readers cannot queue behind a job's commits.
+        if connection.get_execution_options().get(READ_ONLY_OPTION):
+            connection.exec_driver_sql("BEGIN")
+        else:
+            connection.exec_driver_sql("BEGIN IMMEDIATE")
 
 
 def _enter_wal(cursor: Any, *, deadline: float) -> None:
@@ -120,6 +146,20 @@ def _enter_wal(cursor: Any, *, deadline: float) -> None:
 def make_session_factory(engine: Engine) -> sessionmaker[Session]:
     """Sessions bound to `engine` whose objects stay readable after commit."""
     return sessionmaker(bind=engine, expire_on_commit=False)
+
+
+def make_read_session_factory(engine: Engine) -> sessionmaker[Session]:
+    """Sessions for reading: on SQLite their transactions begin deferred and take no write lock.
+
+    They share `engine`'s pool (an execution option, not a second engine). A write through one
+    still works but may fail at once with "database is locked" when another writer got in
+    first, so requests that write use make_session_factory.
+    """
+    return sessionmaker(
+        bind=engine.execution_options(**{READ_ONLY_OPTION: True}),
+        expire_on_commit=False,
+        autoflush=False,
+    )
 
 
 def alembic_config(url: str) -> Config:

@@ -40,7 +40,7 @@ def test_every_v1_route_needs_a_token(server: Server, method: str, path: str) ->
     with server.client() as client:
         answer = client.request(method, path, json={})
     problem = _is_problem(answer, 401)
-    assert problem["type"] == "https://foldwise.dev/problems/unauthenticated"
+    assert problem["type"] == "/problems/unauthenticated"
     assert answer.headers["www-authenticate"].startswith("Bearer")
 
 

@@ -108,7 +108,7 @@ def test_a_bad_field_is_a_422_naming_it_and_stores_nothing(
     with server.client(token) as client:
         answer = client.post("/v1/jobs", json=body, headers={"Idempotency-Key": f"bad-{case}"})
     problem = _problem(answer, 422)
-    assert problem["type"] == "https://foldwise.dev/problems/bad-input"
+    assert problem["type"] == "/problems/bad-input"
     assert problem["field"] == field, problem["detail"]
     assert server.snapshot() == before
 

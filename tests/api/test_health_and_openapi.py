@@ -91,7 +91,8 @@ def document(server: Server) -> dict[str, Any]:
 
 def test_openapi_lists_every_route(document: dict[str, Any]) -> None:
     listed = {(m, p) for p, ops in document["paths"].items() for m in ops}
-    assert listed == ROUTES
+    # the problem-type pages have a test of their own (test_problem_types.py)
+    assert {(m, p) for m, p in listed if not p.startswith("/problems/")} == ROUTES
 
 
 @pytest.mark.parametrize(("method", "path"), sorted(ROUTES))

@@ -8,10 +8,13 @@ from __future__ import annotations
 
 import logging
 
+import anyio
+import anyio.to_thread
 from fastapi import APIRouter, Request
 from fastapi.responses import PlainTextResponse
 from pydantic import BaseModel
 from sqlalchemy import text
+from sqlalchemy.orm import Session, sessionmaker
 
 from service.api.deps import SessionsDep, SettingsDep
 from service.api.health.metrics import CONTENT_TYPE, render_metrics
@@ -21,6 +24,21 @@ from service.api.problems import ProblemError, problem_responses
 log = logging.getLogger(__name__)
 router = APIRouter(tags=["health"], route_class=StrictJsonRoute)
 BROKER_TIMEOUT_SECONDS = 2.0
+PROBE_TIMEOUT_SECONDS = 2.0
+_probe_limiter: anyio.CapacityLimiter | None = None
+
+
+def _probe_threads() -> anyio.CapacityLimiter:
+    """Two threads for probes, apart from the request pool (made on the server's event loop)."""
+    global _probe_limiter
+    if _probe_limiter is None:
+        _probe_limiter = anyio.CapacityLimiter(2)
+    return _probe_limiter
+
+
+def _ping_store(sessions: sessionmaker[Session]) -> None:
+    with sessions() as session:
+        session.execute(text("SELECT 1"))
 
 
 class Health(BaseModel):
@@ -31,8 +49,8 @@ class Health(BaseModel):
 
 
 @router.get("/healthz", response_model=Health, summary="Liveness: the process answers")
-def healthz() -> Health:
-    """Always ok while the process can answer."""
+async def healthz() -> Health:
+    """Always ok while the process can answer: no thread, no store, so load cannot delay it."""
     return Health(status="ok", checks={})
 
 
@@ -62,7 +80,7 @@ def _ping_broker(url: str) -> None:
     summary="Readiness: the store answers, and the broker when one is configured",
     responses=problem_responses(503),
 )
-def readyz(request: Request, sessions: SessionsDep, settings: SettingsDep) -> Health:
+async def readyz(request: Request, sessions: SessionsDep, settings: SettingsDep) -> Health:
     """200 when every dependency answers; a 503 problem naming the one that does not."""
     checks: dict[str, str] = {}
     roles = getattr(request.app.state, "sql_roles", None)
@@ -70,8 +88,11 @@ def readyz(request: Request, sessions: SessionsDep, settings: SettingsDep) -> He
         # a warning, not unreadiness: the reads are confined either way (service/datasets/sql_*)
         checks["sql_connections"] = roles.summary()
     try:
-        with sessions() as session:
-            session.execute(text("SELECT 1"))
+        # Threads of its own and a deadline: a busy request pool must not keep the probe waiting.
+        with anyio.fail_after(PROBE_TIMEOUT_SECONDS):
+            await anyio.to_thread.run_sync(
+                _ping_store, sessions, limiter=_probe_threads(), abandon_on_cancel=True
+            )
         checks["database"] = "ok"
     except Exception as exc:
         log.warning("readiness: database unreachable: %s", exc)
@@ -80,7 +101,9 @@ def readyz(request: Request, sessions: SessionsDep, settings: SettingsDep) -> He
         ) from exc
     if settings.broker_url:
         try:
-            _ping_broker(settings.broker_url)
+            await anyio.to_thread.run_sync(
+                _ping_broker, settings.broker_url, limiter=_probe_threads()
+            )
             checks["broker"] = "ok"
         except Exception as exc:
             log.warning("readiness: broker unreachable: %s", exc)
