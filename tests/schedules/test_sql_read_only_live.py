@@ -17,7 +17,7 @@ import httpx
 import psycopg
 import pytest
 from api.server import Server, running_server
-from conftest import PG_ADMIN, PG_URL
+from api.stores import PG_ADMIN, PG_URL
 
 from .tables import TEMPLATE
 
