@@ -5,6 +5,7 @@ every attempt is reported as a crash, not as "gave up"."""
 from __future__ import annotations
 
 import math
+import re
 import time
 from datetime import timedelta
 from pathlib import Path
@@ -43,8 +44,10 @@ def _request(path: Path | str) -> dict[str, Any]:
 
 def _says_what_failed(error: str) -> None:
     assert error.startswith("unit "), error
-    assert "r2 came out as nan for candidate Ridge {'alpha': 0.1" in error
-    assert "on inner fold r0f0 of outer fold r0f0 (1 test row)" in error
+    # Every candidate fails on a one-row test fold; units run side by side, so whichever fails
+    # first names its own candidate and fold.
+    assert re.search(r"r2 came out as nan for candidate Ridge \{'alpha': (0\.1|1\.0)\b", error)
+    assert re.search(r"on inner fold r0f\d of [^()]+ \(1 test row\)", error), error
     assert "Traceback" not in error and "NOT NULL" not in error and "gave up" not in error
 
 

@@ -75,6 +75,11 @@ def test_each_recipe_weights_and_column_type_is_fitted_afresh_and_then_reused(
     assert again.result["final_pick"] == runs["weights"].result["final_pick"]
 
 
+def _run_problem(settings: Settings, path: Path, **changes: Any) -> Any:
+    request = make_request(dataset={"path": str(path)}, **changes)
+    return run_embedded(request, settings=settings, base_dir=path.parent)
+
+
 def test_another_target_or_fewer_features_on_the_same_folds_is_fitted_afresh(
     pg_settings: Settings, weighted_iris: Path
 ) -> None:
@@ -89,12 +94,16 @@ def test_another_target_or_fewer_features_on_the_same_folds_is_fitted_afresh(
     }
     width = ["sepal length (cm)", "sepal width (cm)", "petal length (cm)"]
     length = ["sepal length (cm)", "sepal width (cm)", "petal width (cm)"]
-    first = _run(pg_settings, weighted_iris, **plain, target="petal width (cm)", features=width)
+    first = _run_problem(
+        pg_settings, weighted_iris, **plain, target="petal width (cm)", features=width
+    )
     assert first.result["work"]["units_reused"] == 0
     for target, features in [("petal length (cm)", length), ("petal width (cm)", width[:2])]:
-        other = _run(pg_settings, weighted_iris, **plain, target=target, features=features)
+        other = _run_problem(pg_settings, weighted_iris, **plain, target=target, features=features)
         work = other.result["work"]
         assert work["units_reused"] == 0, (target, features)
         assert work["units_computed"] == work["units_total"], (target, features)
-    again = _run(pg_settings, weighted_iris, **plain, target="petal width (cm)", features=width)
+    again = _run_problem(
+        pg_settings, weighted_iris, **plain, target="petal width (cm)", features=width
+    )
     assert again.result["work"]["fits"] == 0
