@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterator
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Path, Query
@@ -25,6 +24,7 @@ from service.api.jobs.schemas import FoldScorePage, JobList
 from service.api.json_body import StrictJsonRoute
 from service.api.limits import MAX_SQL_INT
 from service.api.problems import problem_responses
+from service.api.streams import attachment
 from service.auth import Principal
 from service.errors import BadInput
 from service.jobs import service
@@ -108,14 +108,6 @@ def _dataset_fetcher(principal: Principal, content_hash: str, **filters: Any) ->
     return fetch
 
 
-def _stream(chunks: Iterator[Any], media_type: str, filename: str) -> StreamingResponse:
-    return StreamingResponse(
-        chunks,
-        media_type=media_type,
-        headers={"Content-Disposition": f'attachment; filename="{filename}"'},
-    )
-
-
 @router.get(
     "/v1/datasets/{content_hash}/fold-scores.csv",
     response_class=StreamingResponse,
@@ -140,7 +132,7 @@ def export_dataset_csv(
     fetch = _dataset_fetcher(
         principal, content_hash, candidate_key=candidate_key, metric=metric, role=role
     )
-    return _stream(
+    return attachment(
         export.csv_chunks(sessions, fetch, principal),
         "text/csv; charset=utf-8",
         f"fold-scores-{content_hash[:12]}.csv",
@@ -171,7 +163,7 @@ def export_dataset_parquet(
     fetch = _dataset_fetcher(
         principal, content_hash, candidate_key=candidate_key, metric=metric, role=role
     )
-    return _stream(
+    return attachment(
         export.parquet_chunks(sessions, fetch, principal),
         "application/vnd.apache.parquet",
         f"fold-scores-{content_hash[:12]}.parquet",
@@ -205,7 +197,7 @@ def export_job_parquet(
             page_session, stored, after_id=after, limit=limit, all_metrics=all_metrics
         )
 
-    return _stream(
+    return attachment(
         export.parquet_chunks(sessions, fetch, principal, fold_context(session, found)),
         "application/vnd.apache.parquet",
         f"fold-scores-{found}.parquet",

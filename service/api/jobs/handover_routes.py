@@ -7,7 +7,6 @@ learning curve's parent, which has no model of its own) answers 409 with a sente
 from __future__ import annotations
 
 import base64
-from collections.abc import Iterator
 from pathlib import Path as FilePath
 from typing import Annotated, Any
 
@@ -21,6 +20,7 @@ from service.api.jobs.router import JobId
 from service.api.json_body import StrictJsonRoute
 from service.api.limits import MAX_SQL_INT
 from service.api.problems import ProblemError, problem_responses
+from service.api.streams import attachment
 from service.jobs import model_file, service
 from service.jobs.model_card import card_markdown, model_card
 from service.jobs.outer_predictions import NotReady, require_result
@@ -176,14 +176,6 @@ def list_predictions(
     return PredictionPage(columns=table.columns, data=rows, next_after=next_after)
 
 
-def _stream(chunks: Iterator[Any], media_type: str, filename: str) -> StreamingResponse:
-    return StreamingResponse(
-        chunks,
-        media_type=media_type,
-        headers={"Content-Disposition": f'attachment; filename="{filename}"'},
-    )
-
-
 @router.get(
     "/{job_id}/predictions.csv",
     response_class=StreamingResponse,
@@ -200,7 +192,7 @@ def export_predictions_csv(
 ) -> StreamingResponse:
     """The JSON pages' columns, one line per outer test row."""
     table = _table(session, job_id, principal, settings)
-    return _stream(
+    return attachment(
         predictions.csv_chunks(sessions, table),
         "text/csv; charset=utf-8",
         f"predictions-{job_id}.csv",
@@ -226,7 +218,7 @@ def export_predictions_parquet(
 ) -> StreamingResponse:
     """Labels keep the target's type; probabilities and decision values are float64."""
     table = _table(session, job_id, principal, settings)
-    return _stream(
+    return attachment(
         predictions.parquet_chunks(sessions, table),
         "application/vnd.apache.parquet",
         f"predictions-{job_id}.parquet",

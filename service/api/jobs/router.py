@@ -34,6 +34,7 @@ from service.api.jobs.schemas import (
 from service.api.json_body import StrictJsonRoute
 from service.api.limits import MAX_SQL_INT
 from service.api.problems import problem_responses
+from service.api.streams import attachment
 from service.auth import Action, Principal
 from service.dispatch.base import mark_published
 from service.errors import BadInput
@@ -303,8 +304,8 @@ def export_fold_scores(
 ) -> StreamingResponse:
     """Streamed page by page, each page read in its own short session."""
     job = service.get_job(session, job_id, principal)
-    return StreamingResponse(
+    return attachment(
         export.fold_score_lines(sessions, job.id, principal, all_metrics=all_metrics),
-        media_type="text/csv; charset=utf-8",
-        headers={"Content-Disposition": f'attachment; filename="fold-scores-{job.id}.csv"'},
+        "text/csv; charset=utf-8",
+        f"fold-scores-{job.id}.csv",
     )
