@@ -3,7 +3,7 @@
 A due time is claimed by inserting its refresh row under the unique (schedule, due time) key with
 ON CONFLICT DO NOTHING, in the same transaction that reads the source and submits the job; on
 PostgreSQL a second tick's insert waits for the first transaction and then inserts nothing, so two
-ticks at once make one refresh and one job (RELIABILITY.md, schedules).
+ticks at once make one refresh and one job (docs/schedules.md).
 """
 
 from __future__ import annotations

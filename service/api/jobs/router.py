@@ -165,7 +165,7 @@ def submit_job(
     job = submitted.job
     if submitted.created:
         # Published only after the commit, from the committed rows: a crash in between leaves
-        # queued units the reconciler re-publishes (RELIABILITY.md, outbox).
+        # queued units the reconciler re-publishes (docs/reliability.md).
         unit_ids = service.queued_unit_ids(session, job.id)
         session.commit()
         if not unit_ids:  # every unit came from the store: move the job on here
