@@ -20,7 +20,8 @@ from sklearn.model_selection._split import BaseCrossValidator
 from service.cv.errors import SpecError
 from service.cv.spec import SplitSpec
 
-_OUTER_SCOPE = re.compile(r"r(\d+)f(\d+)")
+# no leading zeros: a scope parses only if formatting its numbers gives it back
+_OUTER_SCOPE = re.compile(r"r(0|[1-9]\d*)f(0|[1-9]\d*)")
 
 
 def outer_scope(repeat: int, fold: int) -> str:
