@@ -12,6 +12,7 @@ from sqlalchemy.orm import Session
 from service.config import Settings
 from service.cv.plan import FINAL_SCOPE
 from service.cv.splits import Fold as PlanFold
+from service.cv.splits import parse_outer_scope
 from service.cv.units import inner_units
 from service.datasets.store import save_table
 from service.jobs.plans import LoadedPlan
@@ -79,8 +80,7 @@ def unit_row(job_id: str, kind: str, scope: str, candidate_key: str) -> dict[str
     """A queued work unit row; outer coordinates follow from the scope."""
     repeat = fold = None
     if scope != FINAL_SCOPE:
-        repeat_text, fold_text = scope[1:].split("f")
-        repeat, fold = int(repeat_text), int(fold_text)
+        repeat, fold = parse_outer_scope(scope)
     return {
         "job_id": job_id,
         "kind": kind,

@@ -8,10 +8,10 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
+from service.cv.plan import FINAL_SCOPE
+from service.cv.splits import parse_outer_scope
 from service.web.queries import CandidateRow, InnerCell
 from service.web.svg import Point
-
-ALL_ROWS = "all"
 
 
 def value_label(value: Any) -> str:
@@ -29,17 +29,16 @@ def value_label(value: Any) -> str:
 
 def scope_label(scope: str) -> str:
     """'r0f2' → 'outer fold 2 (repeat 0)'; 'all' → the search on all rows."""
-    if scope == ALL_ROWS:
+    if scope == FINAL_SCOPE:
         return "all rows (final search)"
-    repeat, _, fold = scope[1:].partition("f")
-    return f"outer fold {fold}" + (f" (repeat {repeat})" if repeat != "0" else "")
+    repeat, fold = parse_outer_scope(scope)
+    return f"outer fold {fold}" + (f" (repeat {repeat})" if repeat else "")
 
 
 def _scope_order(scope: str) -> tuple[int, int, int]:
-    if scope == ALL_ROWS:
+    if scope == FINAL_SCOPE:
         return (1, 0, 0)
-    repeat, _, fold = scope[1:].partition("f")
-    return (0, int(repeat), int(fold))
+    return (0, *parse_outer_scope(scope))
 
 
 def _ordered_values(values: list[Any]) -> list[Any]:
@@ -124,6 +123,11 @@ class Heat:
     cells: dict[tuple[str, str], tuple[float, int]]
     scope: str
 
+    @property
+    def over(self) -> str:
+        """What the cells average, as the caption names it."""
+        return scope_label(self.scope) if self.scope == FINAL_SCOPE else "every scope pooled"
+
 
 def heat(family: Family, cells: Sequence[InnerCell]) -> Heat | None:
     """For a family with exactly two varying keys: the final search's inner means per pair."""
@@ -134,10 +138,10 @@ def heat(family: Family, cells: Sequence[InnerCell]) -> Heat | None:
     mine = [c for c in cells if c.candidate_key in by_key]
     # the search on all rows is the one whose pick becomes the final model; without it
     # (a job that stopped early) every scope is pooled, and the caption says which
-    scope = ALL_ROWS if any(c.scope == ALL_ROWS for c in mine) else "pooled"
+    scope = FINAL_SCOPE if any(c.scope == FINAL_SCOPE for c in mine) else "pooled"
     sums: dict[tuple[str, str], list[float]] = defaultdict(lambda: [0.0, 0.0])
     for cell in mine:
-        if scope == ALL_ROWS and cell.scope != ALL_ROWS:
+        if scope == FINAL_SCOPE and cell.scope != FINAL_SCOPE:
             continue
         params = by_key[cell.candidate_key].params
         acc = sums[(value_label(params.get(row_key)), value_label(params.get(col_key)))]

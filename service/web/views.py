@@ -177,7 +177,7 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
                     "estimator": grid.estimator,
                     "row_key": grid.row_key,
                     "col_key": grid.col_key,
-                    "scope": grid.scope,
+                    "over": grid.over,
                     "svg": svg_grid.heat_map(
                         grid.rows,
                         grid.cols,

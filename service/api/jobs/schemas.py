@@ -183,6 +183,3 @@ class FoldScorePage(BaseModel):
 
     data: list[FoldScorePublic]
     next_after: int | None
-
-
-FOLD_SCORE_COLUMNS = tuple(FoldScorePublic.model_fields)
