@@ -16,7 +16,7 @@ from typing import Any
 import httpx
 import pytest
 
-from service.web.session import COOKIE
+from service.web.signin import COOKIE
 
 from .live import LiveServer
 

@@ -1,10 +1,10 @@
-"""How the job page names a scope and orders its curves (service/web/curves.py)."""
+"""How the job page names a scope and orders its curves (service/web/validation_curves.py)."""
 
 from __future__ import annotations
 
 from service.cv.plan import FINAL_SCOPE
 from service.cv.splits import outer_scope
-from service.web import curves
+from service.web import validation_curves as curves
 
 
 def test_scopes_are_named_for_people() -> None:

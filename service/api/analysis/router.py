@@ -16,17 +16,16 @@ from service.api.analysis.schemas import (
     comparison_public,
     history_public,
 )
-from service.api.deps import ReaderDep, SessionDep, SessionsDep
 from service.api.jobs.export import public_scores
-from service.api.jobs.router import AllMetrics
-from service.api.jobs.router import _summary as job_summary  # one listing shape for jobs
-from service.api.jobs.schemas import FoldScorePage, JobList
-from service.api.json_body import StrictJsonRoute
-from service.api.limits import MAX_SQL_INT
-from service.api.problems import problem_responses
-from service.api.streams import attachment
+from service.api.jobs.params import AllMetrics
+from service.api.jobs.schemas import FoldScorePage, JobList, job_summary
 from service.auth import Principal
 from service.errors import BadInput
+from service.http.deps import ReaderDep, SessionDep, SessionsDep
+from service.http.json_body import StrictJsonRoute
+from service.http.limits import MAX_SQL_INT
+from service.http.problems import problem_responses
+from service.http.streams import attachment
 from service.jobs import service
 from service.jobs.fold_rows import fold_context
 from service.store.models import FoldScore, Job

@@ -9,11 +9,11 @@ from fastapi import APIRouter, Body, Path, Response
 from sqlalchemy.orm import Session
 
 from service.api.audit.schemas import AuditPublic, Provenance
-from service.api.deps import AuditorDep, DispatcherDep, ReaderDep, SessionDep
-from service.api.json_body import StrictJsonRoute
-from service.api.problems import problem_responses
 from service.auth import Action, Principal, authorize
 from service.errors import not_visible
+from service.http.deps import AuditorDep, DispatcherDep, ReaderDep, SessionDep
+from service.http.json_body import StrictJsonRoute
+from service.http.problems import problem_responses
 from service.jobs import service
 from service.jobs.audit import audit_view, check_audit_request, request_audit
 from service.jobs.provenance import provenance

@@ -15,12 +15,12 @@ from fastapi.responses import FileResponse, PlainTextResponse, StreamingResponse
 from pydantic import BaseModel, ConfigDict
 
 from service.analysis import predictions
-from service.api.deps import ReaderDep, SessionDep, SessionsDep, SettingsDep
-from service.api.jobs.router import JobId
-from service.api.json_body import StrictJsonRoute
-from service.api.limits import MAX_SQL_INT
-from service.api.problems import ProblemError, problem_responses
-from service.api.streams import attachment
+from service.api.jobs.params import JobId
+from service.http.deps import ReaderDep, SessionDep, SessionsDep, SettingsDep
+from service.http.json_body import StrictJsonRoute
+from service.http.limits import MAX_SQL_INT
+from service.http.problems import ProblemError, problem_responses
+from service.http.streams import attachment
 from service.jobs import model_file, service
 from service.jobs.model_card import card_markdown, model_card
 from service.jobs.outer_predictions import NotReady, require_result

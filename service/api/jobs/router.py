@@ -6,13 +6,26 @@ import logging
 from datetime import UTC, datetime
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Body, Header, Path, Query, Response
+from fastapi import APIRouter, Body, Header, Query, Response
 from fastapi.responses import StreamingResponse
 from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from service.api.datasets.service import confine_path_source, server_base_dir
-from service.api.deps import (
+from service.api.jobs import export
+from service.api.jobs.params import AllMetrics, JobId
+from service.api.jobs.schemas import (
+    FoldScorePage,
+    JobLinks,
+    JobList,
+    JobPublic,
+    JobStatus,
+    job_summary,
+)
+from service.auth import Action, Principal
+from service.dispatch.base import mark_published
+from service.errors import BadInput
+from service.http.deps import (
     CancellerDep,
     DispatcherDep,
     ReaderDep,
@@ -21,23 +34,10 @@ from service.api.deps import (
     SettingsDep,
     SubmitterDep,
 )
-from service.api.jobs import export
-from service.api.jobs.schemas import (
-    FoldScorePage,
-    JobLinks,
-    JobList,
-    JobProgress,
-    JobPublic,
-    JobStatus,
-    JobSummary,
-)
-from service.api.json_body import StrictJsonRoute
-from service.api.limits import MAX_SQL_INT
-from service.api.problems import problem_responses
-from service.api.streams import attachment
-from service.auth import Action, Principal
-from service.dispatch.base import mark_published
-from service.errors import BadInput
+from service.http.json_body import StrictJsonRoute
+from service.http.limits import MAX_SQL_INT
+from service.http.problems import problem_responses
+from service.http.streams import attachment
 from service.jobs import service
 from service.jobs.curves import CURVE_KIND, start_children
 from service.jobs.fold_rows import fold_context
@@ -47,7 +47,6 @@ from service.store.models import Job
 log = logging.getLogger(__name__)
 router = APIRouter(prefix="/v1/jobs", tags=["jobs"], route_class=StrictJsonRoute)
 
-JobId = Annotated[str, Path(max_length=64, description="The job's id.")]
 IdempotencyKey = Annotated[
     str | None,
     Header(
@@ -56,43 +55,16 @@ IdempotencyKey = Annotated[
         description="Repeat a submission safely: the same key and body name the same job.",
     ),
 ]
-AllMetrics = Annotated[
-    bool,
-    Query(
-        description="Also list metrics that other jobs stored on these folds and candidates; "
-        "by default only the metrics this job asked for."
-    ),
-]
 _ROOTS_HINT = (
     "register the table first (POST /v1/datasets/upload or POST /v1/datasets) "
     "and pass its content_hash as dataset."
 )
 
 
-def _summary(job: Job) -> JobSummary:
-    total = job.units_total
-    return JobSummary(
-        id=job.id,
-        status=job.status,  # a CHECK constraint keeps it one of JobStatus
-        kind=job.kind,
-        parent_id=job.parent_id,
-        dataset_hash=job.dataset_hash,
-        team=job.team,
-        created_at=job.created_at,
-        started_at=job.started_at,
-        finished_at=job.finished_at,
-        progress=JobProgress(
-            units_done=job.units_done,
-            units_total=total,
-            fraction=min(1.0, job.units_done / total) if total else 0.0,
-        ),
-    )
-
-
 def _public(job: Job, session: Session, principal: Principal) -> JobPublic:
     base = f"/v1/jobs/{job.id}"
     return JobPublic(
-        **_summary(job).model_dump(),
+        **job_summary(job).model_dump(),
         error=job.error,
         result=service.result_for(session, principal, job),
         links=JobLinks(
@@ -237,7 +209,7 @@ def list_jobs(
         estimator=estimator,
         schedule_id=schedule_id,
     )
-    return JobList(data=[_summary(j) for j in jobs], count=count)
+    return JobList(data=[job_summary(j) for j in jobs], count=count)
 
 
 @router.post(

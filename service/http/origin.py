@@ -1,4 +1,4 @@
-"""Cross-site form posts are refused: the report pages' forms change the session (login CSRF).
+"""Cross-site form posts are refused: the report pages' forms sign people in and out (login CSRF).
 
 A browser says where a POST comes from: `Sec-Fetch-Site` (Fetch Metadata) and `Origin`, which
 every current browser sends on a form POST. A POST is refused when either says another site or

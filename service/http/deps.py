@@ -9,11 +9,11 @@ from fastapi import Depends, Request
 from fastapi.security import HTTPAuthorizationCredentials, HTTPBearer
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.api.problems import ProblemError
 from service.auth import Action, Principal, authenticate, authorize
 from service.config import Settings
 from service.dispatch.base import Dispatcher
 from service.errors import MissingScope
+from service.http.problems import ProblemError
 
 # auto_error=False: a missing header must become our 401 problem, not FastAPI's plain error.
 _bearer = HTTPBearer(auto_error=False, description="A token from `foldwise token create`.")

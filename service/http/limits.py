@@ -11,7 +11,7 @@ from starlette.datastructures import Headers
 from starlette.exceptions import HTTPException
 from starlette.types import ASGIApp, Message, Receive, Scope, Send
 
-from service.api.problems import problem_response
+from service.http.problems import problem_response
 
 JSON_BODY_LIMIT = 1 << 20
 # the largest integer SQL stores (a signed 64-bit BIGINT): offsets and keyset ids past it would

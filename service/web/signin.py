@@ -1,7 +1,7 @@
-"""The report pages' session cookie: a signed token id and expiry, never the token itself.
+"""The report pages' sign-in cookie: a signed token id and expiry, never the token itself.
 
 The value is `<token id>.<expiry unix seconds>.<hex HMAC-SHA256>` under FOLDWISE_SECRET_KEY. With no
-key set (the embedded default) each server process draws a random key at start: sessions then end
+key set (the embedded default) each server process draws a random key at start: sign-ins then end
 when the server restarts, and several API processes would not accept each other's cookies, so a
 deployment with more than one process must set the key.
 """
@@ -20,6 +20,8 @@ from sqlalchemy.orm import Session
 from service.auth import Action, Principal, has_scope, is_live, live_token, principal_of
 from service.store.models import ApiToken
 
+# The name browsers already hold; only the module's word for it changed ("sign-in", not
+# "session", which means a SQLAlchemy session everywhere else).
 COOKIE = "foldwise_session"
 LIFETIME_SECONDS = 8 * 3600
 _PROCESS_KEY = secrets.token_bytes(32)
