@@ -17,7 +17,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from sqlalchemy import CursorResult, exists, or_, select, update
+from sqlalchemy import exists, or_, select
 from sqlalchemy.orm import Session, aliased, sessionmaker
 
 from service.config import Settings
@@ -26,16 +26,16 @@ from service.cv.plan import build_plan
 from service.cv.selection import describe_values
 from service.datasets.sources import LoadedTable
 from service.errors import BadInput
+from service.jobs import lifecycle
 from service.jobs.prepare import PreparedJob, check_request_size, prepare_job
 from service.jobs.request import JobRequest, parse_job_request
 from service.jobs.submit import create_job
-from service.notify.outbox import queue_job_notice
 from service.store.db import utcnow
-from service.store.models import Job, WorkUnit
+from service.store.models import Job
+from service.store.statuses import BROKEN_JOB, LIVE_JOB, JobStatus
 
 CURVE_KIND = "learning_curve"
 MAX_SIZES = 10
-_LIVE = ("queued", "running")
 _EXAMPLE = "e.g. [0.1, 0.25, 0.5, 1.0]"
 
 
@@ -179,7 +179,7 @@ def create_curve(
             id=parent_id,
             kind=CURVE_KIND,
             dataset_hash=prepared.table.content_hash,
-            status="queued",
+            status=JobStatus.QUEUED,
             stage="aggregating",
             request=prepared.body,
             units_total=total,
@@ -257,58 +257,39 @@ def curve_result(parent: Job, children: list[Job]) -> dict[str, Any]:
     }
 
 
-def _cancel_children(session: Session, parent_id: str) -> None:
-    live = select(Job.id).where(Job.parent_id == parent_id, Job.status.in_(_LIVE))
-    session.execute(
-        update(WorkUnit)
-        .where(WorkUnit.job_id.in_(live), WorkUnit.status == "queued")
-        .values(status="cancelled")
-    )
-    session.execute(
-        update(Job)
-        .where(Job.parent_id == parent_id, Job.status.in_(_LIVE))
-        .values(cancel_requested=True, status="cancelled", finished_at=utcnow())
-    )
-
-
 def settle_curve(sessions: sessionmaker[Session], parent_id: str) -> None:
     """Bring a curve up to date with its children: progress, failure, or the finished result."""
     with sessions.begin() as session:
         parent = session.get_one(Job, parent_id)
-        if parent.status not in _LIVE:
+        if parent.status not in LIVE_JOB:
             return
         children = [session.get_one(Job, i) for i in child_ids(session, parent_id)]
         values: dict[str, Any] = {
             "units_done": sum(c.units_done for c in children),
             "units_total": sum(c.units_total for c in children),
         }
-        broken = next((c for c in children if c.status in ("failed", "cancelled")), None)
+        broken = next((c for c in children if c.status in BROKEN_JOB), None)
         if broken is not None:
             size = broken.request.get("train_fraction")
             values |= {
-                "status": "failed",
+                "status": JobStatus.FAILED,
                 "stage": "done",
                 "finished_at": utcnow(),
                 "error": f"the selection at size {size} (job {broken.id}) {broken.status}: "
                 f"{broken.error or 'no error text'}",
             }
-        elif all(c.status == "succeeded" for c in children):
+        elif all(c.status == JobStatus.SUCCEEDED for c in children):
             values |= {
-                "status": "succeeded",
+                "status": JobStatus.SUCCEEDED,
                 "stage": "done",
                 "finished_at": utcnow(),
                 "result": curve_result(parent, children),
             }
-        elif any(c.status == "running" for c in children):
-            values |= {"status": "running", "started_at": parent.started_at or utcnow()}
-        # of several processes settling at once, the first to commit a final state wins
-        moved: CursorResult[Any] = session.execute(  # type: ignore[assignment]
-            update(Job).where(Job.id == parent_id, Job.status.in_(_LIVE)).values(**values)
-        )
-        if moved.rowcount == 1 and "finished_at" in values:
-            queue_job_notice(session, parent_id)  # the curve's own webhook, once
+        elif any(c.status == JobStatus.RUNNING for c in children):
+            values |= {"status": JobStatus.RUNNING, "started_at": parent.started_at or utcnow()}
+        lifecycle.move_curve(session, parent_id, values)
         if broken is not None:
-            _cancel_children(session, parent_id)
+            lifecycle.cancel_children(session, parent_id)
 
 
 def settle_parent(sessions: sessionmaker[Session], job_id: str) -> None:
@@ -319,34 +300,6 @@ def settle_parent(sessions: sessionmaker[Session], job_id: str) -> None:
         settle_curve(sessions, parent_id)
 
 
-def start_children(sessions: sessionmaker[Session], job_id: str, settings: Settings) -> list[int]:
-    """After a curve's commit: start children the store fully answered; returns units to publish.
-
-    An ordinary job has no children and gets an empty list.
-    """
-    from service.jobs.reuse import start_if_settled  # reuse imports the fan-in, which is above us
-
-    with sessions() as session:
-        children = child_ids(session, job_id)
-        queued = {
-            c: list(
-                session.scalars(
-                    select(WorkUnit.id)
-                    .where(WorkUnit.job_id == c, WorkUnit.status == "queued")
-                    .order_by(WorkUnit.id)
-                )
-            )
-            for c in children
-        }
-    if not children:
-        return []
-    ids: list[int] = []
-    for child in children:
-        ids += queued[child] or start_if_settled(sessions, child, settings)
-    settle_curve(sessions, job_id)
-    return ids
-
-
 def settle_live_curves(sessions: sessionmaker[Session]) -> list[str]:
     """Settle live curves whose sizes have all ended or one broke; returns their ids.
 
@@ -355,13 +308,15 @@ def settle_live_curves(sessions: sessionmaker[Session]) -> list[str]:
     """
     child = aliased(Job)
     ended_or_broken = or_(
-        ~exists().where(child.parent_id == Job.id, child.status.in_(_LIVE)),
-        exists().where(child.parent_id == Job.id, child.status.in_(("failed", "cancelled"))),
+        ~exists().where(child.parent_id == Job.id, child.status.in_(LIVE_JOB)),
+        exists().where(child.parent_id == Job.id, child.status.in_(BROKEN_JOB)),
     )
     with sessions() as session:
         due = list(
             session.scalars(
-                select(Job.id).where(Job.kind == CURVE_KIND, Job.status.in_(_LIVE), ended_or_broken)
+                select(Job.id).where(
+                    Job.kind == CURVE_KIND, Job.status.in_(LIVE_JOB), ended_or_broken
+                )
             )
         )
     for parent_id in due:

@@ -1,4 +1,4 @@
-"""Application services over jobs: submit with an idempotency key, get, list, cancel, scores.
+"""Application services over jobs: submit with an idempotency key, get, list, scores.
 
 Callers own the session and its transaction; nothing here publishes to a broker (the API does
 that after its commit, from the committed rows).
@@ -13,7 +13,8 @@ from datetime import datetime
 from pathlib import Path
 from typing import Any
 
-from sqlalchemy import Select, func, select, update
+from sqlalchemy import Select, func, select
+from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from service.auth import Action, Principal, authorize, reaches_every_team
@@ -23,9 +24,7 @@ from service.errors import NotFound as NotFound  # re-exported: callers catch it
 from service.errors import not_visible
 from service.jobs.curves import create_submission, prepare_submission
 from service.json_values import check_json_values
-from service.notify.outbox import queue_job_notice
 from service.notify.targets import check_webhook_target
-from service.store.db import utcnow
 from service.store.models import (
     Candidate,
     DatasetRegistration,
@@ -33,8 +32,8 @@ from service.store.models import (
     Job,
     JobCandidate,
     JobFold,
-    WorkUnit,
 )
+from service.store.statuses import JobStatus
 
 
 class Conflict(Exception):
@@ -112,6 +111,43 @@ def submit_job(
     return Submitted(job, True)
 
 
+def submit_committed(
+    session: Session,
+    data: Any,
+    *,
+    principal: Principal,
+    settings: Settings,
+    idempotency_key: str | None = None,
+    base_dir: Path | None = None,
+) -> Submitted:
+    """`submit_job`, committed; a race of two new submissions under one key answers the winner's.
+
+    The caller starts a created job after this commit (start.start_submitted).
+    """
+
+    def submit() -> Submitted:
+        return submit_job(
+            session,
+            data,
+            principal=principal,
+            settings=settings,
+            idempotency_key=idempotency_key,
+            base_dir=base_dir,
+        )
+
+    try:
+        submitted = submit()
+        session.commit()
+    except IntegrityError:
+        # the loser of the race on the (team, key) unique constraint finds the winner's job
+        session.rollback()
+        if idempotency_key is None:
+            raise
+        submitted = submit()
+        session.commit()
+    return submitted
+
+
 def register_dataset(
     session: Session, content_hash: str, team: str, *, origin: dict[str, str] | None = None
 ) -> None:
@@ -152,7 +188,7 @@ OTHER_TEAM = "another team's job"
 def result_for(session: Session, principal: Principal, job: Job) -> dict[str, Any] | None:
     """A succeeded job's result as the principal may see it: the jobs that computed its outer
     scores are named only when the principal may read them."""
-    if job.status != "succeeded" or job.result is None:
+    if job.status != JobStatus.SUCCEEDED or job.result is None:
         return None
     result = dict(job.result)
     work = result.get("work")
@@ -222,32 +258,6 @@ def list_jobs(
     total = session.scalar(select(func.count()).select_from(query.order_by(None).subquery()))
     jobs = list(session.scalars(query.limit(limit).offset(offset)))
     return jobs, int(total or 0)
-
-
-def cancel_job(session: Session, job: Job) -> Job:
-    """Flag a queued or running job cancelled; units stop between fits."""
-    if job.status in ("queued", "running"):
-        job.cancel_requested, job.status, job.finished_at = True, "cancelled", utcnow()
-        queue_job_notice(session, job.id)
-        session.execute(
-            update(WorkUnit)
-            .where(WorkUnit.job_id == job.id, WorkUnit.status == "queued")
-            .values(status="cancelled")
-        )
-        for child in session.scalars(select(Job).where(Job.parent_id == job.id)).all():
-            cancel_job(session, child)  # a learning curve's selections stop with it
-    return job
-
-
-def queued_unit_ids(session: Session, job_id: str) -> list[int]:
-    """The job's units still waiting to be published or run."""
-    return list(
-        session.scalars(
-            select(WorkUnit.id)
-            .where(WorkUnit.job_id == job_id, WorkUnit.status == "queued")
-            .order_by(WorkUnit.id)
-        )
-    )
 
 
 def fold_scores_page(

@@ -19,6 +19,7 @@ from service.jobs.prepare import PreparedJob
 from service.jobs.reuse import reuse_stored
 from service.store.db import insert_ignoring_duplicates
 from service.store.models import Candidate, Dataset, Fold, Job, JobCandidate, JobFold, WorkUnit
+from service.store.statuses import JobStatus, UnitStatus
 
 
 def _mask(indices: np.ndarray, n_rows: int) -> bytes:
@@ -88,7 +89,7 @@ def unit_row(job_id: str, kind: str, scope: str, candidate_key: str) -> dict[str
         "outer_repeat": repeat,
         "outer_fold": fold,
         "candidate_key": candidate_key,
-        "status": "queued",
+        "status": UnitStatus.QUEUED,
     }
 
 
@@ -143,7 +144,7 @@ def create_job(
         Job(
             id=job_id,
             dataset_hash=table.content_hash,
-            status="queued",
+            status=JobStatus.QUEUED,
             stage="inner",
             request=prepared.request.model_dump(mode="json"),
             units_total=len(first_units) + len(plan.outer) + 1,
@@ -163,7 +164,7 @@ def create_job(
     )
     if prepared.request.reuse:
         # units the store already answers are done now; if all are, the caller must call
-        # reuse.start_if_settled after its commit (no unit will finish to trigger the fan-in)
+        # start.start_submitted after its commit (no unit will finish to trigger the fan-in)
         loaded = LoadedPlan(plan, table.frame, dict(table.kinds), table.content_hash)
         reuse_stored(session, job_id, loaded)
     return job_id

@@ -17,7 +17,7 @@ from sqlalchemy import select
 
 from service.config import Settings, load_settings
 from service.jobs.embedded import JobFailed, run_embedded
-from service.jobs.execute import MAX_ATTEMPTS, claim_unit
+from service.jobs.lifecycle import MAX_ATTEMPTS, claim_unit
 from service.jobs.prepare import prepare_job
 from service.jobs.reconcile import reconcile
 from service.jobs.submit import create_job

@@ -2,13 +2,11 @@
 
 from __future__ import annotations
 
-import logging
 from datetime import UTC, datetime
 from typing import Annotated, Any
 
 from fastapi import APIRouter, Body, Header, Path, Query, Response
 from fastapi.responses import StreamingResponse
-from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from service.api.datasets.service import confine_path_source, server_base_dir
@@ -36,15 +34,13 @@ from service.api.limits import MAX_SQL_INT
 from service.api.problems import problem_responses
 from service.api.streams import attachment
 from service.auth import Action, Principal
-from service.dispatch.base import mark_published
-from service.errors import BadInput
-from service.jobs import service
-from service.jobs.curves import CURVE_KIND, start_children
+from service.dispatch.base import publish_after_commit
+from service.errors import BadInput, NotFound
+from service.jobs import lifecycle, service
 from service.jobs.fold_rows import fold_context
-from service.jobs.reuse import start_if_settled
+from service.jobs.start import start_submitted
 from service.store.models import Job
 
-log = logging.getLogger(__name__)
 router = APIRouter(prefix="/v1/jobs", tags=["jobs"], route_class=StrictJsonRoute)
 
 JobId = Annotated[str, Path(max_length=64, description="The job's id.")]
@@ -63,6 +59,10 @@ AllMetrics = Annotated[
         "by default only the metrics this job asked for."
     ),
 ]
+_UNSEEN_DATASET = (
+    "no dataset with this content hash is visible to your team; upload or register "
+    "the table first (POST /v1/datasets/upload) and pass the hash it returns."
+)
 _ROOTS_HINT = (
     "register the table first (POST /v1/datasets/upload or POST /v1/datasets) "
     "and pass its content_hash as dataset."
@@ -133,54 +133,22 @@ def submit_job(
     """Validate and store the job, commit, then hand its first units to the workers."""
     # Taken as a plain object so every field error comes from parse_job_request's sentences.
     confine_path_source(body.get("dataset"), settings, field="dataset", hint=_ROOTS_HINT)
-
-    def submit() -> service.Submitted:
-        try:
-            return service.submit_job(
-                session,
-                body,
-                principal=principal,
-                settings=settings,
-                idempotency_key=idempotency_key,
-                base_dir=server_base_dir(settings),
-            )
-        except service.NotFound:
-            # The same answer whether the hash is unknown or another team's: nothing leaks.
-            raise BadInput(
-                "dataset",
-                "no dataset with this content hash is visible to your team; upload or register "
-                "the table first (POST /v1/datasets/upload) and pass the hash it returns.",
-            ) from None
-
     try:
-        submitted = submit()
-        session.commit()
-    except IntegrityError:
-        # Two submissions with one new key raced; the loser finds the winner's job on retry.
-        session.rollback()
-        if idempotency_key is None:
-            raise
-        submitted = submit()
-        session.commit()
+        submitted = service.submit_committed(
+            session,
+            body,
+            principal=principal,
+            settings=settings,
+            idempotency_key=idempotency_key,
+            base_dir=server_base_dir(settings),
+        )
+    except NotFound:
+        # The same answer whether the hash is unknown or another team's: nothing leaks.
+        raise BadInput("dataset", _UNSEEN_DATASET) from None
     job = submitted.job
     if submitted.created:
-        # Published only after the commit, from the committed rows: a crash in between leaves
-        # queued units the reconciler re-publishes (RELIABILITY.md, outbox).
-        unit_ids = service.queued_unit_ids(session, job.id)
-        session.commit()
-        if not unit_ids:  # every unit came from the store: move the job on here
-            unit_ids = start_if_settled(sessions, job.id, settings)
-            session.refresh(job)
-        if job.kind == CURVE_KIND:  # the selections at each size carry the units
-            session.commit()  # SQLite: let go of the write lock before other sessions write
-            unit_ids += start_children(sessions, job.id, settings)
-            session.refresh(job)
-            session.commit()
-        try:
-            dispatcher.publish(unit_ids)
-            mark_published(sessions, unit_ids)
-        except Exception:
-            log.exception("publishing job %s failed; the reconciler will publish it", job.id)
+        publish_after_commit(dispatcher, start_submitted(sessions, job.id, settings), job.id)
+        session.refresh(job)
     response.status_code = 202 if submitted.created else 200
     response.headers["Location"] = f"/v1/jobs/{job.id}"
     return _public(job, session, principal)
@@ -252,7 +220,7 @@ def cancel_job(job_id: JobId, principal: CancellerDep, session: SessionDep) -> J
     Needs the `submit` scope and a job of the token's own team: another team's job answers 404,
     as a missing one does, analyst tokens included.
     """
-    job = service.cancel_job(session, service.get_job(session, job_id, principal, Action.CANCEL))
+    job = lifecycle.cancel_job(session, service.get_job(session, job_id, principal, Action.CANCEL))
     session.commit()
     return _public(job, session, principal)
 
