@@ -30,3 +30,7 @@ class MissingScope(PermissionError):
             f"{', '.join(sorted(held)) or 'none'}."
         )
         self.scope = scope
+
+
+class Conflict(Exception):
+    """The request clashes with stored state (an idempotency key reused with another body)."""

@@ -11,9 +11,9 @@ from celery import Task
 
 from service.dispatch import TASK_RECONCILE, TASK_RUN_AUDIT, TASK_RUN_UNIT
 from service.dispatch.celery_client import send_units
-from service.jobs.audit import run_audit
-from service.jobs.reconcile import reconcile
-from service.jobs.work import run_and_advance
+from service.jobs.audits.audit import run_audit
+from service.jobs.execution.reconcile import reconcile
+from service.jobs.execution.work import run_and_advance
 from service.notify.delivery import deliver_due
 from service.schedules.tick import tick_schedules
 from workers import state

@@ -19,8 +19,8 @@ import pyarrow.parquet as pq
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.auth import Principal
-from service.jobs.fold_rows import FoldContext
-from service.jobs.service import foreign_job_ids
+from service.jobs.handover.fold_rows import FoldContext
+from service.jobs.queries.jobs import foreign_job_ids
 from service.store.models import FoldScore
 
 PAGE = 1000

@@ -29,7 +29,7 @@ from service.config import Settings
 from service.datasets.sql_roles import start_role_check
 from service.dispatch.base import Dispatcher
 from service.errors import BadInput
-from service.jobs.request import JobRequest
+from service.jobs.intake.request import JobRequest
 from service.schedules.service import ScheduleRequest
 from service.store.db import make_engine, make_read_session_factory, make_session_factory
 from service.web.router import router as reports_router

@@ -15,9 +15,8 @@ from pydantic import BaseModel, Field
 from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.routing import Match
 
-from service.errors import BadInput, MissingScope
-from service.jobs.request import field_path
-from service.jobs.service import Conflict, NotFound
+from service.errors import BadInput, Conflict, MissingScope, NotFound
+from service.jobs.intake.request import field_path
 
 log = logging.getLogger(__name__)
 

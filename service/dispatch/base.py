@@ -41,7 +41,7 @@ def publish_after_commit(dispatcher: Dispatcher, unit_ids: list[int], job_id: st
     """Publish a committed job's units; a failure is logged, as the reconciler publishes again.
 
     Published only after the commit, from the committed rows: a crash in between leaves queued
-    units with no `published_at`, which the reconciler finds (jobs.reconcile).
+    units with no `published_at`, which the reconciler finds (jobs.execution.reconcile).
     """
     try:
         dispatcher.publish(unit_ids)

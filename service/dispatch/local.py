@@ -18,11 +18,11 @@ from threadpoolctl import threadpool_limits
 
 from service.config import Settings
 from service.dispatch.base import mark_published
-from service.jobs.audit import run_audit
-from service.jobs.execute import UnitReport, worker_name
+from service.jobs.audits.audit import run_audit
+from service.jobs.execution.execute import UnitReport, worker_name
+from service.jobs.execution.reconcile import reconcile
+from service.jobs.execution.work import run_and_advance
 from service.jobs.lifecycle import release_claims
-from service.jobs.reconcile import reconcile
-from service.jobs.work import run_and_advance
 from service.notify.delivery import deliver_due
 from service.processes import die_with_parent, stop_pool
 from service.schedules.tick import tick_schedules
@@ -69,7 +69,7 @@ class LocalPool:
         # warm instead of paying seconds of imports on the first unit it runs
         context.set_forkserver_preload(
             [
-                "service.jobs.work",
+                "service.jobs.execution.work",
                 "sklearn.ensemble",
                 "sklearn.linear_model",
                 "sklearn.model_selection",

@@ -22,8 +22,8 @@ from service.config import Settings
 from service.datasets.sources import DatasetSource, load_table
 from service.datasets.sql_source import SqlAccess
 from service.errors import BadInput
-from service.jobs.service import submit_job
-from service.jobs.start import start_submitted
+from service.jobs.intake.start import start_submitted
+from service.jobs.intake.submit import submit_job
 from service.notify.outbox import REFRESH_EVENT, queue_delivery
 from service.schedules.compare import compare_results, refresh_status
 from service.schedules.cron import next_after, parse_cron, zone

@@ -14,7 +14,8 @@ from jinja2 import Environment, FileSystemLoader, select_autoescape
 from sqlalchemy import select
 
 from service.api.deps import SessionsDep
-from service.jobs.service import NotFound, get_job, job_query
+from service.errors import NotFound
+from service.jobs.queries.jobs import get_job, job_query
 from service.store.models import Dataset
 from service.web import dataset_view, handover_view, views
 from service.web.compare_view import compare_page

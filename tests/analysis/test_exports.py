@@ -13,7 +13,7 @@ import pytest
 
 from service.analysis import export, queries
 from service.auth import Principal
-from service.jobs.fold_rows import EXTRA_COLUMNS
+from service.jobs.handover.fold_rows import EXTRA_COLUMNS
 
 from .conftest import Seeded
 

@@ -25,8 +25,8 @@ from service.auth import Principal
 from service.config import Settings, load_settings
 from service.dispatch import UNIT_QUEUE
 from service.dispatch.celery_client import CeleryDispatcher
-from service.jobs.service import submit_job
-from service.jobs.start import start_submitted
+from service.jobs.intake.start import start_submitted
+from service.jobs.intake.submit import submit_job
 from service.store.db import make_engine, make_session_factory
 from service.store.models import Job, WorkUnit
 

@@ -22,11 +22,12 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings, load_settings
-from service.jobs.curves import child_ids, create_submission, prepare_submission
+from service.jobs.curves.prepare import create_submission, prepare_submission
+from service.jobs.curves.settle import child_ids
+from service.jobs.execution.reconcile import reconcile
+from service.jobs.execution.work import run_and_advance
+from service.jobs.intake.start import start_submitted
 from service.jobs.lifecycle import MAX_ATTEMPTS, claim_unit
-from service.jobs.reconcile import reconcile
-from service.jobs.start import start_submitted
-from service.jobs.work import run_and_advance
 from service.store.db import make_engine, make_session_factory, upgrade_database, utcnow
 from service.store.models import Job, WebhookDelivery, WorkUnit
 from service.store.statuses import JobStatus, UnitStatus

@@ -12,8 +12,8 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.api.jobs.schemas import FOLD_SCORE_COLUMNS, FoldScorePublic
 from service.auth import Principal
-from service.jobs.fold_rows import EXTRA_COLUMNS, FoldContext, describe_score, fold_context
-from service.jobs.service import fold_scores_page, foreign_job_ids
+from service.jobs.handover.fold_rows import EXTRA_COLUMNS, FoldContext, describe_score, fold_context
+from service.jobs.queries.jobs import fold_scores_page, foreign_job_ids
 from service.store.models import FoldScore, Job
 
 PAGE = 1000

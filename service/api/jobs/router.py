@@ -36,9 +36,11 @@ from service.api.streams import attachment
 from service.auth import Action, Principal
 from service.dispatch.base import publish_after_commit
 from service.errors import BadInput, NotFound
-from service.jobs import lifecycle, service
-from service.jobs.fold_rows import fold_context
-from service.jobs.start import start_submitted
+from service.jobs import lifecycle
+from service.jobs.handover.fold_rows import fold_context
+from service.jobs.intake import submit as intake
+from service.jobs.intake.start import start_submitted
+from service.jobs.queries import jobs as job_queries
 from service.store.models import Job
 
 router = APIRouter(prefix="/v1/jobs", tags=["jobs"], route_class=StrictJsonRoute)
@@ -94,7 +96,7 @@ def _public(job: Job, session: Session, principal: Principal) -> JobPublic:
     return JobPublic(
         **_summary(job).model_dump(),
         error=job.error,
-        result=service.result_for(session, principal, job),
+        result=job_queries.result_for(session, principal, job),
         links=JobLinks(
             job=base,
             cancel=f"{base}/cancel",
@@ -134,7 +136,7 @@ def submit_job(
     # Taken as a plain object so every field error comes from parse_job_request's sentences.
     confine_path_source(body.get("dataset"), settings, field="dataset", hint=_ROOTS_HINT)
     try:
-        submitted = service.submit_committed(
+        submitted = intake.submit_committed(
             session,
             body,
             principal=principal,
@@ -162,7 +164,7 @@ def submit_job(
 )
 def get_job(job_id: JobId, principal: ReaderDep, session: SessionDep) -> JobPublic:
     """Another team's job is a 404, as if it did not exist."""
-    return _public(service.get_job(session, job_id, principal), session, principal)
+    return _public(job_queries.get_job(session, job_id, principal), session, principal)
 
 
 def _aware(moment: datetime | None) -> datetime | None:
@@ -193,7 +195,7 @@ def list_jobs(
     offset: Annotated[int, Query(ge=0, le=MAX_SQL_INT)] = 0,
 ) -> JobList:
     """The caller's team's jobs (an analyst's: every team's) with the total count."""
-    jobs, count = service.list_jobs(
+    jobs, count = job_queries.list_jobs(
         session,
         principal,
         limit=limit,
@@ -220,7 +222,9 @@ def cancel_job(job_id: JobId, principal: CancellerDep, session: SessionDep) -> J
     Needs the `submit` scope and a job of the token's own team: another team's job answers 404,
     as a missing one does, analyst tokens included.
     """
-    job = lifecycle.cancel_job(session, service.get_job(session, job_id, principal, Action.CANCEL))
+    job = lifecycle.cancel_job(
+        session, job_queries.get_job(session, job_id, principal, Action.CANCEL)
+    )
     session.commit()
     return _public(job, session, principal)
 
@@ -242,8 +246,8 @@ def list_fold_scores(
     all_metrics: AllMetrics = False,
 ) -> FoldScorePage:
     """Scores of the job's candidates on its folds, whichever job computed them."""
-    job = service.get_job(session, job_id, principal)
-    rows = service.fold_scores_page(
+    job = job_queries.get_job(session, job_id, principal)
+    rows = job_queries.fold_scores_page(
         session, job, after_id=after, limit=limit, all_metrics=all_metrics
     )
     data = export.public_scores(session, principal, rows, fold_context(session, job.id))
@@ -271,7 +275,7 @@ def export_fold_scores(
     all_metrics: AllMetrics = False,
 ) -> StreamingResponse:
     """Streamed page by page, each page read in its own short session."""
-    job = service.get_job(session, job_id, principal)
+    job = job_queries.get_job(session, job_id, principal)
     return attachment(
         export.fold_score_lines(sessions, job.id, principal, all_metrics=all_metrics),
         "text/csv; charset=utf-8",

@@ -24,8 +24,8 @@ from service.cv.predictions import StoredPredictions, score_stored
 from service.cv.selection import pick
 from service.cv.units import UnitRef, unit_folds
 from service.jobs import lifecycle
-from service.jobs.plans import LoadedPlan
-from service.jobs.scores import load_book
+from service.jobs.execution.plans import LoadedPlan
+from service.jobs.execution.scores import load_book
 from service.store.db import insert_ignoring_duplicates
 from service.store.models import FinalModel, FoldPrediction, FoldScore, Job, JobFold, WorkUnit
 from service.store.statuses import UnitStatus

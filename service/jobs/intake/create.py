@@ -14,9 +14,9 @@ from service.cv.plan import FINAL_SCOPE
 from service.cv.splits import Fold as PlanFold
 from service.cv.units import inner_units
 from service.datasets.store import save_table
-from service.jobs.plans import LoadedPlan
-from service.jobs.prepare import PreparedJob
-from service.jobs.reuse import reuse_stored
+from service.jobs.execution.plans import LoadedPlan
+from service.jobs.execution.reuse import reuse_stored
+from service.jobs.intake.prepare import PreparedJob
 from service.store.db import insert_ignoring_duplicates
 from service.store.models import Candidate, Dataset, Fold, Job, JobCandidate, JobFold, WorkUnit
 from service.store.statuses import JobStatus, UnitStatus
@@ -164,7 +164,7 @@ def create_job(
     )
     if prepared.request.reuse:
         # units the store already answers are done now; if all are, the caller must call
-        # start.start_submitted after its commit (no unit will finish to trigger the fan-in)
+        # intake.start.start_submitted after its commit (no unit will finish to trigger the fan-in)
         loaded = LoadedPlan(plan, table.frame, dict(table.kinds), table.content_hash)
         reuse_stored(session, job_id, loaded)
     return job_id

@@ -12,8 +12,8 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
 from service.jobs import lifecycle
-from service.jobs.advance import advance_job
-from service.jobs.curves import CURVE_KIND, child_ids, settle_curve
+from service.jobs.curves.settle import CURVE_KIND, child_ids, settle_curve
+from service.jobs.execution.advance import advance_job
 from service.store.models import Job
 
 

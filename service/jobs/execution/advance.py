@@ -16,11 +16,11 @@ from service.config import Settings
 from service.cv.nested import refit_units
 from service.cv.selection import pick
 from service.jobs import lifecycle
-from service.jobs.plans import plan_for_job
-from service.jobs.result import build_result
-from service.jobs.reuse import reuse_stored
-from service.jobs.scores import load_book
-from service.jobs.submit import unit_row
+from service.jobs.execution.plans import plan_for_job
+from service.jobs.execution.result import build_result
+from service.jobs.execution.reuse import reuse_stored
+from service.jobs.execution.scores import load_book
+from service.jobs.intake.create import unit_row
 from service.store.models import Job, Pick, WorkUnit
 from service.store.statuses import JobStatus
 

@@ -25,9 +25,10 @@ from service.cv.units import (
     UnitRef,
     fit_and_score,
 )
-from service.jobs import lifecycle, model_file
-from service.jobs.plans import LoadedPlan, plan_for_job
-from service.jobs.scores import load_book
+from service.jobs import lifecycle
+from service.jobs.execution.plans import LoadedPlan, plan_for_job
+from service.jobs.execution.scores import load_book
+from service.jobs.handover import model_file
 from service.store.db import insert_ignoring_duplicates
 from service.store.models import FinalModel, FoldPrediction, FoldScore, Job, WorkUnit
 from service.store.statuses import UnitStatus

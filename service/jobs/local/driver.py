@@ -21,20 +21,14 @@ from sqlalchemy.orm import Session, sessionmaker
 from threadpoolctl import threadpool_limits
 
 from service.config import Settings
-from service.jobs.curves import (
-    CURVE_KIND,
-    PreparedCurve,
-    child_ids,
-    create_submission,
-    prepare_submission,
-    settle_curve,
-)
-from service.jobs.execute import UnitReport, worker_name
+from service.jobs.curves.prepare import PreparedCurve, create_submission, prepare_submission
+from service.jobs.curves.settle import CURVE_KIND, child_ids, settle_curve
+from service.jobs.execution.execute import UnitReport, worker_name
+from service.jobs.execution.plans import LoadedPlan, remember
+from service.jobs.execution.work import run_and_advance
+from service.jobs.intake.prepare import PreparedJob
+from service.jobs.intake.start import start_submitted
 from service.jobs.lifecycle import cancel_job, queued_unit_ids
-from service.jobs.plans import LoadedPlan, remember
-from service.jobs.prepare import PreparedJob
-from service.jobs.start import start_submitted
-from service.jobs.work import run_and_advance
 from service.processes import die_with_parent, stop_pool
 from service.store.db import dispose_after_fork, make_engine, make_session_factory, upgrade_database
 from service.store.models import Job

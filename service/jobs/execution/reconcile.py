@@ -16,9 +16,9 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
 from service.jobs import lifecycle
-from service.jobs.curves import settle_live_curves
+from service.jobs.curves.settle import settle_live_curves
+from service.jobs.intake.start import start_if_settled
 from service.jobs.lifecycle import MAX_ATTEMPTS
-from service.jobs.start import start_if_settled
 from service.store.db import utcnow
 from service.store.models import Job, WorkUnit
 from service.store.statuses import LIVE_JOB, UnitStatus
@@ -97,7 +97,7 @@ def _stalled(session: Session) -> list[str]:
         session.scalars(
             select(Job.id).where(
                 # queued with nothing open: every unit came from the store and the creator did
-                # not get to start it (start.start_submitted)
+                # not get to start it (intake.start.start_submitted)
                 Job.status.in_(LIVE_JOB),
                 Job.stage.in_(("inner", "outer")),
                 open_units == 0,
