@@ -12,7 +12,6 @@ status is written in one module and the webhook notice cannot be forgotten on on
 
 from __future__ import annotations
 
-from collections.abc import Iterable
 from datetime import timedelta
 from typing import Any
 
@@ -149,7 +148,7 @@ def start_job(session: Session, job_id: str) -> None:
     )
 
 
-def _cancel_queued_units(session: Session, job_ids: Iterable[str] | Any) -> None:
+def _cancel_queued_units(session: Session, job_ids: list[str]) -> None:
     session.execute(
         update(WorkUnit)
         .where(WorkUnit.job_id.in_(job_ids), WorkUnit.status == UnitStatus.QUEUED)
