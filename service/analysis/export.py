@@ -20,8 +20,8 @@ from pydantic import TypeAdapter
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.auth import Principal
-from service.jobs.fold_rows import EXTRA_COLUMNS, FoldContext
-from service.jobs.service import foreign_job_ids
+from service.jobs.handover.fold_rows import EXTRA_COLUMNS, FoldContext
+from service.jobs.queries.jobs import foreign_job_ids
 from service.store.models import FoldScore
 
 PAGE = 1000

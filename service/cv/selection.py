@@ -14,7 +14,8 @@ from typing import Any
 import numpy as np
 
 from service.cv.candidates import Candidate
-from service.cv.plan import FINAL_SCOPE, SelectionPlan
+from service.cv.plan import SelectionPlan
+from service.cv.scopes import FINAL_SCOPE
 
 ScoreBook = dict[tuple[str, str, str], float]
 

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import hashlib
-import re
 from dataclasses import dataclass
 
 import numpy as np
@@ -18,23 +17,8 @@ from sklearn.model_selection import (
 from sklearn.model_selection._split import BaseCrossValidator
 
 from service.cv.errors import SpecError
+from service.cv.scopes import outer_scope
 from service.cv.spec import SplitSpec
-
-# no leading zeros: a scope parses only if formatting its numbers gives it back
-_OUTER_SCOPE = re.compile(r"r(0|[1-9]\d*)f(0|[1-9]\d*)")
-
-
-def outer_scope(repeat: int, fold: int) -> str:
-    """The scope of outer fold `fold` of repeat `repeat`: 'r{repeat}f{fold}'."""
-    return f"r{repeat}f{fold}"
-
-
-def parse_outer_scope(scope: str) -> tuple[int, int]:
-    """(repeat, fold) of an outer fold's scope; ValueError for any other scope (e.g. 'all')."""
-    match = _OUTER_SCOPE.fullmatch(scope)
-    if match is None:
-        raise ValueError(f"{scope!r} is not an outer fold scope like 'r0f2'")
-    return int(match[1]), int(match[2])
 
 
 @dataclass(frozen=True)

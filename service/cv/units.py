@@ -16,9 +16,10 @@ from typing import Any, Literal
 
 from service.cv.candidates import Candidate
 from service.cv.metrics import make_scorer_set
-from service.cv.plan import FINAL_SCOPE, SelectionPlan
+from service.cv.plan import SelectionPlan
 from service.cv.predictions import capture, score_stored
 from service.cv.preprocess import build_pipeline
+from service.cv.scopes import FINAL_SCOPE
 from service.cv.splits import Fold
 from service.cv.weights import fit_model
 

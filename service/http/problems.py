@@ -16,7 +16,7 @@ from starlette.exceptions import HTTPException as StarletteHTTPException
 from starlette.routing import Match
 
 from service.errors import BadInput, Conflict, MissingScope, NotFound
-from service.jobs.request import field_path
+from service.jobs.intake.request import field_path
 
 log = logging.getLogger(__name__)
 

@@ -26,7 +26,8 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
-from service.cv.plan import FINAL_SCOPE
+from service.cv.scopes import FINAL_SCOPE
+from service.store.statuses import JobStatus, UnitStatus
 from service.store.types import (
     CreatedAt,
     Hash64,
@@ -38,15 +39,17 @@ from service.store.types import (
     UtcDateTime,
 )
 
-JOB_STATUSES = ("queued", "running", "succeeded", "failed", "cancelled")
+JOB_STATUSES = tuple(JobStatus)
 JOB_STAGES = ("inner", "outer", "aggregating", "done")
 FOLD_ROLES = ("outer", "inner", "final_inner")
 UNIT_KINDS = ("inner", "outer_refit", "final_refit")
-UNIT_STATUSES = ("queued", "running", "done", "failed", "cancelled")
+UNIT_STATUSES = tuple(UnitStatus)
 
 
 def _one_of(column: str, values: tuple[str, ...]) -> str:
-    return f"{column} IN ({', '.join(repr(v) for v in values)})"
+    # repr of the plain string: an enum member's own repr is not SQL (the text must not change,
+    # or the stored constraints would differ from the models without a migration)
+    return f"{column} IN ({', '.join(repr(str(v)) for v in values)})"
 
 
 def _scope_matches(repeat: str, fold: str) -> str:
@@ -226,7 +229,9 @@ class WorkUnit(Base):
     outer_repeat: Mapped[int | None]
     outer_fold: Mapped[int | None]
     candidate_key: Mapped[Hash64] = mapped_column(ForeignKey("candidate.candidate_key"))
-    status: Mapped[Short] = mapped_column(default="queued", server_default="queued")
+    status: Mapped[Short] = mapped_column(
+        default=UnitStatus.QUEUED, server_default=str(UnitStatus.QUEUED)
+    )
     attempts: Mapped[int] = mapped_column(default=0, server_default="0")
     lease_until: Mapped[datetime | None]
     worker: Mapped[str | None] = mapped_column(String(200))

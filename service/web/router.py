@@ -16,7 +16,7 @@ from sqlalchemy import select
 from service.errors import NotFound
 from service.http.deps import SessionsDep
 from service.http.origin import cross_site_reason
-from service.jobs.service import get_job, job_query
+from service.jobs.queries.jobs import get_job, job_query
 from service.store.models import Dataset
 from service.web import dataset_view, handover_view, views
 from service.web.compare_view import compare_page

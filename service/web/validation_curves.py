@@ -8,8 +8,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
-from service.cv.plan import FINAL_SCOPE
-from service.cv.splits import parse_outer_scope
+from service.cv.scopes import FINAL_SCOPE, parse_outer_scope
 from service.web.queries import CandidateRow, InnerCell
 from service.web.svg import Point
 

@@ -15,7 +15,7 @@ import pytest
 from service.analysis import export, queries
 from service.api.jobs.schemas import FoldScorePublic
 from service.auth import Principal
-from service.jobs.fold_rows import EXTRA_COLUMNS
+from service.jobs.handover.fold_rows import EXTRA_COLUMNS
 
 from .conftest import Seeded
 

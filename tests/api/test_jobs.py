@@ -11,7 +11,7 @@ from typing import Any
 import pytest
 
 from service.config import load_settings
-from service.jobs.embedded import run_embedded
+from service.jobs.local.driver import run_embedded
 
 from .server import IRIS_REQUEST, Server
 

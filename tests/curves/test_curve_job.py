@@ -15,8 +15,8 @@ from service.cv.plan import build_plan
 from service.cv.spec import SelectionSpec
 from service.cv.subsample import kept_count
 from service.datasets.sources import DatasetSource, load_table
-from service.jobs.embedded import JobFailed, run_embedded
-from service.jobs.reconcile import reconcile
+from service.jobs.execution.reconcile import reconcile
+from service.jobs.local.driver import JobFailed, run_embedded
 from service.store.db import make_engine, make_session_factory
 from service.store.models import Job, WorkUnit
 

@@ -5,9 +5,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from service.cv.plan import FINAL_SCOPE
+from service.cv.scopes import FINAL_SCOPE, outer_scope, parse_outer_scope
 from service.cv.spec import SplitSpec
-from service.cv.splits import SplitInputs, outer_scope, parse_outer_scope, split_rows
+from service.cv.splits import SplitInputs, split_rows
 
 
 @pytest.mark.parametrize(("repeat", "fold"), [(0, 0), (0, 9), (3, 12), (10, 0)])

@@ -18,7 +18,8 @@ import numpy as np
 import pytest
 
 from service.cv.nested import NestedOutcome, record, run_nested
-from service.cv.plan import FINAL_SCOPE, SelectionPlan
+from service.cv.plan import SelectionPlan
+from service.cv.scopes import FINAL_SCOPE
 from service.cv.selection import ScoreBook, inner_means
 from service.cv.units import fit_and_score, inner_units
 

@@ -2,8 +2,7 @@
 
 from __future__ import annotations
 
-from service.cv.plan import FINAL_SCOPE
-from service.cv.splits import outer_scope
+from service.cv.scopes import FINAL_SCOPE, outer_scope
 from service.web import validation_curves as curves
 
 

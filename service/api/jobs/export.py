@@ -9,8 +9,8 @@ from sqlalchemy.orm import Session, sessionmaker
 from service.analysis.export import COLUMNS, csv_chunks
 from service.api.jobs.schemas import FoldScorePublic
 from service.auth import Principal
-from service.jobs.fold_rows import FoldContext, describe_score, fold_context
-from service.jobs.service import fold_scores_page, foreign_job_ids
+from service.jobs.handover.fold_rows import FoldContext, describe_score, fold_context
+from service.jobs.queries.jobs import fold_scores_page, foreign_job_ids
 from service.store.models import FoldScore, Job
 
 

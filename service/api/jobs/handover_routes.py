@@ -21,10 +21,11 @@ from service.http.json_body import StrictJsonRoute
 from service.http.limits import MAX_SQL_INT
 from service.http.problems import ProblemError, problem_responses
 from service.http.streams import attachment
-from service.jobs import model_file, service
-from service.jobs.model_card import card_markdown, model_card
-from service.jobs.outer_predictions import NotReady, require_result
-from service.jobs.plans import plan_for_job
+from service.jobs.execution.plans import plan_for_job
+from service.jobs.handover import model_file
+from service.jobs.handover.model_card import card_markdown, model_card
+from service.jobs.handover.outer_predictions import NotReady, require_result
+from service.jobs.queries import jobs as job_queries
 from service.store.models import FinalModel, Job
 
 router = APIRouter(prefix="/v1/jobs", tags=["handover"], route_class=StrictJsonRoute)
@@ -59,7 +60,7 @@ class PredictionPage(BaseModel):
 
 
 def _job(session: Any, job_id: str, principal: Any, what: str) -> tuple[Job, dict[str, Any]]:
-    job = service.get_job(session, job_id, principal)
+    job = job_queries.get_job(session, job_id, principal)
     try:
         return job, require_result(job, what)
     except NotReady as exc:

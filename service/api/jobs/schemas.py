@@ -1,4 +1,4 @@
-"""What the job routes send (the request body is job request v1, service.jobs.request)."""
+"""What the job routes send (the request body is job request v1, service.jobs.intake.request)."""
 
 from __future__ import annotations
 

@@ -15,8 +15,8 @@ from service.cv.cautions import find_cautions
 from service.cv.selection import Pick as EnginePick
 from service.cv.selection import ScoreBook, assemble
 from service.cv.slices import slice_estimates
-from service.jobs.outer_predictions import NotReady, all_outer
-from service.jobs.plans import LoadedPlan
+from service.jobs.execution.plans import LoadedPlan
+from service.jobs.handover.outer_predictions import NotReady, all_outer
 from service.store.db import utcnow
 from service.store.models import FinalModel, FoldScore, Job, WorkUnit
 

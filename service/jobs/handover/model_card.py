@@ -14,8 +14,8 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
-from service.jobs.model_file import MEDIA_TYPE, SUFFIX, untrusted_types_of
-from service.jobs.outer_predictions import require_result
+from service.jobs.handover.model_file import MEDIA_TYPE, SUFFIX, untrusted_types_of
+from service.jobs.handover.outer_predictions import require_result
 from service.store.models import Dataset, FinalModel, Job
 
 

@@ -11,15 +11,12 @@ import socket
 import time
 import traceback
 from dataclasses import dataclass
-from datetime import timedelta
 from pathlib import Path
-from typing import Any
 
-from sqlalchemy import CursorResult, func, or_, select, update
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
-from service.cv.plan import FINAL_SCOPE
+from service.cv.scopes import FINAL_SCOPE
 from service.cv.selection import pick
 from service.cv.units import (
     NonFiniteScore,
@@ -28,16 +25,13 @@ from service.cv.units import (
     UnitRef,
     fit_and_score,
 )
-from service.jobs import model_file
-from service.jobs.plans import LoadedPlan, plan_for_job
-from service.jobs.scores import load_book
-from service.notify.outbox import queue_job_notice
-from service.store.db import insert_ignoring_duplicates, utcnow
+from service.jobs import lifecycle
+from service.jobs.execution.plans import LoadedPlan, plan_for_job
+from service.jobs.execution.scores import load_book
+from service.jobs.handover import model_file
+from service.store.db import insert_ignoring_duplicates
 from service.store.models import FinalModel, FoldPrediction, FoldScore, Job, WorkUnit
-
-# A claim is a lease (settings.unit_lease): a copy that has not finished by then is presumed
-# dead and the unit may be claimed again, at most this many times in all.
-MAX_ATTEMPTS = 3
+from service.store.statuses import UnitStatus
 
 
 @dataclass(frozen=True)
@@ -46,7 +40,7 @@ class UnitReport:
 
     unit_id: int
     job_id: str | None
-    status: str
+    status: str  # a UnitStatus, or "skipped"
     fits: int = 0
     # True when this unit was the last open one of its job: the caller should fan in
     stage_complete: bool = False
@@ -55,36 +49,6 @@ class UnitReport:
 def worker_name() -> str:
     """host:pid, recorded beside every score this process writes."""
     return f"{socket.gethostname()}:{os.getpid()}"
-
-
-def claim_unit(session: Session, unit_id: int, worker: str, lease: timedelta) -> bool:
-    """Move a unit to running if it is queued or its lease expired; False means a duplicate."""
-    now = utcnow()
-    claimed: CursorResult[Any] = session.execute(  # type: ignore[assignment]
-        update(WorkUnit)
-        .where(
-            WorkUnit.id == unit_id,
-            or_(
-                WorkUnit.status == "queued",
-                (WorkUnit.status == "running") & (WorkUnit.lease_until < now),
-            ),
-            WorkUnit.attempts < MAX_ATTEMPTS,
-            # a cancelled or failed job's message is dropped here, before any fit
-            WorkUnit.job_id.in_(
-                select(Job.id).where(
-                    Job.cancel_requested.is_(False), Job.status.in_(("queued", "running"))
-                )
-            ),
-        )
-        .values(
-            status="running",
-            attempts=WorkUnit.attempts + 1,
-            lease_until=now + lease,
-            worker=worker,
-            started_at=now,
-        )
-    )
-    return claimed.rowcount == 1
 
 
 class _CancelCheck:
@@ -100,8 +64,7 @@ class _CancelCheck:
             return False
         self.checked_at = now
         with self.sessions() as session:
-            job = session.get_one(Job, self.job_id)
-            return bool(job.cancel_requested) or job.status in ("failed", "cancelled")
+            return lifecycle.is_stopped(session.get_one(Job, self.job_id))
 
 
 def _save_model(outcome: UnitOutcome, settings: Settings) -> tuple[str, Path, int]:
@@ -189,37 +152,20 @@ def unit_seed(loaded: LoadedPlan, candidate_key: str) -> int | None:
 
 
 def _finish(
-    sessions: sessionmaker[Session],
-    unit_id: int,
-    status: str,
-    error: str | None,
-    fits: int = 0,
-    seconds: float | None = None,
+    sessions: sessionmaker[Session], unit_id: int, status: UnitStatus, error: str | None = None
 ) -> None:
     with sessions.begin() as session:
         unit = session.get_one(WorkUnit, unit_id)
-        unit.status, unit.error, unit.finished_at = status, error, utcnow()
-        unit.fits, unit.seconds = fits, seconds
-        if status == "failed":
-            first_line = (error or "").strip().splitlines()[-1] if error else "unknown error"
-            ended = session.scalar(
-                update(Job)
-                .where(Job.id == unit.job_id, Job.status.in_(("queued", "running")))
-                .values(
-                    status="failed",
-                    finished_at=utcnow(),
-                    error=f"unit {unit_id} ({unit.kind} {unit.scope}) failed: {first_line}",
-                )
-                .returning(Job.id)
-            )
-            if ended is not None:  # this call made the job fail: its notice goes with it
-                queue_job_notice(session, ended)
-            # the job cannot succeed any more: units not yet started need not start
-            session.execute(
-                update(WorkUnit)
-                .where(WorkUnit.job_id == unit.job_id, WorkUnit.status == "queued")
-                .values(status="cancelled")
-            )
+        if status == UnitStatus.CANCELLED:
+            lifecycle.unit_cancelled(unit)
+            return
+        first_line = (error or "").strip().splitlines()[-1] if error else "unknown error"
+        lifecycle.unit_failed(
+            session,
+            unit,
+            error or "unknown error",
+            job_error=f"unit {unit_id} ({unit.kind} {unit.scope}) failed: {first_line}",
+        )
 
 
 def execute_unit(
@@ -227,36 +173,27 @@ def execute_unit(
 ) -> UnitReport:
     """Claim, run and record unit `unit_id`; never raises for a failing fit."""
     with sessions.begin() as session:
-        if not claim_unit(session, unit_id, worker, settings.unit_lease):
+        if not lifecycle.claim_unit(session, unit_id, worker, settings.unit_lease):
             return UnitReport(unit_id, None, "skipped")
         unit = session.get_one(WorkUnit, unit_id)
         job_id = unit.job_id
         ref = UnitRef(unit.kind, unit.scope, unit.candidate_key)  # type: ignore[arg-type]
-        session.execute(
-            update(Job)
-            .where(Job.id == job_id, Job.status == "queued")
-            .values(status="running", started_at=utcnow())
-        )
+        lifecycle.start_job(session, job_id)
     try:
         with sessions() as session:
             loaded = plan_for_job(session, job_id, settings)
         outcome = fit_and_score(loaded.plan, ref, _CancelCheck(sessions, job_id))
     except UnitCancelled:
-        _finish(sessions, unit_id, "cancelled", None)
-        return UnitReport(unit_id, job_id, "cancelled")
+        _finish(sessions, unit_id, UnitStatus.CANCELLED)
+        return UnitReport(unit_id, job_id, UnitStatus.CANCELLED)
     except NonFiniteScore as exc:  # its sentence is the whole story: no traceback to read
-        _finish(sessions, unit_id, "failed", str(exc))
-        return UnitReport(unit_id, job_id, "failed")
+        _finish(sessions, unit_id, UnitStatus.FAILED, str(exc))
+        return UnitReport(unit_id, job_id, UnitStatus.FAILED)
     except Exception:
-        _finish(sessions, unit_id, "failed", traceback.format_exc())
-        return UnitReport(unit_id, job_id, "failed")
+        _finish(sessions, unit_id, UnitStatus.FAILED, traceback.format_exc())
+        return UnitReport(unit_id, job_id, UnitStatus.FAILED)
     with sessions.begin() as session:
         unit = session.get_one(WorkUnit, unit_id)
         _record(session, unit, outcome, loaded, settings, worker)
-        unit.status, unit.finished_at = "done", utcnow()
-        unit.fits, unit.seconds = outcome.fits, outcome.seconds
-        session.execute(update(Job).where(Job.id == job_id).values(units_done=Job.units_done + 1))
-        still_open = session.scalar(
-            select(func.count()).where(WorkUnit.job_id == job_id, WorkUnit.status != "done")
-        )
-    return UnitReport(unit_id, job_id, "done", outcome.fits, stage_complete=not still_open)
+        last = lifecycle.unit_done(session, unit, fits=outcome.fits, seconds=outcome.seconds)
+    return UnitReport(unit_id, job_id, UnitStatus.DONE, outcome.fits, stage_complete=last)

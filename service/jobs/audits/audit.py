@@ -21,7 +21,7 @@ from service.config import Settings
 from service.cv.plan import library_versions
 from service.cv.units import UnitRef, fit_and_score
 from service.errors import BadInput
-from service.jobs.plans import plan_for_job
+from service.jobs.execution.plans import plan_for_job
 from service.store.db import utcnow
 from service.store.models import Audit, FoldScore, Job, WorkUnit
 

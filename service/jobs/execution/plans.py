@@ -12,7 +12,7 @@ from sqlalchemy.orm import Session
 from service.config import Settings
 from service.cv.plan import SelectionPlan, build_plan
 from service.datasets.store import read_table_cached
-from service.jobs.request import JobRequest
+from service.jobs.intake.request import JobRequest
 from service.store.models import Dataset, Job, JobFold
 
 _CACHE: OrderedDict[str, LoadedPlan] = OrderedDict()

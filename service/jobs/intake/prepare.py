@@ -17,7 +17,7 @@ from service.datasets.sources import LoadedTable, load_table
 from service.datasets.sql_source import SqlAccess
 from service.datasets.store import read_table
 from service.errors import BadInput
-from service.jobs.request import JobRequest, parse_job_request
+from service.jobs.intake.request import JobRequest, parse_job_request
 from service.store.models import Dataset
 
 

@@ -10,16 +10,16 @@ from sqlalchemy import insert
 from sqlalchemy.orm import Session
 
 from service.config import Settings
-from service.cv.plan import FINAL_SCOPE
+from service.cv.scopes import FINAL_SCOPE, parse_outer_scope
 from service.cv.splits import Fold as PlanFold
-from service.cv.splits import parse_outer_scope
 from service.cv.units import inner_units
 from service.datasets.store import save_table
-from service.jobs.plans import LoadedPlan
-from service.jobs.prepare import PreparedJob
-from service.jobs.reuse import reuse_stored
+from service.jobs.execution.plans import LoadedPlan
+from service.jobs.execution.reuse import reuse_stored
+from service.jobs.intake.prepare import PreparedJob
 from service.store.db import insert_ignoring_duplicates
 from service.store.models import Candidate, Dataset, Fold, Job, JobCandidate, JobFold, WorkUnit
+from service.store.statuses import JobStatus, UnitStatus
 
 
 def _mask(indices: np.ndarray, n_rows: int) -> bytes:
@@ -88,7 +88,7 @@ def unit_row(job_id: str, kind: str, scope: str, candidate_key: str) -> dict[str
         "outer_repeat": repeat,
         "outer_fold": fold,
         "candidate_key": candidate_key,
-        "status": "queued",
+        "status": UnitStatus.QUEUED,
     }
 
 
@@ -143,7 +143,7 @@ def create_job(
         Job(
             id=job_id,
             dataset_hash=table.content_hash,
-            status="queued",
+            status=JobStatus.QUEUED,
             stage="inner",
             request=prepared.request.model_dump(mode="json"),
             units_total=len(first_units) + len(plan.outer) + 1,
@@ -163,7 +163,7 @@ def create_job(
     )
     if prepared.request.reuse:
         # units the store already answers are done now; if all are, the caller must call
-        # reuse.start_if_settled after its commit (no unit will finish to trigger the fan-in)
+        # intake.start.start_submitted after its commit (no unit will finish to trigger the fan-in)
         loaded = LoadedPlan(plan, table.frame, dict(table.kinds), table.content_hash)
         reuse_stored(session, job_id, loaded)
     return job_id

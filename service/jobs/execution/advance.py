@@ -9,46 +9,26 @@ from __future__ import annotations
 
 from typing import Any
 
-from sqlalchemy import CursorResult, func, insert, select, update
+from sqlalchemy import CursorResult, insert, update
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
 from service.cv.nested import refit_units
 from service.cv.selection import pick
-from service.jobs.plans import plan_for_job
-from service.jobs.result import build_result
-from service.jobs.reuse import reuse_stored
-from service.jobs.scores import load_book
-from service.jobs.submit import unit_row
-from service.notify.outbox import queue_job_notice
-from service.store.db import utcnow
+from service.jobs import lifecycle
+from service.jobs.execution.plans import plan_for_job
+from service.jobs.execution.result import build_result
+from service.jobs.execution.reuse import reuse_stored
+from service.jobs.execution.scores import load_book
+from service.jobs.intake.create import unit_row
 from service.store.models import Job, Pick, WorkUnit
-
-
-def _open_units(session: Session, job_id: str) -> int:
-    return int(
-        session.scalar(
-            select(func.count()).where(WorkUnit.job_id == job_id, WorkUnit.status != "done")
-        )
-        or 0
-    )
-
-
-def queued_ids(session: Session, job_id: str) -> list[int]:
-    """The job's units still waiting to run, in id order."""
-    return list(
-        session.scalars(
-            select(WorkUnit.id)
-            .where(WorkUnit.job_id == job_id, WorkUnit.status == "queued")
-            .order_by(WorkUnit.id)
-        )
-    )
+from service.store.statuses import JobStatus
 
 
 def _elect(session: Session, job_id: str, from_stage: str, to_stage: str) -> bool:
     moved: CursorResult[Any] = session.execute(  # type: ignore[assignment]
         update(Job)
-        .where(Job.id == job_id, Job.stage == from_stage, Job.status == "running")
+        .where(Job.id == job_id, Job.stage == from_stage, Job.status == JobStatus.RUNNING)
         .values(stage=to_stage)
     )
     return moved.rowcount == 1
@@ -59,15 +39,17 @@ def advance_job(sessions: sessionmaker[Session], job_id: str, settings: Settings
     with sessions.begin() as session:
         job = session.get_one(Job, job_id)
         # a learning curve's parent has no units: its children settle it (jobs.curves)
-        if job.status != "running" or job.kind != "selection" or _open_units(session, job_id):
+        if (
+            job.status != JobStatus.RUNNING
+            or job.kind != "selection"
+            or lifecycle.units_not_done(session, job_id)
+        ):
             return []
         loaded = plan_for_job(session, job_id, settings)
         if job.stage == "outer" and _elect(session, job_id, "outer", "aggregating"):
             book = load_book(session, loaded)
             picks = {scope: pick(loaded.plan, scope, book) for scope in loaded.plan.scopes}
-            job.result = build_result(session, job, loaded, book, picks)
-            job.status, job.stage, job.finished_at = "succeeded", "done", utcnow()
-            queue_job_notice(session, job_id)
+            lifecycle.succeed_job(session, job, build_result(session, job, loaded, book, picks))
             return []
         if job.stage != "inner" or not _elect(session, job_id, "inner", "outer"):
             return []
@@ -86,7 +68,7 @@ def advance_job(sessions: sessionmaker[Session], job_id: str, settings: Settings
         rows = [unit_row(job_id, r.kind, r.scope, r.candidate_key) for r in refit_units(picks)]
         ids = list(session.scalars(insert(WorkUnit).returning(WorkUnit.id), rows))
         if job.request.get("reuse", True) and reuse_stored(session, job_id, loaded):
-            ids = queued_ids(session, job_id)
+            ids = lifecycle.queued_unit_ids(session, job_id)
     if ids:
         return ids
     # every refit came from the store: no unit will finish to trigger the last move

@@ -16,7 +16,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.auth import Action, Principal, reaches_every_team
-from service.jobs.service import OTHER_TEAM, foreign_job_ids
+from service.jobs.queries.jobs import OTHER_TEAM, foreign_job_ids
 from service.store.models import (
     Audit,
     Candidate,

@@ -15,7 +15,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.cv.predictions import StoredPredictions
 from service.cv.slices import OuterPredictions
-from service.jobs.plans import LoadedPlan
+from service.jobs.execution.plans import LoadedPlan
 from service.store.models import FoldPrediction, Job
 
 

@@ -6,7 +6,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.cv.selection import ScoreBook
-from service.jobs.plans import LoadedPlan, fold_fingerprints
+from service.jobs.execution.plans import LoadedPlan, fold_fingerprints
 from service.store.models import FoldScore
 
 

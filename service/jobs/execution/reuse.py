@@ -17,17 +17,18 @@ from pathlib import Path
 from typing import Any
 
 from sqlalchemy import select, update
-from sqlalchemy.orm import Session, sessionmaker
+from sqlalchemy.orm import Session
 
-from service.config import Settings
-from service.cv.plan import FINAL_SCOPE
 from service.cv.predictions import StoredPredictions, score_stored
+from service.cv.scopes import FINAL_SCOPE
 from service.cv.selection import pick
 from service.cv.units import UnitRef, unit_folds
-from service.jobs.plans import LoadedPlan
-from service.jobs.scores import load_book
-from service.store.db import insert_ignoring_duplicates, utcnow
+from service.jobs import lifecycle
+from service.jobs.execution.plans import LoadedPlan
+from service.jobs.execution.scores import load_book
+from service.store.db import insert_ignoring_duplicates
 from service.store.models import FinalModel, FoldPrediction, FoldScore, Job, JobFold, WorkUnit
+from service.store.statuses import UnitStatus
 
 # written beside scores computed from stored predictions rather than by a fit
 FROM_PREDICTIONS = "stored-predictions"
@@ -131,17 +132,11 @@ def _earlier_model(session: Session, loaded: LoadedPlan, candidate_key: str) -> 
     return next((m for m in candidates if Path(m.path).is_file()), None)
 
 
-def _mark_reused(unit: WorkUnit, source_job_id: str) -> None:
-    now = utcnow()
-    unit.status, unit.reused, unit.source_job_id = "done", True, source_job_id
-    unit.fits, unit.seconds, unit.started_at, unit.finished_at = 0, 0.0, now, now
-
-
 def reuse_stored(session: Session, job_id: str, loaded: LoadedPlan) -> int:
     """Mark the job's queued units that the store already answers as done; returns how many."""
     units = list(
         session.scalars(
-            select(WorkUnit).where(WorkUnit.job_id == job_id, WorkUnit.status == "queued")
+            select(WorkUnit).where(WorkUnit.job_id == job_id, WorkUnit.status == UnitStatus.QUEUED)
         )
     )
     scored = [u for u in units if u.kind != "final_refit"]
@@ -169,7 +164,7 @@ def reuse_stored(session: Session, job_id: str, loaded: LoadedPlan) -> int:
                     }
                 ],
             )
-            _mark_reused(unit, model.job_id)
+            lifecycle.unit_reused(unit, model.job_id)
             reused += 1
             continue
         keys = [
@@ -179,41 +174,17 @@ def reuse_stored(session: Session, job_id: str, loaded: LoadedPlan) -> int:
         ]
         missing = [(key[0], key[2]) for key in keys if key not in have]
         if not missing:
-            _mark_reused(unit, Counter(have[k] for k in keys).most_common(1)[0][0])
+            lifecycle.unit_reused(unit, Counter(have[k] for k in keys).most_common(1)[0][0])
             reused += 1
             continue
         served = _from_predictions(session, loaded, unit, missing)
         if served is not None:
             rows, source = served
             insert_ignoring_duplicates(session, FoldScore, rows)
-            _mark_reused(unit, source)
+            lifecycle.unit_reused(unit, source)
             reused += 1
     if reused:
         session.execute(
             update(Job).where(Job.id == job_id).values(units_done=Job.units_done + reused)
         )
     return reused
-
-
-def start_if_settled(sessions: sessionmaker[Session], job_id: str, settings: Settings) -> list[int]:
-    """Move on a job whose created units were all taken from the store; returns units to run.
-
-    A stage complete at creation has no unit whose finish would trigger the fan-in, so whoever
-    created the job calls this right after its commit.
-    """
-    from service.jobs.advance import advance_job  # advance imports this module
-
-    with sessions.begin() as session:
-        open_units = session.scalars(
-            select(WorkUnit.id).where(
-                WorkUnit.job_id == job_id, WorkUnit.status.in_(("queued", "running"))
-            )
-        ).first()
-        if open_units is not None:
-            return []
-        session.execute(
-            update(Job)
-            .where(Job.id == job_id, Job.status == "queued")
-            .values(status="running", started_at=utcnow())
-        )
-    return advance_job(sessions, job_id, settings)

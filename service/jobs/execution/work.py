@@ -5,9 +5,9 @@ from __future__ import annotations
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
-from service.jobs.advance import advance_job
-from service.jobs.curves import settle_parent
-from service.jobs.execute import UnitReport, execute_unit
+from service.jobs.curves.settle import settle_parent
+from service.jobs.execution.advance import advance_job
+from service.jobs.execution.execute import UnitReport, execute_unit
 
 
 def run_and_advance(

@@ -11,16 +11,17 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import timedelta
 
-from sqlalchemy import and_, func, or_, select, update
+from sqlalchemy import and_, func, or_, select
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
-from service.jobs.curves import settle_live_curves
-from service.jobs.execute import MAX_ATTEMPTS
-from service.jobs.reuse import start_if_settled
-from service.notify.outbox import queue_job_notice
+from service.jobs import lifecycle
+from service.jobs.curves.settle import settle_live_curves
+from service.jobs.intake.start import start_if_settled
+from service.jobs.lifecycle import MAX_ATTEMPTS
 from service.store.db import utcnow
 from service.store.models import Job, WorkUnit
+from service.store.statuses import LIVE_JOB, UnitStatus
 
 
 @dataclass(frozen=True)
@@ -38,7 +39,7 @@ def _give_up(session: Session) -> list[int]:
     dead = list(
         session.scalars(
             select(WorkUnit.id).where(
-                WorkUnit.status == "running",
+                WorkUnit.status == UnitStatus.RUNNING,
                 WorkUnit.lease_until < now,
                 WorkUnit.attempts >= MAX_ATTEMPTS,
             )
@@ -46,38 +47,23 @@ def _give_up(session: Session) -> list[int]:
     )
     for unit_id in dead:
         unit = session.get_one(WorkUnit, unit_id)
-        unit.status, unit.finished_at = "failed", now
         # every claim ended with the lease running out and nothing recorded: the process died
         # (a fit that raises, or the soft time limit, records its own failure instead)
-        unit.error = (
+        error = (
             f"the worker process running unit {unit_id} ({unit.kind} {unit.scope}) died "
             f"{unit.attempts} times (killed, out of memory, or stopped at the hard time limit "
             f"FOLDWISE_UNIT_TIME_LIMIT), last on {unit.worker or 'an unknown worker'}; "
             "see that machine's worker log."
         )
-        ended = session.scalar(
-            update(Job)
-            .where(Job.id == unit.job_id, Job.status.in_(("queued", "running")))
-            .values(status="failed", finished_at=now, error=unit.error)
-            .returning(Job.id)
-        )
-        if ended is not None:  # this call made the job fail: its notice goes with it
-            queue_job_notice(session, ended)
-        # the job cannot succeed any more: units not yet started need not start
-        session.execute(
-            update(WorkUnit)
-            .where(WorkUnit.job_id == unit.job_id, WorkUnit.status == "queued")
-            .values(status="cancelled")
-        )
+        # the same rule as a unit failing in a worker (lifecycle.fail_job)
+        lifecycle.unit_failed(session, unit, error, job_error=error)
     return dead
 
 
 def _lost(session: Session, settings: Settings) -> list[int]:
     now = utcnow()
     stale = now - timedelta(seconds=settings.republish_after)
-    live_jobs = select(Job.id).where(
-        Job.status.in_(("queued", "running")), Job.cancel_requested.is_(False)
-    )
+    live_jobs = select(Job.id).where(Job.status.in_(LIVE_JOB), Job.cancel_requested.is_(False))
     return list(
         session.scalars(
             select(WorkUnit.id)
@@ -85,11 +71,11 @@ def _lost(session: Session, settings: Settings) -> list[int]:
                 WorkUnit.job_id.in_(live_jobs),
                 or_(
                     and_(
-                        WorkUnit.status == "queued",
+                        WorkUnit.status == UnitStatus.QUEUED,
                         or_(WorkUnit.published_at.is_(None), WorkUnit.published_at < stale),
                     ),
                     and_(
-                        WorkUnit.status == "running",
+                        WorkUnit.status == UnitStatus.RUNNING,
                         WorkUnit.lease_until < now,
                         WorkUnit.attempts < MAX_ATTEMPTS,
                     ),
@@ -103,7 +89,7 @@ def _lost(session: Session, settings: Settings) -> list[int]:
 def _stalled(session: Session) -> list[str]:
     open_units = (
         select(func.count())
-        .where(WorkUnit.job_id == Job.id, WorkUnit.status != "done")
+        .where(WorkUnit.job_id == Job.id, WorkUnit.status != UnitStatus.DONE)
         .correlate(Job)
         .scalar_subquery()
     )
@@ -111,8 +97,8 @@ def _stalled(session: Session) -> list[str]:
         session.scalars(
             select(Job.id).where(
                 # queued with nothing open: every unit came from the store and the creator did
-                # not get to start it (reuse.start_if_settled)
-                Job.status.in_(("queued", "running")),
+                # not get to start it (intake.start.start_submitted)
+                Job.status.in_(LIVE_JOB),
                 Job.stage.in_(("inner", "outer")),
                 open_units == 0,
             )
