@@ -1,4 +1,4 @@
-"""The layers DESIGN.md draws, checked on the source: no import cycles, a pure engine, no workers.
+"""The layers DEVELOPERS.md draws, checked on the source: no cycles, a pure engine, no workers.
 
 The graph is read statically (ast over every .py file of `service`), so it also sees imports
 written inside functions, the usual way a cycle is hidden from the interpreter. `from service.x

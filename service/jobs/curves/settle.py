@@ -17,7 +17,7 @@ from typing import Any
 from sqlalchemy import exists, or_, select
 from sqlalchemy.orm import Session, aliased, sessionmaker
 
-from service.cv.selection import describe_values
+from service.cv.describe import describe_values
 from service.jobs import lifecycle
 from service.store.db import utcnow
 from service.store.models import Job
