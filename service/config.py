@@ -50,9 +50,15 @@ class Settings:
     max_columns: int = 2_000
     # one job's fits in all (service/cv/size.py), checked before any fold or candidate is built
     max_job_fits: int = 200_000
-    # hard time limit of one unit; the soft limit, the lease and the broker's visibility timeout
-    # are derived from it so that soft < hard < lease < visibility always holds
+    # hard time limit of one unit; the soft limit and the broker's visibility timeout are derived
+    # from it so that soft < hard < visibility always holds (Celery's bound on a runaway fit)
     unit_time_limit: int = 3_000
+    # a claim's lease, renewed by its holder every heartbeat_seconds whatever the time limit: a
+    # dead worker's unit is claimable lease_seconds after its last renewal (docs/reliability.md).
+    # Four heartbeats per lease: a holder rides out a few failed renewals (a database restart)
+    # before it must assume its claim is gone.
+    lease_seconds: float = 40.0
+    heartbeat_seconds: float = 10.0
     reconcile_seconds: float = 30.0
     republish_after: float = 300.0
     # webhooks: URL prefixes the operator allows (none: no webhooks), and the key team secrets
@@ -94,12 +100,12 @@ class Settings:
 
     @property
     def unit_lease(self) -> timedelta:
-        """How long a claim holds: past the hard limit, a second claim means the first died."""
-        return timedelta(seconds=self.unit_time_limit + 30)
+        """How long a claim holds past its last renewal before another worker may take it."""
+        return timedelta(seconds=self.lease_seconds)
 
     @property
     def visibility_timeout(self) -> int:
-        """Seconds before Redis redelivers an unacknowledged message (after the lease ends)."""
+        """Seconds before Redis redelivers an unacknowledged message (after the hard limit)."""
         return self.unit_time_limit + 60
 
 
@@ -165,6 +171,18 @@ def _sql_connections(raw: str | None) -> dict[str, SqlConnection]:
     return {str(key): _sql_connection(name, str(key), item) for key, item in value.items()}
 
 
+def _lease(env: dict[str, str]) -> tuple[float, float]:
+    lease = _number(env, "FOLDWISE_UNIT_LEASE", 40)
+    heartbeat = _number(env, "FOLDWISE_HEARTBEAT_SECONDS", 10)
+    if heartbeat * 2 > lease:
+        # fewer than two renewals per lease: one slow renewal would hand a live unit to another
+        raise BadInput(
+            "FOLDWISE_HEARTBEAT_SECONDS",
+            f"must be at most half of FOLDWISE_UNIT_LEASE ({lease:g} s), not {heartbeat:g}.",
+        )
+    return lease, heartbeat
+
+
 def load_settings(env: dict[str, str] | None = None) -> Settings:
     """Read the settings from `env` (default: the process environment)."""
     env = dict(os.environ) if env is None else env
@@ -175,6 +193,7 @@ def load_settings(env: dict[str, str] | None = None) -> Settings:
         for p in (env.get("FOLDWISE_DATA_ROOTS") or "").split(os.pathsep)
         if p.strip()
     )
+    lease, heartbeat = _lease(env)
     return Settings(
         home=home,
         database_url=database_url,
@@ -185,6 +204,8 @@ def load_settings(env: dict[str, str] | None = None) -> Settings:
         max_columns=int(_number(env, "FOLDWISE_MAX_COLUMNS", 2_000)),
         max_job_fits=int(_number(env, "FOLDWISE_MAX_JOB_FITS", 200_000)),
         unit_time_limit=int(_number(env, "FOLDWISE_UNIT_TIME_LIMIT", 3_000)),
+        lease_seconds=lease,
+        heartbeat_seconds=heartbeat,
         reconcile_seconds=_number(env, "FOLDWISE_RECONCILE_SECONDS", 30),
         republish_after=_number(env, "FOLDWISE_REPUBLISH_AFTER", 300),
         webhook_allow=tuple(

@@ -31,10 +31,13 @@ def _queue(name: str) -> Queue:
 
 def worker_options(settings: Settings) -> dict[str, Any]:
     """What a worker adds to the publisher's options (celery_options)."""
-    # soft < hard < lease < visibility timeout, all derived from settings.unit_time_limit: a
-    # unit that outlives the visibility timeout gets a concurrent twin (celery#5935), so the hard
-    # limit kills it first; the visibility timeout itself is in broker_transport_options.
+    # soft < hard < visibility timeout, derived from settings.unit_time_limit: the hard limit
+    # bounds a runaway fit and ends it before Redis would hand its message to a twin
+    # (celery#5935); the visibility timeout itself is in broker_transport_options. The claim's
+    # lease is separate and short: its holder renews it (service/jobs/execution/heartbeat.py),
+    # so a redelivered copy finds it live and is dropped by the claim.
     assert settings.soft_time_limit < settings.unit_time_limit < settings.visibility_timeout
+    assert 2 * settings.heartbeat_seconds <= settings.lease_seconds
     return {
         # each queue on its own direct exchange: left to the defaults, the control queue would
         # be bound to the unit queue's exchange and key, and receive copies of unit messages

@@ -12,6 +12,7 @@ status is written in one module and the webhook notice cannot be forgotten on on
 
 from __future__ import annotations
 
+import uuid
 from datetime import timedelta
 from typing import Any
 
@@ -23,9 +24,13 @@ from service.store.db import utcnow
 from service.store.models import Job, WorkUnit
 from service.store.statuses import LIVE_JOB, OPEN_UNIT, JobStatus, UnitStatus
 
-# A claim is a lease (settings.unit_lease): a copy that has not finished by then is presumed
-# dead and the unit may be claimed again, at most this many times in all.
+# A claim is a lease (settings.unit_lease) its holder renews on a heartbeat: a claim not renewed
+# in time is presumed dead and the unit may be claimed again, at most this many times in all.
 MAX_ATTEMPTS = 3
+
+
+class ClaimLost(Exception):
+    """This copy's claim on a unit is no longer its own: another copy took it over."""
 
 
 # -- queries every stage asks -------------------------------------------------------------------
@@ -66,9 +71,13 @@ def is_stopped(job: Job) -> bool:
 # -- units ------------------------------------------------------------------------------------
 
 
-def claim_unit(session: Session, unit_id: int, worker: str, lease: timedelta) -> bool:
-    """Move a unit to running if it is queued or its lease expired; False means a duplicate."""
+def claim_unit(session: Session, unit_id: int, worker: str, lease: timedelta) -> str | None:
+    """Move a unit to running if it is queued or its lease expired; the claim's token, or None.
+
+    None means a duplicate: the unit is done, failed, or running under a live lease.
+    """
     now = utcnow()
+    token = uuid.uuid4().hex  # fences every later write of this copy (renew_lease, unit_done)
     claimed: CursorResult[Any] = session.execute(  # type: ignore[assignment]
         update(WorkUnit)
         .where(
@@ -88,19 +97,48 @@ def claim_unit(session: Session, unit_id: int, worker: str, lease: timedelta) ->
             attempts=WorkUnit.attempts + 1,
             lease_until=now + lease,
             worker=worker,
+            claim_token=token,
             started_at=now,
         )
     )
-    return claimed.rowcount == 1
+    return token if claimed.rowcount == 1 else None
 
 
-def unit_done(session: Session, unit: WorkUnit, *, fits: int, seconds: float | None) -> bool:
-    """Record a fitted unit as done and count it; True when it was the job's last open unit."""
-    unit.status, unit.finished_at = UnitStatus.DONE, utcnow()
-    unit.fits, unit.seconds = fits, seconds
-    session.execute(update(Job).where(Job.id == unit.job_id).values(units_done=Job.units_done + 1))
-    session.flush()
-    return units_not_done(session, unit.job_id) == 0
+def _held(unit_id: int, token: str) -> Any:
+    # the fence: this claim is still the unit's current one and the unit has not ended
+    return (
+        (WorkUnit.id == unit_id)
+        & (WorkUnit.claim_token == token)
+        & (WorkUnit.status == UnitStatus.RUNNING)
+    )
+
+
+def renew_lease(session: Session, unit_id: int, token: str, lease: timedelta) -> bool:
+    """Extend this claim's lease from now; False when the claim is gone (taken over or ended)."""
+    renewed: CursorResult[Any] = session.execute(  # type: ignore[assignment]
+        update(WorkUnit).where(_held(unit_id, token)).values(lease_until=utcnow() + lease)
+    )
+    return renewed.rowcount == 1
+
+
+def unit_done(
+    session: Session, unit_id: int, token: str, *, fits: int, seconds: float | None
+) -> bool:
+    """Record a fitted unit as done and count it; True when it was the job's last open unit.
+
+    Raises ClaimLost when the claim is no longer this copy's: the caller's transaction (its
+    scores included) must roll back, so two copies of a unit can never both count.
+    """
+    moved: CursorResult[Any] = session.execute(  # type: ignore[assignment]
+        update(WorkUnit)
+        .where(_held(unit_id, token))
+        .values(status=UnitStatus.DONE, finished_at=utcnow(), fits=fits, seconds=seconds)
+    )
+    if moved.rowcount != 1:
+        raise ClaimLost(f"unit {unit_id}: this copy's claim was taken over; nothing recorded")
+    job_id = session.scalars(select(WorkUnit.job_id).where(WorkUnit.id == unit_id)).one()
+    session.execute(update(Job).where(Job.id == job_id).values(units_done=Job.units_done + 1))
+    return units_not_done(session, job_id) == 0
 
 
 def unit_reused(unit: WorkUnit, source_job_id: str) -> None:
@@ -110,13 +148,32 @@ def unit_reused(unit: WorkUnit, source_job_id: str) -> None:
     unit.fits, unit.seconds, unit.started_at, unit.finished_at = 0, 0.0, now, now
 
 
-def unit_cancelled(unit: WorkUnit) -> None:
-    """A running unit that stopped between fits because its job was cancelled or failed."""
-    unit.status, unit.error, unit.finished_at = UnitStatus.CANCELLED, None, utcnow()
+def claim_cancelled(session: Session, unit_id: int, token: str) -> bool:
+    """A claimed unit that stopped between fits (job cancelled or failed); False: not ours."""
+    moved: CursorResult[Any] = session.execute(  # type: ignore[assignment]
+        update(WorkUnit)
+        .where(_held(unit_id, token))
+        .values(status=UnitStatus.CANCELLED, error=None, finished_at=utcnow())
+    )
+    return moved.rowcount == 1
+
+
+def claim_failed(session: Session, unit_id: int, token: str, error: str, *, job_error: str) -> bool:
+    """A claimed unit that cannot finish fails, and its job with it; False: not ours, no change."""
+    moved: CursorResult[Any] = session.execute(  # type: ignore[assignment]
+        update(WorkUnit)
+        .where(_held(unit_id, token))
+        .values(status=UnitStatus.FAILED, error=error, finished_at=utcnow())
+    )
+    if moved.rowcount != 1:
+        return False
+    job_id = session.scalars(select(WorkUnit.job_id).where(WorkUnit.id == unit_id)).one()
+    fail_job(session, job_id, job_error)
+    return True
 
 
 def unit_failed(session: Session, unit: WorkUnit, error: str, *, job_error: str) -> None:
-    """A unit that cannot finish: it fails, and its job with it (`fail_job`)."""
+    """A unit given up on (no live claim): it fails, and its job with it (`fail_job`)."""
     unit.status, unit.error, unit.finished_at = UnitStatus.FAILED, error, utcnow()
     fail_job(session, unit.job_id, job_error)
 
@@ -130,6 +187,7 @@ def release_claims(session: Session, workers: list[str]) -> None:
             status=UnitStatus.QUEUED,
             lease_until=None,
             worker=None,
+            claim_token=None,
             # a shutdown is not a failed attempt
             attempts=WorkUnit.attempts - 1,
         )
@@ -179,9 +237,19 @@ def succeed_job(session: Session, job: Job, result: dict[str, Any]) -> None:
 
 
 def cancel_job(session: Session, job: Job) -> Job:
-    """Flag a queued or running job cancelled; units stop between fits, queued ones never start."""
-    if job.status in LIVE_JOB:
-        job.cancel_requested, job.status, job.finished_at = True, JobStatus.CANCELLED, utcnow()
+    """Flag a queued or running job cancelled; units stop between fits, queued ones never start.
+
+    One conditional UPDATE decides, not the loaded row: a unit failing the job at the same
+    moment (fail_job, equally conditional) and this cancel cannot both end it, so the job ends
+    failed or cancelled and exactly one notice is queued.
+    """
+    ended: CursorResult[Any] = session.execute(  # type: ignore[assignment]
+        update(Job)
+        .where(Job.id == job.id, Job.status.in_(LIVE_JOB))
+        .values(cancel_requested=True, status=JobStatus.CANCELLED, finished_at=utcnow())
+    )
+    session.refresh(job)
+    if ended.rowcount == 1:
         queue_job_notice(session, job.id)
         _cancel_queued_units(session, [job.id])
         for child in session.scalars(select(Job).where(Job.parent_id == job.id)).all():

@@ -235,6 +235,9 @@ class WorkUnit(Base):
     attempts: Mapped[int] = mapped_column(default=0, server_default="0")
     lease_until: Mapped[datetime | None]
     worker: Mapped[str | None] = mapped_column(String(200))
+    # a fresh random token per claim: renewals and the final record are conditional on it, so a
+    # copy whose claim lapsed and was taken over can neither extend nor record (fencing)
+    claim_token: Mapped[str | None] = mapped_column(String(32))
     error: Mapped[LongText | None]
     fits: Mapped[int] = mapped_column(default=0, server_default="0")
     seconds: Mapped[float | None]

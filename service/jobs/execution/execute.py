@@ -1,7 +1,9 @@
 """Running one work unit against the store: claim it, fit and score, record, release.
 
-The same function serves the local pool of the embedded default and (later) Celery tasks: it
-takes an id, opens its own sessions, and the database decides whether this copy may run.
+The same function serves the local pool of the embedded default and Celery tasks: it takes an
+id, opens its own sessions, and the database decides whether this copy may run. The claim is
+kept alive by a heartbeat while the unit runs, and every write after it is fenced on the claim's
+token, so a copy whose claim was taken over records nothing (docs/reliability.md).
 """
 
 from __future__ import annotations
@@ -13,6 +15,7 @@ import traceback
 from dataclasses import dataclass
 from pathlib import Path
 
+from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
@@ -26,12 +29,16 @@ from service.cv.units import (
     fit_and_score,
 )
 from service.jobs import lifecycle
+from service.jobs.execution.heartbeat import Heartbeat
 from service.jobs.execution.plans import LoadedPlan, plan_for_job
 from service.jobs.execution.scores import load_book
 from service.jobs.handover import model_file
 from service.store.db import insert_ignoring_duplicates
 from service.store.models import FinalModel, FoldPrediction, FoldScore, Job, WorkUnit
 from service.store.statuses import UnitStatus
+
+# a copy that claimed, then found its claim gone: it stopped and recorded nothing
+LOST = "lost"
 
 
 @dataclass(frozen=True)
@@ -40,7 +47,7 @@ class UnitReport:
 
     unit_id: int
     job_id: str | None
-    status: str  # a UnitStatus, or "skipped"
+    status: str  # a UnitStatus, "skipped" (never claimed) or "lost" (claim taken over)
     fits: int = 0
     # True when this unit was the last open one of its job: the caller should fan in
     stage_complete: bool = False
@@ -51,20 +58,29 @@ def worker_name() -> str:
     return f"{socket.gethostname()}:{os.getpid()}"
 
 
-class _CancelCheck:
-    """Asks the store whether the job was cancelled, at most once per `every` seconds."""
+class _StopCheck:
+    """Between fits: stop if the claim is lost, or (at most once per `every` s) the job stopped."""
 
-    def __init__(self, sessions: sessionmaker[Session], job_id: str, every: float = 1.0) -> None:
-        self.sessions, self.job_id, self.every = sessions, job_id, every
+    def __init__(
+        self, sessions: sessionmaker[Session], job_id: str, beat: Heartbeat, every: float = 1.0
+    ) -> None:
+        self.sessions, self.job_id, self.beat, self.every = sessions, job_id, beat, every
         self.checked_at = time.monotonic()  # the claim has just checked
 
     def __call__(self) -> bool:
+        if self.beat.lost():
+            return True
         now = time.monotonic()
         if now - self.checked_at < self.every:
             return False
         self.checked_at = now
-        with self.sessions() as session:
-            return lifecycle.is_stopped(session.get_one(Job, self.job_id))
+        try:
+            with self.sessions() as session:
+                return lifecycle.is_stopped(session.get_one(Job, self.job_id))
+        except SQLAlchemyError:
+            # the store is unreachable: not a failed fit; the heartbeat decides when the claim
+            # must be given up, and the fit goes on meanwhile
+            return False
 
 
 def _save_model(outcome: UnitOutcome, settings: Settings) -> tuple[str, Path, int]:
@@ -152,20 +168,68 @@ def unit_seed(loaded: LoadedPlan, candidate_key: str) -> int | None:
 
 
 def _finish(
-    sessions: sessionmaker[Session], unit_id: int, status: UnitStatus, error: str | None = None
-) -> None:
+    sessions: sessionmaker[Session],
+    unit_id: int,
+    token: str,
+    status: UnitStatus,
+    error: str | None = None,
+) -> str:
+    """End this copy's claim as cancelled or failed; LOST (nothing written) if it is not ours."""
     with sessions.begin() as session:
-        unit = session.get_one(WorkUnit, unit_id)
         if status == UnitStatus.CANCELLED:
-            lifecycle.unit_cancelled(unit)
-            return
+            return status if lifecycle.claim_cancelled(session, unit_id, token) else LOST
+        unit = session.get_one(WorkUnit, unit_id)
         first_line = (error or "").strip().splitlines()[-1] if error else "unknown error"
-        lifecycle.unit_failed(
+        failed = lifecycle.claim_failed(
             session,
-            unit,
+            unit_id,
+            token,
             error or "unknown error",
             job_error=f"unit {unit_id} ({unit.kind} {unit.scope}) failed: {first_line}",
         )
+        return status if failed else LOST
+
+
+def _run_claimed(
+    sessions: sessionmaker[Session],
+    unit_id: int,
+    token: str,
+    job_id: str,
+    ref: UnitRef,
+    beat: Heartbeat,
+    settings: Settings,
+    worker: str,
+) -> UnitReport:
+    try:
+        with sessions() as session:
+            loaded = plan_for_job(session, job_id, settings)
+        outcome = fit_and_score(loaded.plan, ref, _StopCheck(sessions, job_id, beat))
+    except UnitCancelled:
+        if beat.lost():  # the claim is gone: another copy may be running it, write nothing
+            return UnitReport(unit_id, job_id, LOST)
+        return UnitReport(unit_id, job_id, _finish(sessions, unit_id, token, UnitStatus.CANCELLED))
+    except NonFiniteScore as exc:  # its sentence is the whole story: no traceback to read
+        return UnitReport(
+            unit_id, job_id, _finish(sessions, unit_id, token, UnitStatus.FAILED, str(exc))
+        )
+    except Exception:
+        if beat.lost():  # e.g. the store went away while loading the plan: not a failed fit
+            return UnitReport(unit_id, job_id, LOST)
+        error = traceback.format_exc()
+        return UnitReport(
+            unit_id, job_id, _finish(sessions, unit_id, token, UnitStatus.FAILED, error)
+        )
+    try:
+        with sessions.begin() as session:
+            # the fence first: it locks the unit's row, and if the claim is no longer this
+            # copy's, ClaimLost rolls the whole transaction back before any score goes in
+            last = lifecycle.unit_done(
+                session, unit_id, token, fits=outcome.fits, seconds=outcome.seconds
+            )
+            _record(session, session.get_one(WorkUnit, unit_id), outcome, loaded, settings, worker)
+    except lifecycle.ClaimLost:
+        return UnitReport(unit_id, job_id, LOST, outcome.fits)
+    return UnitReport(unit_id, job_id, UnitStatus.DONE, outcome.fits, stage_complete=last)
 
 
 def execute_unit(
@@ -173,27 +237,13 @@ def execute_unit(
 ) -> UnitReport:
     """Claim, run and record unit `unit_id`; never raises for a failing fit."""
     with sessions.begin() as session:
-        if not lifecycle.claim_unit(session, unit_id, worker, settings.unit_lease):
+        token = lifecycle.claim_unit(session, unit_id, worker, settings.unit_lease)
+        if token is None:
             return UnitReport(unit_id, None, "skipped")
         unit = session.get_one(WorkUnit, unit_id)
         job_id = unit.job_id
         ref = UnitRef(unit.kind, unit.scope, unit.candidate_key)  # type: ignore[arg-type]
         lifecycle.start_job(session, job_id)
-    try:
-        with sessions() as session:
-            loaded = plan_for_job(session, job_id, settings)
-        outcome = fit_and_score(loaded.plan, ref, _CancelCheck(sessions, job_id))
-    except UnitCancelled:
-        _finish(sessions, unit_id, UnitStatus.CANCELLED)
-        return UnitReport(unit_id, job_id, UnitStatus.CANCELLED)
-    except NonFiniteScore as exc:  # its sentence is the whole story: no traceback to read
-        _finish(sessions, unit_id, UnitStatus.FAILED, str(exc))
-        return UnitReport(unit_id, job_id, UnitStatus.FAILED)
-    except Exception:
-        _finish(sessions, unit_id, UnitStatus.FAILED, traceback.format_exc())
-        return UnitReport(unit_id, job_id, UnitStatus.FAILED)
-    with sessions.begin() as session:
-        unit = session.get_one(WorkUnit, unit_id)
-        _record(session, unit, outcome, loaded, settings, worker)
-        last = lifecycle.unit_done(session, unit, fits=outcome.fits, seconds=outcome.seconds)
-    return UnitReport(unit_id, job_id, UnitStatus.DONE, outcome.fits, stage_complete=last)
+    # the heartbeat lives exactly as long as the unit here: it stops before this returns
+    with Heartbeat(sessions, unit_id, token, settings) as beat:
+        return _run_claimed(sessions, unit_id, token, job_id, ref, beat, settings, worker)

@@ -1,0 +1,80 @@
+"""The holder of a claim keeps it alive: a thread renews the lease while the unit runs.
+
+A claim lasts `settings.lease_seconds` past its last renewal, whatever the unit's time limit, so
+a dead worker's unit is claimable again within about a minute (docs/reliability.md). The thread
+runs in the process that fits, with its own short sessions, and renews every
+`settings.heartbeat_seconds`. The claim counts as lost when a renewal finds it taken over (the
+conditional UPDATE changed no row) or when no renewal has succeeded for a whole lease (the
+database is unreachable: by then another worker may hold the unit). A lost claim stops the unit
+at its next check between fits and records nothing; the record itself is fenced on the claim
+token too (lifecycle.unit_done), for a copy that finishes before it notices.
+"""
+
+from __future__ import annotations
+
+import logging
+import threading
+import time
+from types import TracebackType
+
+from sqlalchemy.orm import Session, sessionmaker
+
+from service.config import Settings
+from service.jobs import lifecycle
+
+log = logging.getLogger(__name__)
+
+
+class Heartbeat:
+    """Renews one claim's lease from a daemon thread until the unit ends (use it as `with`)."""
+
+    def __init__(
+        self, sessions: sessionmaker[Session], unit_id: int, token: str, settings: Settings
+    ) -> None:
+        self.sessions, self.unit_id, self.token = sessions, unit_id, token
+        self.lease, self.every = settings.unit_lease, settings.heartbeat_seconds
+        self.renewed_at = time.monotonic()  # the claim itself set the first lease
+        self.renewals = 0
+        self._taken_over = threading.Event()
+        self._stop = threading.Event()
+        self._thread = threading.Thread(
+            target=self._run, name=f"foldwise-lease-{unit_id}", daemon=True
+        )
+
+    def lost(self) -> bool:
+        """True once the claim may no longer be this copy's: stop, and record nothing."""
+        if self._taken_over.is_set():
+            return True
+        # a renewal hanging on an unreachable database counts as failed once a lease has passed
+        return time.monotonic() - self.renewed_at >= self.lease.total_seconds()
+
+    def _run(self) -> None:
+        while not self._stop.wait(self.every):
+            try:
+                with self.sessions.begin() as session:
+                    held = lifecycle.renew_lease(session, self.unit_id, self.token, self.lease)
+            except Exception:  # the database is unreachable: try again on the next beat
+                log.warning("unit %s: lease renewal failed", self.unit_id, exc_info=True)
+                continue
+            if not held:
+                # taken over after our lease lapsed, or ended by someone else: never renew again
+                log.warning("unit %s: claim taken over; stopping it", self.unit_id)
+                self._taken_over.set()
+                return
+            self.renewed_at = time.monotonic()
+            self.renewals += 1
+
+    def __enter__(self) -> Heartbeat:
+        self._thread.start()
+        return self
+
+    def __exit__(
+        self,
+        kind: type[BaseException] | None,
+        value: BaseException | None,
+        traceback: TracebackType | None,
+    ) -> None:
+        self._stop.set()
+        # a renewal in flight is a short UPDATE; one stuck on a dead connection is abandoned
+        # (daemon thread) rather than holding up the worker, and its UPDATE matches no ended unit
+        self._thread.join(timeout=self.every)
