@@ -220,16 +220,31 @@ def _run_claimed(
             unit_id, job_id, _finish(sessions, unit_id, token, UnitStatus.FAILED, error)
         )
     try:
-        with sessions.begin() as session:
-            # the fence first: it locks the unit's row, and if the claim is no longer this
-            # copy's, ClaimLost rolls the whole transaction back before any score goes in
-            last = lifecycle.unit_done(
-                session, unit_id, token, fits=outcome.fits, seconds=outcome.seconds
-            )
-            _record(session, session.get_one(WorkUnit, unit_id), outcome, loaded, settings, worker)
+        last = record_claimed(sessions, unit_id, token, outcome, loaded, settings, worker)
     except lifecycle.ClaimLost:
         return UnitReport(unit_id, job_id, LOST, outcome.fits)
     return UnitReport(unit_id, job_id, UnitStatus.DONE, outcome.fits, stage_complete=last)
+
+
+def record_claimed(
+    sessions: sessionmaker[Session],
+    unit_id: int,
+    token: str,
+    outcome: UnitOutcome,
+    loaded: LoadedPlan,
+    settings: Settings,
+    worker: str,
+) -> bool:
+    """The record transaction of claim `token`; True if it closed the stage. Fenced: raises
+    lifecycle.ClaimLost, with nothing written, when the claim is no longer this copy's."""
+    with sessions.begin() as session:
+        # the fence first: it locks the unit's row, and if the claim is no longer this copy's,
+        # ClaimLost rolls the whole transaction back before any score goes in
+        last = lifecycle.unit_done(
+            session, unit_id, token, fits=outcome.fits, seconds=outcome.seconds
+        )
+        _record(session, session.get_one(WorkUnit, unit_id), outcome, loaded, settings, worker)
+    return last
 
 
 def execute_unit(
