@@ -19,9 +19,9 @@ from service.jobs.local.driver import run_embedded
 from .stack import REPO, Stack
 
 REDIS_HOST, REDIS_PORT = "127.0.0.1", 6379
-# Short enough that the kill test waits out a lease in well under a minute: hard limit 12 s →
-# soft 10 s, lease 42 s, visibility timeout 72 s (service.config derives them). Units here take
-# about a second, so neither limit fires.
+# Hard limit 12 s → soft 10 s, visibility timeout 72 s (service.config derives them); the lease
+# (40 s, renewed every 10 s) does not depend on it. Units here take about a second, so neither
+# limit fires. test_lease_recovery.py runs with none of these set.
 UNIT_TIME_LIMIT = "12"
 RECONCILE_SECONDS = "2"
 REPUBLISH_AFTER = "5"

@@ -97,7 +97,7 @@ def test_a_nan_fold_score_fails_the_job_over_the_api(tmp_path: Path) -> None:
         waited = time.monotonic() - started
     assert job["status"] == "failed"
     _says_what_failed(job["error"])
-    # at once: not after leases ran out (the lease is the unit time limit plus 30 s)
+    # at once: not after leases ran out
     assert waited < live.settings.unit_lease.total_seconds()
 
 

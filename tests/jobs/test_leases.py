@@ -105,7 +105,7 @@ def test_a_silent_holder_loses_its_unit_after_one_lease_and_records_nothing(
             assert time.monotonic() - silent_from < lease + 5, "still held long after its lease"
             time.sleep(0.25)
         lapsed = time.monotonic() - silent_from
-        print(f"\n[{store}] claimed again {lapsed:.1f} s after the last renewal (lease {lease:g} s)")
+        print(f"\n[{store}] claimed again {lapsed:.1f} s after the last renewal, lease {lease:g} s")
         assert lapsed >= lease - 1  # not before the lease the holder last set had run out
 
         with sessions() as session:
