@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import threading
 import time
+from datetime import timedelta
 from pathlib import Path
 from typing import Any
 
@@ -20,7 +21,8 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings, load_settings
 from service.cv.units import UnitRef, fit_and_score
-from service.jobs.execution.execute import LOST, _run_claimed, record_claimed
+from service.errors import BadInput
+from service.jobs.execution.execute import LOST, record_claimed, run_claimed
 from service.jobs.execution.heartbeat import Heartbeat
 from service.jobs.execution.plans import plan_for_job
 from service.jobs.intake.create import create_job
@@ -126,7 +128,7 @@ def test_a_silent_holder_loses_its_unit_after_one_lease_and_records_nothing(
                 assert time.monotonic() < deadline, "a taken-over claim was not noticed"
                 time.sleep(0.2)
             assert time.monotonic() - late.renewed_at < lease  # lost by takeover, not by time
-            report = _run_claimed(sessions, unit_id, token_a, job_id, ref, late, settings, HOLDER)
+            report = run_claimed(sessions, unit_id, token_a, job_id, ref, late, settings, HOLDER)
         assert report.status == LOST
         assert _counted(sessions, job_id) == (0, 0, set())
 
@@ -158,3 +160,17 @@ def test_a_silent_holder_loses_its_unit_after_one_lease_and_records_nothing(
         assert _counted(sessions, job_id) == (3, 1, {TAKER})
     finally:
         engine.dispose()
+
+
+def test_the_lease_does_not_grow_with_the_time_limit_and_must_outlast_two_heartbeats(
+    tmp_path: Path,
+) -> None:
+    home = {"FOLDWISE_HOME": str(tmp_path)}
+    short, long = (
+        load_settings({**home, "FOLDWISE_UNIT_TIME_LIMIT": limit}) for limit in ("60", "30000")
+    )
+    # the documented defaults (README's configuration table), whatever the unit time limit
+    assert short.unit_lease == long.unit_lease == timedelta(seconds=40)
+    assert short.heartbeat_seconds == long.heartbeat_seconds == 10
+    with pytest.raises(BadInput, match="FOLDWISE_HEARTBEAT_SECONDS: must be at most half"):
+        load_settings({**home, "FOLDWISE_UNIT_LEASE": "30", "FOLDWISE_HEARTBEAT_SECONDS": "20"})

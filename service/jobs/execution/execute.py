@@ -190,7 +190,7 @@ def _finish(
         return status if failed else LOST
 
 
-def _run_claimed(
+def run_claimed(
     sessions: sessionmaker[Session],
     unit_id: int,
     token: str,
@@ -200,6 +200,7 @@ def _run_claimed(
     settings: Settings,
     worker: str,
 ) -> UnitReport:
+    """Fit and record a unit this copy has claimed (`token`), while `beat` keeps the claim."""
     try:
         with sessions() as session:
             loaded = plan_for_job(session, job_id, settings)
@@ -261,4 +262,4 @@ def execute_unit(
         lifecycle.start_job(session, job_id)
     # the heartbeat lives exactly as long as the unit here: it stops before this returns
     with Heartbeat(sessions, unit_id, token, settings) as beat:
-        return _run_claimed(sessions, unit_id, token, job_id, ref, beat, settings, worker)
+        return run_claimed(sessions, unit_id, token, job_id, ref, beat, settings, worker)
