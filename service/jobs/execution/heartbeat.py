@@ -4,8 +4,9 @@ A claim lasts `settings.lease_seconds` past its last renewal, whatever the unit'
 a dead worker's unit is claimable again within about a minute (docs/reliability.md). The thread
 runs in the process that fits, with its own short sessions, and renews every
 `settings.heartbeat_seconds`. The claim counts as lost when a renewal finds it taken over (the
-conditional UPDATE changed no row) or when no renewal has succeeded for a whole lease (the
-database is unreachable: by then another worker may hold the unit). A lost claim stops the unit
+conditional UPDATE changed no row) or when no renewal has succeeded for a lease less one
+heartbeat (the database is unreachable: the holder gives up a heartbeat before its lease can
+run out, so it stops before another worker may take the unit). A lost claim stops the unit
 at its next check between fits and records nothing; the record itself is fenced on the claim
 token too (lifecycle.unit_done), for a copy that finishes before it notices.
 """
@@ -33,7 +34,9 @@ class Heartbeat:
     ) -> None:
         self.sessions, self.unit_id, self.token = sessions, unit_id, token
         self.lease, self.every = settings.unit_lease, settings.heartbeat_seconds
-        self.renewed_at = time.monotonic()  # the claim itself set the first lease
+        # when the lease in the store was last set from: the claim set the first one moments
+        # ago; after that, each renewal reads the store's clock after this point
+        self.renewed_at = time.monotonic()
         self.renewals = 0
         self._taken_over = threading.Event()
         self._stop = threading.Event()
@@ -45,11 +48,12 @@ class Heartbeat:
         """True once the claim may no longer be this copy's: stop, and record nothing."""
         if self._taken_over.is_set():
             return True
-        # a renewal hanging on an unreachable database counts as failed once a lease has passed
-        return time.monotonic() - self.renewed_at >= self.lease.total_seconds()
+        # renewals failing or hanging on an unreachable database: give up one beat early
+        return time.monotonic() - self.renewed_at >= self.lease.total_seconds() - self.every
 
     def _run(self) -> None:
         while not self._stop.wait(self.every):
+            attempted = time.monotonic()
             try:
                 with self.sessions.begin() as session:
                     held = lifecycle.renew_lease(session, self.unit_id, self.token, self.lease)
@@ -61,7 +65,7 @@ class Heartbeat:
                 log.warning("unit %s: claim taken over; stopping it", self.unit_id)
                 self._taken_over.set()
                 return
-            self.renewed_at = time.monotonic()
+            self.renewed_at = attempted
             self.renewals += 1
 
     def __enter__(self) -> Heartbeat:
