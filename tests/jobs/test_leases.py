@@ -174,3 +174,47 @@ def test_the_lease_does_not_grow_with_the_time_limit_and_must_outlast_two_heartb
     assert short.heartbeat_seconds == long.heartbeat_seconds == 10
     with pytest.raises(BadInput, match="FOLDWISE_HEARTBEAT_SECONDS: must be at most half"):
         load_settings({**home, "FOLDWISE_UNIT_LEASE": "30", "FOLDWISE_HEARTBEAT_SECONDS": "20"})
+
+
+@pytest.mark.slow
+def test_a_holder_that_cannot_reach_the_store_gives_up_before_its_lease_ends(
+    tmp_path: Path, request: pytest.FixtureRequest
+) -> None:
+    settings = _store(tmp_path, "postgresql", request)
+    lease, every = settings.lease_seconds, settings.heartbeat_seconds
+    engine = make_engine(settings.database_url)
+    # the holder's renewals go to a port where no database listens: a real refused connection,
+    # as a worker cut off from PostgreSQL sees it
+    cut_off = make_engine("postgresql+psycopg://postgres@127.0.0.1:9/unreachable")
+    sessions = make_session_factory(engine)
+    try:
+        job_id, unit_id = _first_unit(sessions, settings)
+        token = _claim(sessions, unit_id, HOLDER, settings)
+        assert token is not None
+        with sessions() as session:
+            unit = session.get_one(WorkUnit, unit_id)
+            ref = UnitRef(unit.kind, unit.scope, unit.candidate_key)  # type: ignore[arg-type]
+        with Heartbeat(make_session_factory(cut_off), unit_id, token, settings) as beat:
+            started = time.monotonic()
+            while not beat.lost():
+                assert time.monotonic() - started < lease, "still holding past its lease"
+                time.sleep(0.5)
+            gave_up = time.monotonic() - started
+            print(f"\ngave up {gave_up:.1f} s after its last renewal (lease {lease:g} s)")
+            assert gave_up >= lease - every - 1 and beat.renewals == 0
+            # it stops at its first check between fits and writes nothing, though the unit is
+            # still its own in the store (nobody has taken it yet)
+            report = run_claimed(sessions, unit_id, token, job_id, ref, beat, settings, HOLDER)
+        assert report.status == LOST
+        assert _counted(sessions, job_id) == (0, 0, set())
+        with sessions() as session:
+            unit = session.get_one(WorkUnit, unit_id)
+            assert (unit.status, unit.claim_token) == ("running", token)
+        # and the unit is another worker's once the lease it last set runs out
+        while (taken := _claim(sessions, unit_id, TAKER, settings)) is None:
+            assert time.monotonic() - started < lease + 5, "not claimable after its lease"
+            time.sleep(0.25)
+        assert taken != token
+    finally:
+        engine.dispose()
+        cut_off.dispose()

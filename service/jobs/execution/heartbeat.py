@@ -38,7 +38,7 @@ class Heartbeat:
         # ago; after that, each renewal reads the store's clock after this point
         self.renewed_at = time.monotonic()
         self.renewals = 0
-        self._taken_over = threading.Event()
+        self._lost = threading.Event()
         self._stop = threading.Event()
         self._thread = threading.Thread(
             target=self._run, name=f"foldwise-lease-{unit_id}", daemon=True
@@ -46,13 +46,15 @@ class Heartbeat:
 
     def lost(self) -> bool:
         """True once the claim may no longer be this copy's: stop, and record nothing."""
-        if self._taken_over.is_set():
-            return True
-        # renewals failing or hanging on an unreachable database: give up one beat early
-        return time.monotonic() - self.renewed_at >= self.lease.total_seconds() - self.every
+        # renewals failing or hanging on an unreachable database: give up one beat early. Once
+        # given up, for good: the unit is stopping, and a renewal when the store answers again
+        # must not make a stopped copy look like the holder (it would mark the unit cancelled)
+        if time.monotonic() - self.renewed_at >= self.lease.total_seconds() - self.every:
+            self._lost.set()
+        return self._lost.is_set()
 
     def _run(self) -> None:
-        while not self._stop.wait(self.every):
+        while not self._stop.wait(self.every) and not self.lost():
             attempted = time.monotonic()
             try:
                 with self.sessions.begin() as session:
@@ -63,7 +65,7 @@ class Heartbeat:
             if not held:
                 # taken over after our lease lapsed, or ended by someone else: never renew again
                 log.warning("unit %s: claim taken over; stopping it", self.unit_id)
-                self._taken_over.set()
+                self._lost.set()
                 return
             self.renewed_at = attempted
             self.renewals += 1
