@@ -159,13 +159,12 @@ def test_bad_token_commands_exit_2_with_one_sentence(
 
 def test_a_bad_token_command_exits_2_from_the_console_script(live: Server) -> None:
     """The refusal above, end to end: the real console script's exit code and streams."""
-    before = _script(live, "list", "--json")
-    assert before.returncode == 0, before.stderr
+    before = _cli(live, "list", "--json").stdout
     done = _script(live, "create", "--team", "x", "--scopes", "read", "--expires-in", "0")
     assert done.returncode == 2, done.stderr
     assert done.stdout == "" and "Traceback" not in done.stderr
     assert done.stderr.startswith("error: --expires-in:")
-    assert _script(live, "list", "--json").stdout == before.stdout
+    assert _cli(live, "list", "--json").stdout == before
 
 
 def test_a_prefix_shared_by_two_tokens_names_them_and_revokes_neither(live: Server) -> None:
