@@ -23,6 +23,10 @@ from service.cv.weights import fit_model
 from .runs import plan_for, run_engine
 
 
+# SVC(probability=True) is deprecated in scikit-learn 1.9 but still a candidate requests can name
+pytestmark = pytest.mark.filterwarnings("ignore:The `probability` parameter:FutureWarning")
+
+
 @pytest.fixture(autouse=True)
 def fresh_cache() -> Iterator[None]:
     """Each test starts from an empty cache at the default bounds, and leaves it so."""
