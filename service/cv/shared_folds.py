@@ -20,6 +20,7 @@ from __future__ import annotations
 import hashlib
 import os
 import pickle
+import threading
 import weakref
 from collections import OrderedDict
 from collections.abc import Callable
@@ -117,6 +118,9 @@ class FoldCache:
         self.peak_bytes = 0
         self.hits = 0
         self.misses = 0
+        # a worker may run units on threads; a fit happens outside the lock (two threads may
+        # both fit one fold's steps, and the second entry replaces the first, same bits)
+        self._lock = threading.Lock()
 
     @property
     def enabled(self) -> bool:
@@ -125,6 +129,10 @@ class FoldCache:
 
     def get(self, key: Any, sources: tuple[Any, ...]) -> SharedFold | None:
         """The entry for `key` if its table, target and weights are still these very objects."""
+        with self._lock:
+            return self._get(key, sources)
+
+    def _get(self, key: Any, sources: tuple[Any, ...]) -> SharedFold | None:
         slot = self._slots.get(key)
         # the key holds id()s: a weak reference that no longer resolves to the same object
         # means the id now belongs to another table, so the entry is stale
@@ -143,6 +151,10 @@ class FoldCache:
         """Keep `fold`, evicting the least recently used entries to stay within both bounds."""
         if not self.enabled or fold.nbytes > self.max_bytes:
             return
+        with self._lock:
+            self._put(key, sources, fold)
+
+    def _put(self, key: Any, sources: tuple[Any, ...], fold: SharedFold) -> None:
         if key in self._slots:
             self._drop(key)
         self._slots[key] = _Slot(tuple(_reference(s) for s in sources), fold)
@@ -157,8 +169,9 @@ class FoldCache:
 
     def clear(self) -> None:
         """Forget every entry (the counters stay)."""
-        self._slots.clear()
-        self.bytes = 0
+        with self._lock:
+            self._slots.clear()
+            self.bytes = 0
 
     def stats(self) -> dict[str, int]:
         """Entries, bytes now and at most, hits and misses since the process started."""

@@ -22,7 +22,6 @@ from service.cv.weights import fit_model
 
 from .runs import plan_for, run_engine
 
-
 # SVC(probability=True) is deprecated in scikit-learn 1.9 but still a candidate requests can name
 pytestmark = pytest.mark.filterwarnings("ignore:The `probability` parameter:FutureWarning")
 
