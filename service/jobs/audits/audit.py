@@ -181,7 +181,8 @@ def _recompute(
         items: list[dict[str, Any]] = []
         for unit in chosen:
             ref = UnitRef(unit.kind, unit.scope, unit.candidate_key)  # type: ignore[arg-type]
-            outcome = fit_and_score(loaded.plan, ref)  # a fresh fit; no stored score is read
+            # a fresh fit: no stored score is read, no fold's preprocessing shared from memory
+            outcome = fit_and_score(loaded.plan, ref, share=False)
             items += _compare_unit(session, unit, outcome.folds, loaded.dataset_hash)
     counts = {"identical": 0, "within_tolerance": 0, "differing": 0, "missing": 0}
     for item in items:
