@@ -16,6 +16,10 @@ class NotFound(LookupError):
     """No such object, or not one the caller may see (the two are not told apart)."""
 
 
+class Conflict(Exception):
+    """The request clashes with stored state (an idempotency key reused with another body)."""
+
+
 def not_visible(what: str, ident: object) -> NotFound:
     """The one answer for both "there is no such object" and "it is not yours"."""
     return NotFound(f"no {what} {ident!r} is visible to your team.")

@@ -98,7 +98,7 @@ _thread_limits: list[Any] = []  # held for the life of the process
 
 @worker_process_init.connect
 def _child_started(**_: Any) -> None:
-    # every prefork child: its own connection pool, one BLAS/OpenMP thread (RELIABILITY.md)
+    # every prefork child: its own connection pool, one BLAS/OpenMP thread (docs/reliability.md)
     state.after_fork()
     _thread_limits.append(cap_loaded_threadpools())
 

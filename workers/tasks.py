@@ -9,11 +9,11 @@ from typing import Any
 
 from celery import Task
 
-from service.dispatch import TASK_RECONCILE, TASK_RUN_AUDIT, TASK_RUN_UNIT, UNIT_QUEUE
-from service.dispatch.base import mark_published
-from service.jobs.audit import run_audit
-from service.jobs.reconcile import reconcile
-from service.jobs.work import run_and_advance
+from service.dispatch import TASK_RECONCILE, TASK_RUN_AUDIT, TASK_RUN_UNIT
+from service.dispatch.celery_client import send_units
+from service.jobs.audits.audit import run_audit
+from service.jobs.execution.reconcile import reconcile
+from service.jobs.execution.work import run_and_advance
 from service.notify.delivery import deliver_due
 from service.schedules.tick import tick_schedules
 from workers import state
@@ -23,14 +23,8 @@ log = logging.getLogger(__name__)
 
 
 def publish(unit_ids: list[int]) -> None:
-    """Send one run_unit message per id, then record when (the reconciler reads that)."""
-    if not unit_ids:
-        return
-    # Celery turns a direct queue into kombu's anonymous exchange, so these land in the queue's
-    # list without the `_kombu.binding.*` key a broker flush deletes (kombu#1063).
-    for unit_id in unit_ids:
-        app.send_task(TASK_RUN_UNIT, args=[unit_id], queue=UNIT_QUEUE)
-    mark_published(state.sessions(), unit_ids)
+    """Send one run_unit message per id on this worker's app, recording when."""
+    send_units(app, state.sessions(), unit_ids)
 
 
 def worker_label(task: Task) -> str:
@@ -51,7 +45,7 @@ def run_unit(self: Task, unit_id: int) -> str:
     log.info(
         "unit %s %s (%s fits), %s new units", unit_id, report.status, report.fits, len(new_units)
     )
-    return report.status
+    return str(report.status)
 
 
 @app.task(name=TASK_RECONCILE)

@@ -2,21 +2,14 @@
 
 Prefork children already split the cores between them (scale with Celery concurrency, keep
 `n_jobs=1` inside a unit); a BLAS that also starts a thread per core makes them fight for the
-same cores.
+same cores. The environment side (OMP_NUM_THREADS and the like, read only before numpy is
+first imported) is set by whoever starts the worker: `foldwise workers`
+(service/cli/workers_cmd.py) and deploy/Containerfile.
 """
 
 from __future__ import annotations
 
-import os
 from typing import Any
-
-THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
-
-
-def cap_thread_environment() -> None:
-    """Ask BLAS/OpenMP for one thread; only effective before numpy is first imported."""
-    for name in THREAD_VARIABLES:
-        os.environ[name] = "1"
 
 
 def cap_loaded_threadpools() -> Any:

@@ -16,32 +16,16 @@ from typing import Any
 
 import pyarrow as pa
 import pyarrow.parquet as pq
+from pydantic import TypeAdapter
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.auth import Principal
-from service.jobs.fold_rows import FoldContext
-from service.jobs.service import foreign_job_ids
+from service.jobs.handover.fold_rows import EXTRA_COLUMNS, FoldContext
+from service.jobs.queries.jobs import foreign_job_ids
 from service.store.models import FoldScore
 
 PAGE = 1000
 
-# The columns of the JSON fold-score listing, in its order (FoldScorePublic in the API schemas).
-COLUMNS = (
-    "id",
-    "fold_fingerprint",
-    "candidate_key",
-    "metric",
-    "value",
-    "fit_seconds",
-    "score_seconds",
-    "n_train",
-    "n_test",
-    "seed",
-    "versions",
-    "worker",
-    "job_id",
-    "created_at",
-)
 PARQUET_SCHEMA = pa.schema(
     [
         ("id", pa.int64()),
@@ -65,15 +49,18 @@ PARQUET_SCHEMA = pa.schema(
 JOB_PARQUET_SCHEMA = pa.schema(
     [
         *PARQUET_SCHEMA,
-        ("role", pa.string()),
-        ("repeat", pa.int64()),
-        ("fold", pa.int64()),
-        ("inner_repeat", pa.int64()),
-        ("inner_fold", pa.int64()),
-        ("estimator", pa.string()),
-        ("params", pa.string()),  # a JSON object, as versions
+        *zip(
+            EXTRA_COLUMNS,
+            # role, repeat, fold, inner_repeat, inner_fold, estimator, params (a JSON object)
+            (pa.string(), *[pa.int64()] * 4, pa.string(), pa.string()),
+            strict=True,
+        ),
     ]
 )
+# The one column list of every fold-score export, in the JSON listing's order (FoldScorePublic
+# in the API schemas): a dataset's stored columns, and a job's with its extra columns.
+COLUMNS = tuple(PARQUET_SCHEMA.names)
+JOB_COLUMNS = tuple(JOB_PARQUET_SCHEMA.names)
 
 # fetch(session, after_id, limit) -> the next page of scores in id order
 PageFetcher = Callable[[Session, int, int], list[FoldScore]]
@@ -123,24 +110,34 @@ def score_pages(
         after = page[-1].id
 
 
+_DATETIME = TypeAdapter(datetime)
+
+
 def _csv_cell(value: Any) -> Any:
-    # ISO 8601 like the JSON listing, so a reader parses both the same way
-    return value.isoformat() if isinstance(value, datetime) else value
+    # ISO 8601 written as the JSON listing writes it, so a cell equals the listing's string
+    return _DATETIME.dump_python(value, mode="json") if isinstance(value, datetime) else value
 
 
 def csv_chunks(
-    sessions: sessionmaker[Session], fetch: PageFetcher, principal: Principal
+    sessions: sessionmaker[Session],
+    fetch: PageFetcher,
+    principal: Principal,
+    context: FoldContext | None = None,
 ) -> Iterator[str]:
-    """The header, then one chunk of CSV lines per page."""
+    """The header, then one chunk of CSV lines per page: the one CSV writer of fold scores.
+
+    With a job's `context`, each row also says where its fold sits and which candidate it is.
+    """
+    columns = COLUMNS if context is None else JOB_COLUMNS
     buffer = io.StringIO()
     writer = csv.writer(buffer, lineterminator="\n")
-    writer.writerow(COLUMNS)
+    writer.writerow(columns)
     yield buffer.getvalue()
-    for rows in score_pages(sessions, fetch, principal):
+    for rows in score_pages(sessions, fetch, principal, context):
         buffer.seek(0)
         buffer.truncate()
         for row in rows:
-            writer.writerow([_csv_cell(row[c]) for c in COLUMNS])
+            writer.writerow([_csv_cell(row[c]) for c in columns])
         yield buffer.getvalue()
 
 

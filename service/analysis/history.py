@@ -10,7 +10,8 @@ from sqlalchemy import or_, select
 from sqlalchemy.orm import Session
 
 from service.auth import Action, Principal, reaches_every_team
-from service.jobs.service import job_query, visible_dataset
+from service.jobs.queries.datasets import visible_dataset
+from service.jobs.queries.jobs import job_query
 from service.store.models import Refresh, Schedule
 
 

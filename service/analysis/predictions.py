@@ -24,8 +24,8 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.analysis.export import _Drain
 from service.cv.slices import OuterPredictions
-from service.jobs.outer_predictions import each_outer, read_outer
-from service.jobs.plans import LoadedPlan
+from service.jobs.execution.plans import LoadedPlan
+from service.jobs.handover.outer_predictions import each_outer, read_outer
 from service.store.models import FoldPrediction
 
 PAGE = 5000

@@ -13,8 +13,9 @@ from sqlalchemy.orm import Session
 
 from service.analysis.compare import Comparison, compare_outer_scores, outer_scores_from_result
 from service.auth import Action, Principal, reaches_every_team
-from service.errors import BadInput
-from service.jobs.service import NotFound, get_job, job_query, visible_dataset
+from service.errors import BadInput, NotFound
+from service.jobs.queries.datasets import visible_dataset
+from service.jobs.queries.jobs import get_job, job_query
 from service.store.models import FoldScore, Job, JobCandidate, JobFold
 
 FoldRole = Literal["outer", "inner", "final_inner"]

@@ -19,8 +19,8 @@ import os
 import anyio
 from starlette.types import ASGIApp, Receive, Scope, Send
 
-from service.api.problems import problem_response
 from service.errors import BadInput
+from service.http.problems import problem_response
 
 DEFAULT_THREADS = 4
 QUEUE_WAIT_SECONDS = 2.0

@@ -20,16 +20,16 @@ from service.api.datasets.router import router as datasets_router
 from service.api.health.router import router as health_router
 from service.api.jobs.handover_routes import router as handover_router
 from service.api.jobs.router import router as jobs_router
-from service.api.limits import BodyCap, NoNulInUrl
 from service.api.openapi_statuses import add_shared_statuses
 from service.api.problem_pages import router as problem_pages_router
-from service.api.problems import PROBLEM_MEDIA_TYPE, install_problem_handlers, problem_type
 from service.api.schedules.router import router as schedules_router
 from service.config import Settings
 from service.datasets.sql_roles import start_role_check
 from service.dispatch.base import Dispatcher
 from service.errors import BadInput
-from service.jobs.request import JobRequest
+from service.http.limits import BodyCap, NoNulInUrl
+from service.http.problems import PROBLEM_MEDIA_TYPE, install_problem_handlers, problem_type
+from service.jobs.intake.request import JobRequest
 from service.schedules.service import ScheduleRequest
 from service.store.db import make_engine, make_read_session_factory, make_session_factory
 from service.web.router import router as reports_router

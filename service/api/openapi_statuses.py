@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from service.api.problems import PROBLEM_MEDIA_TYPE, problem_type
+from service.http.problems import PROBLEM_MEDIA_TYPE, problem_type
 
 _PROBLEM_REF = {"$ref": "#/components/schemas/Problem"}
 

@@ -8,7 +8,7 @@ from html import escape
 from fastapi import APIRouter
 from fastapi.responses import HTMLResponse
 
-from service.api.problems import PROBLEM_BASE, PROBLEM_TYPES, ProblemType
+from service.http.problems import PROBLEM_BASE, PROBLEM_TYPES, ProblemType
 
 router = APIRouter(tags=["problems"])
 

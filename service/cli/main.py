@@ -56,7 +56,7 @@ def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path) -> None:
     from service.cli.curve_render import print_curve
     from service.cli.progress import unit_progress
     from service.cli.render import print_result
-    from service.jobs.embedded import JobFailed, run_embedded
+    from service.jobs.local.driver import JobFailed, run_embedded
 
     if workers < 1:
         raise BadInput("--workers", "must be at least 1.")

@@ -15,7 +15,7 @@ from rich.progress import (
     TimeRemainingColumn,
 )
 
-from service.jobs.embedded import Progress as ProgressCallback
+from service.jobs.local.driver import Progress as ProgressCallback
 
 
 @contextmanager

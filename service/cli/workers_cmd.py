@@ -16,7 +16,8 @@ import typer
 from service.config import load_settings
 
 CELERY_APP = "workers.app"
-# One BLAS/OpenMP thread per process: Celery concurrency already uses the cores (RELIABILITY.md).
+# One BLAS/OpenMP thread per process: Celery concurrency already uses the cores
+# (docs/reliability.md).
 THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 
 

@@ -10,7 +10,8 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
-from service.cv.plan import FINAL_SCOPE, SelectionPlan
+from service.cv.plan import SelectionPlan
+from service.cv.scopes import FINAL_SCOPE
 from service.cv.selection import Pick, ScoreBook, assemble, pick
 from service.cv.units import UnitOutcome, UnitRef, fit_and_score, inner_units
 

@@ -15,13 +15,13 @@ from service.cv.errors import SpecError
 from service.cv.metrics import check_metrics
 from service.cv.preprocess import FeatureTable, check_preprocess, feature_table
 from service.cv.recipe import check_recipe
+from service.cv.scopes import FINAL_SCOPE
 from service.cv.slices import check_slices
 from service.cv.spec import SelectionSpec
 from service.cv.splits import Fold, SplitInputs, split_rows
 from service.cv.subsample import subsample_outer
 from service.cv.weights import check_weight_families, observation_weights
 
-FINAL_SCOPE = "all"  # the inner procedure run on all rows, which gives the final pick
 SCORING_VERSION = "1"  # ours, among the versions below
 
 

@@ -14,7 +14,9 @@ from typing import Any
 import numpy as np
 
 from service.cv.candidates import Candidate
-from service.cv.plan import FINAL_SCOPE, SelectionPlan
+from service.cv.describe import describe_values
+from service.cv.plan import SelectionPlan
+from service.cv.scopes import FINAL_SCOPE
 
 ScoreBook = dict[tuple[str, str, str], float]
 
@@ -53,18 +55,6 @@ def pick(plan: SelectionPlan, scope: str, book: ScoreBook) -> Pick:
     means = inner_means(plan, scope, book)
     best = best_position(means)
     return Pick(scope, plan.candidates[best], means[best])
-
-
-def describe_values(values: list[float]) -> dict[str, Any]:
-    """Mean, std (ddof=1), standard error and the values themselves."""
-    arr = np.asarray(values, dtype="float64")
-    std = float(arr.std(ddof=1)) if len(arr) > 1 else 0.0
-    return {
-        "mean": float(arr.mean()),
-        "std": std,
-        "se": std / float(np.sqrt(len(arr))),
-        "values": [float(v) for v in arr],
-    }
 
 
 def assemble(plan: SelectionPlan, book: ScoreBook, picks: dict[str, Pick]) -> dict[str, Any]:

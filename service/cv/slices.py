@@ -24,6 +24,7 @@ import numpy.typing as npt
 import pandas as pd
 from scipy import stats
 
+from service.cv.describe import describe_values
 from service.cv.errors import SpecError
 from service.cv.predictions import StoredPredictions, score_stored
 
@@ -122,8 +123,6 @@ def _group(
                 rest = _score(subset(part.stored, ~inside), y_fold[~inside], metric)
                 if rest is not None:
                     differences.append(score - rest)
-    # imported here: selection imports plan, which imports this module for check_slices
-    from service.cv.selection import describe_values
 
     estimate = {m: describe_values(v) | {"folds": len(v)} for m, v in per_metric.items() if v}
     p_value, flagged = flag_rule(differences)

@@ -17,6 +17,7 @@ from sklearn.model_selection import (
 from sklearn.model_selection._split import BaseCrossValidator
 
 from service.cv.errors import SpecError
+from service.cv.scopes import outer_scope
 from service.cv.spec import SplitSpec
 
 
@@ -33,7 +34,7 @@ class Fold:
     @property
     def scope(self) -> str:
         """A short stable name, used as the work unit scope of an outer fold."""
-        return f"r{self.repeat}f{self.index}"
+        return outer_scope(self.repeat, self.index)
 
 
 @dataclass(frozen=True)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import logging
 from typing import Protocol
 
 from sqlalchemy import update
@@ -10,12 +11,14 @@ from sqlalchemy.orm import Session, sessionmaker
 from service.store.db import utcnow
 from service.store.models import WorkUnit
 
+log = logging.getLogger(__name__)
+
 
 class Dispatcher(Protocol):
     """Something that can be told which units to run; it must not block on their work."""
 
     def publish(self, unit_ids: list[int]) -> None:
-        """Hand these queued units over for running (at least once)."""
+        """Hand these queued units over for running (at least once), recording when."""
 
     def publish_audit(self, audit_id: str) -> None:
         """Hand a queued audit over for running (it recomputes in a worker, not in the API)."""
@@ -32,3 +35,15 @@ def mark_published(sessions: sessionmaker[Session], unit_ids: list[int]) -> None
         session.execute(
             update(WorkUnit).where(WorkUnit.id.in_(unit_ids)).values(published_at=utcnow())
         )
+
+
+def publish_after_commit(dispatcher: Dispatcher, unit_ids: list[int], job_id: str) -> None:
+    """Publish a committed job's units; a failure is logged, as the reconciler publishes again.
+
+    Published only after the commit, from the committed rows: a crash in between leaves queued
+    units with no `published_at`, which the reconciler finds (jobs.execution.reconcile).
+    """
+    try:
+        dispatcher.publish(unit_ids)
+    except Exception:
+        log.exception("publishing job %s failed; the reconciler will publish it", job_id)

@@ -13,19 +13,22 @@ import threading
 from concurrent.futures import Future, ProcessPoolExecutor
 from typing import Any
 
-from sqlalchemy import select, update
+from sqlalchemy import select
 from threadpoolctl import threadpool_limits
 
 from service.config import Settings
-from service.jobs.audit import run_audit
-from service.jobs.execute import UnitReport, worker_name
-from service.jobs.reconcile import reconcile
-from service.jobs.work import run_and_advance
+from service.dispatch.base import mark_published
+from service.jobs.audits.audit import run_audit
+from service.jobs.execution.execute import UnitReport, worker_name
+from service.jobs.execution.reconcile import reconcile
+from service.jobs.execution.work import run_and_advance
+from service.jobs.lifecycle import release_claims
 from service.notify.delivery import deliver_due
 from service.processes import die_with_parent, stop_pool
 from service.schedules.tick import tick_schedules
 from service.store.db import make_engine, make_session_factory
 from service.store.models import Job, WorkUnit
+from service.store.statuses import LIVE_JOB, UnitStatus
 
 log = logging.getLogger(__name__)
 _child: dict[str, Any] = {}
@@ -66,7 +69,7 @@ class LocalPool:
         # warm instead of paying seconds of imports on the first unit it runs
         context.set_forkserver_preload(
             [
-                "service.jobs.work",
+                "service.jobs.execution.work",
                 "sklearn.ensemble",
                 "sklearn.linear_model",
                 "sklearn.model_selection",
@@ -91,7 +94,8 @@ class LocalPool:
             self._pool.submit(int)
 
     def publish(self, unit_ids: list[int]) -> None:
-        """Wake the poller: the units are already queued in the store."""
+        """Record the hand-over and wake the poller: the units are already queued in the store."""
+        mark_published(self._sessions, unit_ids)
         self._wake.set()
 
     def publish_audit(self, audit_id: str) -> None:
@@ -104,7 +108,7 @@ class LocalPool:
             ids = session.scalars(
                 select(WorkUnit.id)
                 .join(Job, Job.id == WorkUnit.job_id)
-                .where(WorkUnit.status == "queued", Job.status.in_(("queued", "running")))
+                .where(WorkUnit.status == UnitStatus.QUEUED, Job.status.in_(LIVE_JOB))
                 .order_by(WorkUnit.id)
             )
             return [i for i in ids if i not in self._inflight]
@@ -132,8 +136,9 @@ class LocalPool:
         # what the Celery beat's schedule and delivery ticks do in the distributed mode
         while not self._stop.wait(self.poll_seconds):
             try:
-                if tick_schedules(self._sessions, self.settings).units:
-                    self._wake.set()
+                units = tick_schedules(self._sessions, self.settings).units
+                if units:
+                    self.publish(units)
                 deliver_due(self._sessions, self.settings)
             except Exception:  # keep serving: the next tick retries from the store
                 log.exception("local schedule or delivery tick failed")
@@ -175,17 +180,7 @@ class LocalPool:
             return
         try:
             with self._sessions.begin() as session:
-                session.execute(
-                    update(WorkUnit)
-                    .where(WorkUnit.status == "running", WorkUnit.worker.in_(workers))
-                    .values(
-                        status="queued",
-                        lease_until=None,
-                        worker=None,
-                        # a shutdown is not a failed attempt
-                        attempts=WorkUnit.attempts - 1,
-                    )
-                )
+                release_claims(session, workers)
         except Exception:  # their leases still run out, and the reconciler re-queues them
             log.exception("could not hand back the units of the stopped pool processes")
 

@@ -64,7 +64,7 @@ def welch_t(new: Sequence[float], old: Sequence[float]) -> tuple[float, float, f
 
 
 def _finite(value: float) -> float | None:
-    # JSON columns refuse NaN and infinity (RELIABILITY.md): an undefined statistic is null
+    # JSON columns refuse NaN and infinity (docs/store.md): an undefined statistic is null
     return value if math.isfinite(value) else None
 
 

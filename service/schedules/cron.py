@@ -1,21 +1,35 @@
-"""A small five-field cron parser and the next firing time, evaluated in a named zone.
+"""Five-field cron expressions and their next firing time, evaluated in a named zone.
 
 Fields: minute hour day-of-month month day-of-week, each `*`, a number, a range `a-b`, a step
 (`*/s`, `a-b/s`, `a/s`) or a comma list of those; day-of-week 0-7 with 0 and 7 both Sunday. As in
 the classic cron, when both day fields are restricted a day matches if either does.
 
-Daylight saving: cron times are wall-clock times in the schedule's zone. A wall time that does not
-exist (the hour skipped in spring) fires at the first minute after the gap, once; a wall time that
-occurs twice (the hour repeated in autumn) fires once, at its first occurrence (PEP 495 fold=0).
-Both rules keep the mapping from wall time to UTC non-decreasing, so the first matching wall time
-whose UTC instant is later than `after` is the next firing.
+The calendar walk (which wall times match, month lengths, leap years) is the cronsim library's.
+Two parts stay ours, each because tests/schedules/test_cron.py shows the library reading a
+case differently:
+- the grammar: `parse_cron` reads each field into its numbers (one sentence naming the field
+  when it cannot) and hands the library only `*` or plain lists, so the library's extensions
+  (names, `L`, `#`, a seconds field) are never accepted and its readings of rarer forms never
+  apply (the "7-7/4" and "*/2" cases of test_next_time_in_utc);
+- daylight saving. cron times are wall-clock times in the schedule's zone. A wall time that does
+  not exist (the hour skipped in spring) fires at the first minute after the gap, once; a wall
+  time that occurs twice (the hour repeated in autumn) fires once, at its first occurrence (PEP
+  495 fold=0). Both rules keep the mapping from wall time to UTC non-decreasing, so the first
+  matching wall time whose UTC instant is later than `after` is the next firing. The library's
+  own zone mode follows Debian's cron instead: a schedule with `*` in the minute or hour field
+  skips a gap's wall times and fires in both passes of a repeated hour (the half-hourly spring
+  and hourly autumn tests), and asked from inside the second pass of a repeated hour it answers
+  the first pass, an instant earlier than the one it was asked from. So the library walks naive
+  wall times and `wall_to_utc` places them.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass
-from datetime import UTC, date, datetime, timedelta
+from datetime import UTC, datetime, timedelta
 from zoneinfo import ZoneInfo, ZoneInfoNotFoundError
+
+from cronsim import CronSim, CronSimError
 
 from service.errors import BadInput
 
@@ -26,33 +40,16 @@ _FIELDS = (
     ("month", 1, 12),
     ("day of week", 0, 7),
 )
-# Far enough for the rarest expression that can fire at all (29 February on a given weekday
-# recurs within 28 years); an expression that never fires (31 February) is refused at parse time.
-_SEARCH_YEARS = 29
+# Any fixed date serves to let the library check that some month has the named day.
+_PROBE = datetime(2000, 1, 1)
 
 
 @dataclass(frozen=True)
 class Cron:
-    """A parsed expression: the allowed values of each field."""
+    """A checked expression: as written (single-spaced) and as handed to the library."""
 
     text: str
-    minutes: tuple[int, ...]
-    hours: tuple[int, ...]
-    days: frozenset[int]
-    months: frozenset[int]
-    weekdays: frozenset[int]  # 0 = Sunday
-    days_restricted: bool
-    weekdays_restricted: bool
-
-    def matches_day(self, day: date) -> bool:
-        """Whether `day` is a firing day (the classic OR rule when both day fields are set)."""
-        if day.month not in self.months:
-            return False
-        in_days = day.day in self.days
-        in_weekdays = (day.isoweekday() % 7) in self.weekdays
-        if self.days_restricted and self.weekdays_restricted:
-            return in_days or in_weekdays
-        return in_days and in_weekdays
+    spec: str
 
 
 def _number(text: str, name: str, low: int, high: int, field: str) -> int:
@@ -86,7 +83,7 @@ def _parse_field(text: str, name: str, low: int, high: int, field: str) -> set[i
 
 
 def parse_cron(text: str, *, field: str = "cron") -> Cron:
-    """Parse a five-field expression; BadInput names `field` and the cron field at fault."""
+    """Check a five-field expression; BadInput names `field` and the cron field at fault."""
     parts = text.split()
     if len(parts) != 5:
         raise BadInput(
@@ -94,26 +91,21 @@ def parse_cron(text: str, *, field: str = "cron") -> Cron:
             f"a cron expression has five fields (minute hour day-of-month month day-of-week), "
             f"not {len(parts)}; for example '0 3 * * *' is every day at 03:00.",
         )
-    sets = [
-        _parse_field(part, name, low, high, field)
-        for part, (name, low, high) in zip(parts, _FIELDS, strict=True)
-    ]
-    weekdays = frozenset(d % 7 for d in sets[4])
-    cron = Cron(
-        text=" ".join(parts),
-        minutes=tuple(sorted(sets[0])),
-        hours=tuple(sorted(sets[1])),
-        days=frozenset(sets[2]),
-        months=frozenset(sets[3]),
-        weekdays=weekdays,
-        days_restricted=parts[2] != "*",
-        weekdays_restricted=parts[4] != "*",
+    # The library is handed each field as `*` or a plain list of numbers: its readings of the
+    # rarer forms differ from ours ("7-7/4" as 7 to the end in steps of 4; a day field starting
+    # with "*", such as "*/2", as unrestricted for the either-day rule).
+    spec = " ".join(
+        part if part == "*" else ",".join(map(str, sorted(_parse_field(part, *limits, field))))
+        for part, limits in zip(parts, _FIELDS, strict=True)
     )
-    longest = {1: 31, 2: 29, 3: 31, 4: 30, 5: 31, 6: 30, 7: 31, 8: 31, 9: 30, 10: 31, 11: 30}
-    if not cron.weekdays_restricted and all(
-        min(cron.days) > longest.get(m, 31) for m in cron.months
-    ):
-        raise BadInput(field, f"{text!r} names a day that none of its months has; it never fires.")
+    cron = Cron(text=" ".join(parts), spec=spec)
+    try:
+        # every field is valid by now: the library refuses only a day none of the months has
+        CronSim(cron.spec, _PROBE)
+    except CronSimError:
+        raise BadInput(
+            field, f"{text!r} names a day that none of its months has; it never fires."
+        ) from None
     return cron
 
 
@@ -147,16 +139,10 @@ def next_after(cron: Cron, after: datetime, tz: ZoneInfo) -> datetime:
     # Start a little before the local wall time of `after`: a time inside a spring gap maps to
     # the gap's end, which can lie after `after` even though its wall time reads earlier.
     start = after.astimezone(tz).replace(tzinfo=None, second=0, microsecond=0) - timedelta(hours=3)
-    day = start.date()
-    for _ in range(366 * _SEARCH_YEARS):
-        if cron.matches_day(day):
-            for hour in cron.hours:
-                for minute in cron.minutes:
-                    wall = datetime(day.year, day.month, day.day, hour, minute)
-                    if wall < start:
-                        continue
-                    instant = wall_to_utc(wall, tz)
-                    if instant > after:
-                        return instant
-        day += timedelta(days=1)
+    # naive datetimes: the library walks wall times with no zone rules of its own
+    for wall in CronSim(cron.spec, start):
+        instant = wall_to_utc(wall, tz)
+        if instant > after:
+            return instant
+    # the library gives up after 50 years without a match
     raise BadInput("cron", f"{cron.text!r} never fires; check the day and month fields.")

@@ -14,8 +14,8 @@ from service.auth import Action, Principal, authorize, reaches_every_team
 from service.config import Settings
 from service.datasets.sources import DatasetSource, check_table_size
 from service.errors import BadInput, not_visible
-from service.jobs.prepare import PreparedJob, prepare_job
-from service.jobs.request import bad_input_from
+from service.jobs.intake.prepare import PreparedJob, prepare_job
+from service.jobs.intake.request import bad_input_from
 from service.notify.targets import check_webhook_target
 from service.schedules.cron import next_after, parse_cron, zone
 from service.store.db import utcnow

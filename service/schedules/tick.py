@@ -3,7 +3,7 @@
 A due time is claimed by inserting its refresh row under the unique (schedule, due time) key with
 ON CONFLICT DO NOTHING, in the same transaction that reads the source and submits the job; on
 PostgreSQL a second tick's insert waits for the first transaction and then inserts nothing, so two
-ticks at once make one refresh and one job (RELIABILITY.md, schedules).
+ticks at once make one refresh and one job (docs/schedules.md).
 """
 
 from __future__ import annotations
@@ -22,7 +22,8 @@ from service.config import Settings
 from service.datasets.sources import DatasetSource, load_table
 from service.datasets.sql_source import SqlAccess
 from service.errors import BadInput
-from service.jobs.service import queued_unit_ids, submit_job
+from service.jobs.intake.start import start_submitted
+from service.jobs.intake.submit import submit_job
 from service.notify.outbox import REFRESH_EVENT, queue_delivery
 from service.schedules.compare import compare_results, refresh_status
 from service.schedules.cron import next_after, parse_cron, zone
@@ -182,10 +183,11 @@ def tick_schedules(
                 refresh = refresh_schedule(session, schedule, due_at, "tick", settings)
                 if schedule.next_due_at == due_at:
                     _advance_due(schedule, now)
+                job_id = refresh.job_id if refresh is not None else None
                 if refresh is not None:
                     report.refreshes.append(refresh.id)
-                    if refresh.job_id:
-                        report.units += queued_unit_ids(session, refresh.job_id)
+            if job_id:  # committed: started as every new job is, reused or not
+                report.units += start_submitted(sessions, job_id, settings)
         except Exception:  # one broken schedule must not stop the others
             log.exception("refreshing schedule %s failed", schedule_id)
     report.finished = finish_refreshes(sessions)
@@ -254,5 +256,5 @@ def trigger_refresh(
         schedule = session.get_one(Schedule, schedule_id)
         refresh = refresh_schedule(session, schedule, utcnow(), "manual", settings)
         assert refresh is not None  # a due time of this very microsecond is ours alone
-        units = queued_unit_ids(session, refresh.job_id) if refresh.job_id else []
-        return refresh.id, units
+        refresh_id, job_id = refresh.id, refresh.job_id
+    return refresh_id, start_submitted(sessions, job_id, settings) if job_id else []

@@ -26,6 +26,8 @@ from sqlalchemy import (
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
+from service.cv.scopes import FINAL_SCOPE
+from service.store.statuses import JobStatus, UnitStatus
 from service.store.types import (
     CreatedAt,
     Hash64,
@@ -37,16 +39,17 @@ from service.store.types import (
     UtcDateTime,
 )
 
-JOB_STATUSES = ("queued", "running", "succeeded", "failed", "cancelled")
+JOB_STATUSES = tuple(JobStatus)
 JOB_STAGES = ("inner", "outer", "aggregating", "done")
 FOLD_ROLES = ("outer", "inner", "final_inner")
 UNIT_KINDS = ("inner", "outer_refit", "final_refit")
-UNIT_STATUSES = ("queued", "running", "done", "failed", "cancelled")
-ALL_ROWS = "all"  # the scope of work on every row, as opposed to "r{repeat}f{fold}"
+UNIT_STATUSES = tuple(UnitStatus)
 
 
 def _one_of(column: str, values: tuple[str, ...]) -> str:
-    return f"{column} IN ({', '.join(repr(v) for v in values)})"
+    # repr of the plain string: an enum member's own repr is not SQL (the text must not change,
+    # or the stored constraints would differ from the models without a migration)
+    return f"{column} IN ({', '.join(repr(str(v)) for v in values)})"
 
 
 def _scope_matches(repeat: str, fold: str) -> str:
@@ -54,7 +57,7 @@ def _scope_matches(repeat: str, fold: str) -> str:
     # nullable outer coordinates cannot be part of the key); this keeps the two in step. The
     # IS NOT NULL terms matter: 'r' || NULL is NULL, and a CHECK that yields NULL passes.
     return (
-        f"(scope = '{ALL_ROWS}' AND {repeat} IS NULL AND {fold} IS NULL) OR "
+        f"(scope = '{FINAL_SCOPE}' AND {repeat} IS NULL AND {fold} IS NULL) OR "
         f"({repeat} IS NOT NULL AND {fold} IS NOT NULL AND "
         f"scope = 'r' || CAST({repeat} AS VARCHAR) || 'f' || CAST({fold} AS VARCHAR))"
     )
@@ -182,8 +185,8 @@ class JobFold(Base):
         CheckConstraint(_one_of("role", FOLD_ROLES), name="role"),
         # Inner folds split one outer training set; outer and final inner folds split all rows.
         CheckConstraint(
-            f"(role = 'inner' AND scope <> '{ALL_ROWS}') OR "
-            f"(role <> 'inner' AND scope = '{ALL_ROWS}')",
+            f"(role = 'inner' AND scope <> '{FINAL_SCOPE}') OR "
+            f"(role <> 'inner' AND scope = '{FINAL_SCOPE}')",
             name="role_scope",
         ),
         CheckConstraint(_scope_matches("parent_repeat", "parent_fold"), name="scope_parent"),
@@ -208,8 +211,8 @@ class WorkUnit(Base):
         CheckConstraint(_one_of("status", UNIT_STATUSES), name="status"),
         CheckConstraint(_scope_matches("outer_repeat", "outer_fold"), name="scope_outer"),
         CheckConstraint(
-            f"(kind <> 'outer_refit' OR scope <> '{ALL_ROWS}') AND "
-            f"(kind <> 'final_refit' OR scope = '{ALL_ROWS}')",
+            f"(kind <> 'outer_refit' OR scope <> '{FINAL_SCOPE}') AND "
+            f"(kind <> 'final_refit' OR scope = '{FINAL_SCOPE}')",
             name="kind_scope",
         ),
         # A redelivered "create units" step cannot make a twin unit.
@@ -226,7 +229,9 @@ class WorkUnit(Base):
     outer_repeat: Mapped[int | None]
     outer_fold: Mapped[int | None]
     candidate_key: Mapped[Hash64] = mapped_column(ForeignKey("candidate.candidate_key"))
-    status: Mapped[Short] = mapped_column(default="queued", server_default="queued")
+    status: Mapped[Short] = mapped_column(
+        default=UnitStatus.QUEUED, server_default=str(UnitStatus.QUEUED)
+    )
     attempts: Mapped[int] = mapped_column(default=0, server_default="0")
     lease_until: Mapped[datetime | None]
     worker: Mapped[str | None] = mapped_column(String(200))

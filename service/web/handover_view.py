@@ -18,8 +18,8 @@ from sqlalchemy.orm import Session
 
 from service.config import Settings
 from service.cv.slices import OuterPredictions
-from service.jobs.outer_predictions import NotReady, all_outer
-from service.jobs.plans import PlanMismatch, plan_for_job
+from service.jobs.execution.plans import PlanMismatch, plan_for_job
+from service.jobs.handover.outer_predictions import NotReady, all_outer
 from service.store.models import Job
 from service.web.handover_svg import scatter
 

@@ -1,4 +1,4 @@
-"""Report pages under /reports: server-rendered HTML behind a signed session cookie."""
+"""Report pages under /reports: server-rendered HTML behind a signed sign-in cookie."""
 
 from __future__ import annotations
 
@@ -13,14 +13,15 @@ from fastapi.responses import HTMLResponse, RedirectResponse, Response
 from jinja2 import Environment, FileSystemLoader, select_autoescape
 from sqlalchemy import select
 
-from service.api.deps import SessionsDep
-from service.jobs.service import NotFound, get_job, job_query
+from service.errors import NotFound
+from service.http.deps import SessionsDep
+from service.http.origin import cross_site_reason
+from service.jobs.queries.jobs import get_job, job_query
 from service.store.models import Dataset
 from service.web import dataset_view, handover_view, views
 from service.web.compare_view import compare_page
 from service.web.job_state import REFRESH_SECONDS
-from service.web.origin import cross_site_reason
-from service.web.session import (
+from service.web.signin import (
     COOKIE,
     LIFETIME_SECONDS,
     Reader,
@@ -123,7 +124,7 @@ def _refuse_cross_site(request: Request) -> Response | None:
 
 @router.get("/sign-in")
 def sign_in_form(request: Request, sessions: SessionsDep, next: str | None = None) -> Response:
-    """The sign-in form (or straight on, if the session is already good)."""
+    """The sign-in form (or straight on, if the sign-in cookie is already good)."""
     if _reader(request, sessions) is not None:
         return RedirectResponse(_safe_next(next), status_code=303)
     return _page("sign_in.html", title="Sign in", next=_safe_next(next), error=None, reader=None)
@@ -136,7 +137,7 @@ def sign_in(
     token: Annotated[str, Form(max_length=500)] = "",
     next: Annotated[str, Form(max_length=2000)] = "/reports/",
 ) -> Response:
-    """Check a pasted token; a reader gets a signed session cookie, never the token itself."""
+    """Check a pasted token; a reader gets a signed sign-in cookie, never the token itself."""
     refused = _refuse_cross_site(request)
     if refused is not None:
         return refused
@@ -167,7 +168,7 @@ def sign_in(
 
 @router.post("/sign-out")
 def sign_out(request: Request) -> Response:
-    """Forget the session cookie."""
+    """Forget the sign-in cookie."""
     refused = _refuse_cross_site(request)
     if refused is not None:
         return refused

@@ -9,7 +9,7 @@ from sqlalchemy.orm import Session
 
 from service.cv.cautions import PEOPLE_PREFIX
 from service.store.models import Job
-from service.web import curves, job_state, svg, svg_grid
+from service.web import job_state, svg, svg_grid, validation_curves
 from service.web.queries import (
     inner_cells,
     job_candidates,
@@ -36,7 +36,7 @@ def signed(value: float) -> str:
 def describe(candidate: dict[str, Any]) -> str:
     """'SVC(C=1, gamma=0.1)' from a result's candidate entry."""
     params = ", ".join(
-        f"{k}={short(v) if isinstance(v, float) else curves.value_label(v)}"
+        f"{k}={short(v) if isinstance(v, float) else validation_curves.value_label(v)}"
         for k, v in candidate["params"].items()
     )
     return f"{candidate['estimator']}({params})"
@@ -85,14 +85,14 @@ def _declared_log(request: dict[str, Any], estimator: str, key: str) -> bool:
     return False
 
 
-def _numbers(family: curves.Family, key: str) -> dict[str, float] | None:
+def _numbers(family: validation_curves.Family, key: str) -> dict[str, float] | None:
     """Each value label of `key` with its number, when every value is a number (not a bool)."""
     out: dict[str, float] = {}
     for candidate in family.candidates:
         value = candidate.params.get(key)
         if isinstance(value, bool) or not isinstance(value, int | float):
             return None
-        out[curves.value_label(value)] = float(value)
+        out[validation_curves.value_label(value)] = float(value)
     return out
 
 
@@ -151,9 +151,9 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
         context["people"], context["cautions"] = _people(result.get("cautions", []))
     drawn = []
     heats = []
-    for family in curves.families(candidates):
+    for family in validation_curves.families(candidates):
         for key in family.varying:
-            curve = curves.validation_curve(family, key, cells)
+            curve = validation_curves.validation_curve(family, key, cells)
             drawn.append(
                 {
                     "estimator": family.estimator,
@@ -170,14 +170,14 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
                     ),
                 }
             )
-        grid = curves.heat(family, cells)
+        grid = validation_curves.heat(family, cells)
         if grid is not None:
             heats.append(
                 {
                     "estimator": grid.estimator,
                     "row_key": grid.row_key,
                     "col_key": grid.col_key,
-                    "scope": grid.scope,
+                    "over": grid.over,
                     "svg": svg_grid.heat_map(
                         grid.rows,
                         grid.cols,
@@ -189,5 +189,5 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
                     ),
                 }
             )
-    context["curves"], context["heats"] = drawn, heats
+    context["validation_curves"], context["heats"] = drawn, heats
     return context

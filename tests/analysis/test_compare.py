@@ -23,7 +23,7 @@ def test_corrected_t_reproduces_the_published_worked_example() -> None:
     #   t = mean(d) / sqrt((1/J + n_test/n_train) * s^2),  s^2 = ddof=1 variance of the J
     #   per-fold differences, df = J - 1.
     # Worked check (scikit-learn's example "Statistical comparison of models using grid
-    # search", REFERENCES.md [V, rerun]): make_moons(100, noise=0.352, random_state=1),
+    # search", docs/references.md [V, rerun]): make_moons(100, noise=0.352, random_state=1),
     # SVC(random_state=0) rbf vs linear, RepeatedStratifiedKFold(10, 10, random_state=0), roc_auc.
     X, y = make_moons(n_samples=100, noise=0.352, random_state=1)
     cv = RepeatedStratifiedKFold(n_splits=10, n_repeats=10, random_state=0)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import csv
 import io
 import json
 import math
@@ -12,8 +13,9 @@ import pyarrow.parquet as pq
 import pytest
 
 from service.analysis import export, queries
+from service.api.jobs.schemas import FoldScorePublic
 from service.auth import Principal
-from service.jobs.fold_rows import EXTRA_COLUMNS
+from service.jobs.handover.fold_rows import EXTRA_COLUMNS
 
 from .conftest import Seeded
 
@@ -69,15 +71,25 @@ def test_dataset_csv_and_parquet_equal_the_json_listing(
 ) -> None:
     iris = seeded.jobs["A"]["dataset_hash"]
     base = f"/v1/datasets/{iris}/fold-scores"
-    listing = _json_records(_listing(seeded, base, **params))
+    raw = _listing(seeded, base, **params)
+    listing = _json_records(raw)
     assert listing
     csv_bytes, csv_type = _get_bytes(seeded, base + ".csv", **params)
     assert csv_type.startswith("text/csv")
     from_csv = _records(pd.read_csv(io.BytesIO(csv_bytes), keep_default_na=True))
     assert from_csv == listing
+    # the one CSV writer spells times as the listing does, for a dataset as for a job
+    text_rows = csv.DictReader(io.StringIO(csv_bytes.decode()))
+    assert [r["created_at"] for r in text_rows] == [r["created_at"] for r in raw]
     parquet_bytes, parquet_type = _get_bytes(seeded, base + ".parquet", **params)
     assert parquet_type == "application/vnd.apache.parquet"
     assert _records(pd.read_parquet(io.BytesIO(parquet_bytes))) == listing
+
+
+def test_every_export_has_the_listing_columns_in_its_order() -> None:
+    # one column list: the job exports' columns are the JSON listing's fields, in order
+    assert tuple(FoldScorePublic.model_fields) == export.JOB_COLUMNS
+    assert (*export.COLUMNS, *EXTRA_COLUMNS) == export.JOB_COLUMNS
 
 
 def test_job_parquet_equals_the_job_listing(seeded: Seeded) -> None:
@@ -85,7 +97,8 @@ def test_job_parquet_equals_the_job_listing(seeded: Seeded) -> None:
     rows = _listing(seeded, f"/v1/jobs/{job_id}/fold-scores")
     content, _ = _get_bytes(seeded, f"/v1/jobs/{job_id}/fold-scores.parquet")
     frame = pd.read_parquet(io.BytesIO(content))
-    # a job's export adds where each fold sits and the candidate (service/jobs/fold_rows.py)
+    # a job's export adds where each fold sits and the candidate
+    # (service/jobs/handover/fold_rows.py)
     assert list(frame.columns) == export.JOB_PARQUET_SCHEMA.names
     assert _records(frame[list(export.COLUMNS)]) == _json_records(rows)
     extra = frame[list(EXTRA_COLUMNS)].astype(object).where(frame.notna(), None)

@@ -18,8 +18,8 @@ from service.analysis import export, queries
 from service.analysis.history import dataset_history
 from service.auth import Principal
 from service.config import load_settings
-from service.jobs.embedded import run_embedded
-from service.jobs.service import register_dataset
+from service.jobs.local.driver import run_embedded
+from service.jobs.queries.datasets import register_dataset
 from service.store.db import make_engine, make_session_factory
 
 from .conftest import IRIS_LR

@@ -92,7 +92,7 @@ def test_the_fits_count_is_the_work_a_job_really_does(finished_job: dict[str, An
 
 
 def _spec(request: dict[str, Any]) -> Any:
-    from service.jobs.request import parse_job_request
+    from service.jobs.intake.request import parse_job_request
 
     return parse_job_request(copy.deepcopy(request))
 

@@ -15,7 +15,7 @@ from typing import Any
 from sklearn.datasets import load_iris
 
 from service.config import load_settings
-from service.jobs.embedded import run_embedded
+from service.jobs.local.driver import run_embedded
 
 from .server import Server
 

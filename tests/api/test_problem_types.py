@@ -7,7 +7,7 @@ from urllib.parse import urljoin
 
 import httpx
 
-from service.api.problems import PROBLEM_TYPES
+from service.http.problems import PROBLEM_TYPES
 
 from .server import Server
 

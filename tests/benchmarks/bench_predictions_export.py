@@ -24,8 +24,8 @@ from sklearn.datasets import make_classification
 
 from service.analysis import predictions
 from service.config import load_settings
-from service.jobs.embedded import run_embedded
-from service.jobs.plans import plan_for_job
+from service.jobs.execution.plans import plan_for_job
+from service.jobs.local.driver import run_embedded
 from service.store.db import make_engine, make_session_factory
 from service.store.models import Job
 

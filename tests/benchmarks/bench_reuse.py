@@ -24,7 +24,7 @@ from pathlib import Path
 from typing import Any
 
 from service.config import Settings, load_settings
-from service.jobs.embedded import run_embedded
+from service.jobs.local.driver import run_embedded
 from service.store.db import upgrade_database
 
 # breast cancer Wisconsin ships with scikit-learn (Street, Wolberg & Mangasarian 1993)

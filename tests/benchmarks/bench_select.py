@@ -282,9 +282,9 @@ def probe_store(job_path: Path) -> dict[str, Any]:
     # what `foldwise select` imports before it runs anything
     for name in ("service.cli.main", "service.cli.progress", "service.cli.render"):
         importlib.import_module(name)
-    import service.jobs.embedded as embedded
-    import service.jobs.execute as execute
-    import service.jobs.work as work
+    import service.jobs.execution.execute as execute
+    import service.jobs.execution.work as work
+    import service.jobs.local.driver as embedded
     import service.store.db as db
     from service.config import load_settings
 

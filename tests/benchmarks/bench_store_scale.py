@@ -44,8 +44,8 @@ from service.analysis.queries import dataset_fold_scores_page, dataset_jobs  # n
 from service.api.jobs.router import _public  # noqa: E402
 from service.auth import Principal  # noqa: E402
 from service.config import load_settings  # noqa: E402
-from service.jobs.embedded import run_embedded  # noqa: E402
-from service.jobs.service import get_job  # noqa: E402
+from service.jobs.local.driver import run_embedded  # noqa: E402
+from service.jobs.queries.jobs import get_job  # noqa: E402
 from service.store.db import make_engine, make_session_factory, upgrade_database  # noqa: E402
 from service.store.models import Base, FoldScore, Job  # noqa: E402
 from service.web.views import job_page  # noqa: E402

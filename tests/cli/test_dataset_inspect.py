@@ -52,7 +52,7 @@ def test_csv_description(inspected: dict[str, Outcome]) -> None:
 
 
 def test_parquet_copy_has_the_same_content_hash(inspected: dict[str, Outcome]) -> None:
-    # DESIGN.md: the content hash is format-independent (same values, order, names and types)
+    # docs/store.md: the content hash is format-independent (same values, order, names, types)
     csv, parquet = _description(inspected["csv"]), _description(inspected["parquet"])
     assert parquet["content_hash"] == csv["content_hash"]
     assert parquet["columns"] == csv["columns"]

@@ -13,7 +13,7 @@ import pytest
 
 from .runner import DATA_NAME, N_ROWS, Outcome, base_request, run_foldwise, store_count, store_jobs
 
-# DESIGN.md, "Result v1"
+# README.md, "Result v1"
 RESULT_V1_KEYS = {
     "dataset_hash",
     "task",
@@ -103,7 +103,7 @@ def test_result_describes_the_request(result: dict[str, Any], request_v1: dict[s
         per_fold = [f["scores"][metric] for f in result["outer"]]
         assert result["estimate"][metric]["values"] == per_fold
     assert sum(p["count"] for p in result["pick_frequency"]) == outer_k
-    # DESIGN.md: the final pick's inner mean minus the outer mean, for pick_by
+    # README.md, "Result v1": the final pick's inner mean minus the outer mean, for pick_by
     gap = result["final_pick"]["inner_mean"] - result["estimate"][pick_by]["mean"]
     assert result["optimism_gap"] == pytest.approx(gap)
     assert {"foldwise", "scikit-learn", "numpy", "python"} <= set(result["versions"])

@@ -15,8 +15,8 @@ from service.cv.plan import build_plan
 from service.cv.spec import SelectionSpec
 from service.cv.subsample import kept_count
 from service.datasets.sources import DatasetSource, load_table
-from service.jobs.embedded import JobFailed, run_embedded
-from service.jobs.reconcile import reconcile
+from service.jobs.execution.reconcile import reconcile
+from service.jobs.local.driver import JobFailed, run_embedded
 from service.store.db import make_engine, make_session_factory
 from service.store.models import Job, WorkUnit
 
@@ -90,7 +90,7 @@ def test_error_is_one_minus_accuracy_and_does_not_rise_with_more_data(finished: 
     assert errors[-1] <= errors[0] + 0.01, errors
     assert all(b <= a + 0.02 for a, b in itertools.pairwise(errors)), errors
     # and on this table more data does help the linear model: about 0.98 accuracy at 100 %
-    # (REFERENCES.md, a loose sanity range of 0.93-0.99 for breast cancer)
+    # (docs/references.md, a loose sanity range of 0.93-0.99 for breast cancer)
     assert 0.01 <= errors[-1] <= 0.07, errors
 
 

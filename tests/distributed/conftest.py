@@ -14,7 +14,7 @@ import pytest
 import redis
 
 from service.config import load_settings
-from service.jobs.embedded import run_embedded
+from service.jobs.local.driver import run_embedded
 
 from .stack import REPO, Stack
 

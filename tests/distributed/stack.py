@@ -24,9 +24,9 @@ from sqlalchemy import func, select
 from service.auth import Principal
 from service.config import Settings, load_settings
 from service.dispatch import UNIT_QUEUE
-from service.dispatch.base import mark_published
 from service.dispatch.celery_client import CeleryDispatcher
-from service.jobs.service import queued_unit_ids, submit_job
+from service.jobs.intake.start import start_submitted
+from service.jobs.intake.submit import submit_job
 from service.store.db import make_engine, make_session_factory
 from service.store.models import Job, WorkUnit
 
@@ -131,19 +131,16 @@ class Stack:
             job_id = submit_job(
                 session, request, principal=TEAM, settings=self.settings, base_dir=REPO
             ).job.id
-        with self.sessions() as session:
-            unit_ids = queued_unit_ids(session, job_id)
-        self.publish(unit_ids)
+        self.publish(start_submitted(self.sessions, job_id, self.settings))
         return job_id
 
     def publish(self, unit_ids: list[int]) -> None:
-        """Send run_unit messages by task name and record when, as the API does."""
+        """Send run_unit messages by task name (the dispatcher records when), as the API does."""
         dispatcher = CeleryDispatcher(self.settings)
         try:
             dispatcher.publish(unit_ids)
         finally:
             dispatcher.close()
-        mark_published(self.sessions, unit_ids)
 
     # broker ------------------------------------------------------------------------------
     def redis(self) -> redis.Redis:

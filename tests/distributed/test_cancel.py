@@ -6,7 +6,7 @@ from typing import Any
 
 from sqlalchemy import func, select
 
-from service.jobs.service import cancel_job
+from service.jobs.lifecycle import cancel_job
 from service.store.models import FoldScore, Job, WorkUnit
 
 from .requests import slow_request

@@ -15,7 +15,7 @@ from service.cv.plan import SelectionPlan, build_plan
 from service.cv.spec import SelectionSpec
 from service.datasets.kinds import infer_column_kinds
 from service.datasets.sources import DatasetSource, load_table
-from service.jobs.embedded import EmbeddedOutcome, run_embedded
+from service.jobs.local.driver import EmbeddedOutcome, run_embedded
 
 
 @cache

@@ -2,7 +2,7 @@
 
 The example (which cites Cawley & Talbot 2010, JMLR 11:2079-2107) tunes an RBF SVC on iris with
 KFold(4, shuffle=True, random_state=i) for both loops. Expected values for trial i = 0 are from
-REFERENCES.md, "Nested versus non-nested (Cawley & Talbot 2010)": rerun on scikit-learn 1.9.1
+docs/references.md, "Nested versus non-nested (Cawley & Talbot 2010)": rerun on scikit-learn 1.9.1
 and given there to six decimals [V, rerun].
 
 The engine gives SVC random_state=0 because SVC has one and the family does not fix it; SVC uses
@@ -18,7 +18,8 @@ import numpy as np
 import pytest
 
 from service.cv.nested import NestedOutcome, record, run_nested
-from service.cv.plan import FINAL_SCOPE, SelectionPlan
+from service.cv.plan import SelectionPlan
+from service.cv.scopes import FINAL_SCOPE
 from service.cv.selection import ScoreBook, inner_means
 from service.cv.units import fit_and_score, inner_units
 
@@ -41,8 +42,8 @@ REQUEST = {
     "metrics": ["accuracy"],
 }
 
-# REFERENCES.md, trial 0 [V, rerun on scikit-learn 1.9.1]: the non-nested search's mean_test_score
-# per candidate, in ParameterGrid order (C, then gamma fastest)
+# docs/references.md, trial 0 [V, rerun on scikit-learn 1.9.1]: the non-nested search's
+# mean_test_score per candidate, in ParameterGrid order (C, then gamma fastest)
 FINAL_INNER_MEANS = [0.913762, 0.960349, 0.960349, 0.959993, 0.959993, 0.946657]
 # ... its best_index_ 1: C=1, gamma=0.1, tied with C=10, gamma=0.01 and won by order
 BEST = {"C": 1, "gamma": 0.1}
@@ -78,13 +79,13 @@ def test_candidates_follow_parameter_grid_order() -> None:
 
 def test_non_nested_inner_means_match_the_published_example() -> None:
     means = inner_means(plan(), FINAL_SCOPE, all_rows_book())
-    # REFERENCES.md trial 0 inner means [V, rerun], to the six decimals given there
+    # docs/references.md trial 0 inner means [V, rerun], to the six decimals given there
     np.testing.assert_array_equal(np.round(means, DECIMALS), FINAL_INNER_MEANS)
 
 
 def test_final_pick_breaks_the_tie_by_candidate_order() -> None:
     final = nested().result["final_pick"]
-    # REFERENCES.md trial 0: best index 1 (C=1, gamma=0.1), a tie broken by order [V, rerun]
+    # docs/references.md trial 0: best index 1 (C=1, gamma=0.1), a tie broken by order [V, rerun]
     assert {k: final["params"][k] for k in BEST} == BEST
     assert final["params"]["kernel"] == "rbf"
     assert round(final["inner_mean"], DECIMALS) == FINAL_INNER_MEANS[1]
@@ -94,14 +95,14 @@ def test_final_pick_breaks_the_tie_by_candidate_order() -> None:
 def test_outer_fold_score_matches_the_published_example(fold: int) -> None:
     row = nested().result["outer"][fold]
     assert row["fold"] == fold
-    # REFERENCES.md trial 0 outer fold scores [V, rerun], to the six decimals given there
+    # docs/references.md trial 0 outer fold scores [V, rerun], to the six decimals given there
     assert round(row["scores"]["accuracy"], DECIMALS) == OUTER_SCORES[fold]
 
 
 def test_nested_mean_and_gap_follow_from_the_published_scores() -> None:
     result = nested().result
     # the example's nested score is the mean of the outer scores and its non-nested score is
-    # the best inner mean; both from REFERENCES.md trial 0, so the rounding of the
+    # the best inner mean; both from docs/references.md trial 0, so the rounding of the
     # published values allows up to 5e-7 in each term
     assert abs(result["estimate"]["accuracy"]["mean"] - np.mean(OUTER_SCORES)) < 1.5e-6
     expected_gap = FINAL_INNER_MEANS[1] - np.mean(OUTER_SCORES)

@@ -432,7 +432,7 @@ def test_a_model_fitted_with_weights_is_written_in_skops_format(preprocess: Any)
     import skops.io as sio
 
     from service.cv.weights import fit_model
-    from service.jobs.model_file import model_bytes
+    from service.jobs.handover.model_file import model_bytes
 
     frame = iris_with(1.0 + (np.arange(150) % 4))
     request = iris_request(

@@ -11,8 +11,8 @@ from sqlalchemy import func, select
 
 from service.config import load_settings
 from service.errors import BadInput
-from service.jobs.embedded import JobFailed, run_embedded
-from service.jobs.execute import execute_unit, worker_name
+from service.jobs.execution.execute import execute_unit, worker_name
+from service.jobs.local.driver import JobFailed, run_embedded
 from service.store.db import make_engine, make_session_factory
 from service.store.models import FoldScore, Job, WorkUnit
 

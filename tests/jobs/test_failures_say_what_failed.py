@@ -16,11 +16,11 @@ from api.server import running_server
 from sqlalchemy import select
 
 from service.config import Settings, load_settings
-from service.jobs.embedded import JobFailed, run_embedded
-from service.jobs.execute import MAX_ATTEMPTS, claim_unit
-from service.jobs.prepare import prepare_job
-from service.jobs.reconcile import reconcile
-from service.jobs.submit import create_job
+from service.jobs.execution.reconcile import reconcile
+from service.jobs.intake.create import create_job
+from service.jobs.intake.prepare import prepare_job
+from service.jobs.lifecycle import MAX_ATTEMPTS, claim_unit
+from service.jobs.local.driver import JobFailed, run_embedded
 from service.store.db import make_engine, make_session_factory, upgrade_database, utcnow
 from service.store.models import FoldScore, Job, WorkUnit
 

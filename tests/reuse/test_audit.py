@@ -15,8 +15,8 @@ from sqlalchemy import func, select, text
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings, load_settings
-from service.jobs.audit import request_audit, run_audit
-from service.jobs.embedded import run_embedded
+from service.jobs.audits.audit import request_audit, run_audit
+from service.jobs.local.driver import run_embedded
 from service.store.db import make_engine, make_session_factory
 from service.store.models import Audit, FoldScore, Job, WorkUnit
 

@@ -10,9 +10,9 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.auth import Principal
 from service.config import Settings, load_settings
-from service.jobs.embedded import run_embedded
-from service.jobs.reconcile import reconcile
-from service.jobs.service import submit_job
+from service.jobs.execution.reconcile import reconcile
+from service.jobs.intake.submit import submit_job
+from service.jobs.local.driver import run_embedded
 from service.store.models import FoldPrediction, FoldScore, Job, JobCandidate, Pick, WorkUnit
 
 from .conftest import count_scores, make_request, with_grid

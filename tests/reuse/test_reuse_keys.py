@@ -17,7 +17,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
-from service.jobs.embedded import run_embedded
+from service.jobs.local.driver import run_embedded
 from service.store.models import Job
 
 from .conftest import make_request

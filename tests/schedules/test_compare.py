@@ -16,7 +16,7 @@ def test_corrected_t_reproduces_the_published_worked_example() -> None:
     # scikit-learn's example "Statistical comparison of models using grid search" (which follows
     # Nadeau & Bengio 2003): make_moons(100, noise=0.352, random_state=1), SVC rbf vs linear,
     # RepeatedStratifiedKFold(10, 10, random_state=0), roc_auc; corrected t = 0.750, one-sided
-    # p = 0.227 (REFERENCES.md, rerun on scikit-learn 1.9.1)
+    # p = 0.227 (docs/references.md, rerun on scikit-learn 1.9.1)
     x, y = make_moons(n_samples=100, noise=0.352, random_state=1)
     cv = RepeatedStratifiedKFold(n_splits=10, n_repeats=10, random_state=0)
     rbf = cross_val_score(SVC(kernel="rbf", random_state=0), x, y, cv=cv, scoring="roc_auc")

@@ -44,6 +44,12 @@ def at(*parts: int) -> datetime:
         ("0 0 29 2 *", at(2026, 12, 1), at(2028, 2, 29)),
         # end of year rolls into January
         ("0 0 1 1 *", at(2026, 12, 31, 23, 59), at(2027, 1, 1)),
+        # a one-value stepped range is that value: July only, so July 2027 (cronsim alone
+        # reads "7-7/4" as July and November)
+        ("0 0 1 7-7/4 *", at(2026, 7, 2), at(2027, 7, 1)),
+        # "*/2" restricts the day of month, so either day field may match: Saturday the 5th
+        # (cronsim alone treats a field starting with "*" as unrestricted: Friday the 11th)
+        ("0 12 */2 * 5", at(2026, 12, 4, 12, 0), at(2026, 12, 5, 12, 0)),
     ],
 )
 def test_next_time_in_utc(expression: str, after: datetime, expected: datetime) -> None:
@@ -88,6 +94,23 @@ def test_hourly_schedule_across_the_spring_gap_skips_no_instant_twice() -> None:
     assert seen == [at(2026, 3, 28, 23), at(2026, 3, 29, 0), at(2026, 3, 29, 1), at(2026, 3, 29, 2)]
 
 
+def test_half_hourly_schedule_fires_when_the_spring_gap_ends() -> None:
+    # 02:30 is skipped in Berlin on 2026-03-29 and fires at the gap's end, 03:00 CEST (01:00
+    # UTC), then 03:30 CEST; Debian's cron, and cronsim's zone mode, skip it for a "*" hour
+    cron = parse_cron("30 * * * *")
+    first = next_after(cron, at(2026, 3, 29, 0, 45), BERLIN)
+    assert first == at(2026, 3, 29, 1, 0)
+    assert next_after(cron, first, BERLIN) == at(2026, 3, 29, 1, 30)
+
+
+def test_hourly_schedule_across_the_autumn_repeat_fires_each_wall_hour_once() -> None:
+    # 02:00 occurs at 00:00 UTC (CEST) and 01:00 UTC (CET) in Berlin on 2026-10-25: it fires at
+    # the first only, then 03:00 CET (02:00 UTC); Debian's cron fires a "*" hour in both passes
+    cron = parse_cron("0 * * * *")
+    assert next_after(cron, at(2026, 10, 24, 23, 30), BERLIN) == at(2026, 10, 25, 0, 0)
+    assert next_after(cron, at(2026, 10, 25, 0, 0), BERLIN) == at(2026, 10, 25, 2, 0)
+
+
 @pytest.mark.parametrize(
     ("expression", "words"),
     [
@@ -98,6 +121,10 @@ def test_hourly_schedule_across_the_spring_gap_skips_no_instant_twice() -> None:
         ("0 0 * 13 *", "month field allows 1-12"),
         ("0 0 * * 8", "day of week field allows 0-7"),
         ("0 0 * * mon", "'mon' where a number is needed"),
+        # the cron library's extensions are not part of the accepted grammar
+        ("0 0 L * *", "'L' where a number is needed"),
+        ("0 0 * * 5#2", "'5#2' where a number is needed"),
+        ("0 0 0 * * *", "not 6"),
         ("5-1 * * * *", "backwards range"),
         ("*/0 * * * *", "allows 1-60, not 0"),
         ("0 0 31 2 *", "never fires"),

@@ -16,7 +16,7 @@ import httpx
 import pytest
 
 from service.cli.local_server import free_port
-from service.web.session import COOKIE
+from service.web.signin import COOKIE
 
 from .live import LiveServer
 

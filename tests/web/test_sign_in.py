@@ -8,7 +8,7 @@ from typing import Any
 
 import httpx
 
-from service.web.session import COOKIE, sign, verify
+from service.web.signin import COOKIE, sign, verify
 
 from .live import LiveServer
 from .pages import sign_in, watch_console

@@ -16,19 +16,19 @@ from service.api.analysis.schemas import (
     comparison_public,
     history_public,
 )
-from service.api.deps import ReaderDep, SessionDep, SessionsDep
 from service.api.jobs.export import public_scores
-from service.api.jobs.router import AllMetrics
-from service.api.jobs.router import _summary as job_summary  # one listing shape for jobs
-from service.api.jobs.schemas import FoldScorePage, JobList
-from service.api.json_body import StrictJsonRoute
-from service.api.limits import MAX_SQL_INT
-from service.api.problems import problem_responses
-from service.api.streams import attachment
+from service.api.jobs.params import AllMetrics
+from service.api.jobs.schemas import FoldScorePage, JobList, job_summary
 from service.auth import Principal
 from service.errors import BadInput
-from service.jobs import service
-from service.jobs.fold_rows import fold_context
+from service.http.deps import ReaderDep, SessionDep, SessionsDep
+from service.http.json_body import StrictJsonRoute
+from service.http.limits import MAX_SQL_INT
+from service.http.problems import problem_responses
+from service.http.streams import attachment
+from service.jobs.handover.fold_rows import fold_context
+from service.jobs.queries import datasets as dataset_access
+from service.jobs.queries import jobs as job_queries
 from service.store.models import FoldScore, Job
 
 router = APIRouter(tags=["analysis"], route_class=StrictJsonRoute)
@@ -84,7 +84,7 @@ def list_dataset_fold_scores(
     limit: Annotated[int, Query(ge=1, le=queries.MAX_PAGE)] = 100,
 ) -> FoldScorePage:
     """Scores on the folds and candidates of the visible jobs on the table, in id order."""
-    service.visible_dataset(session, content_hash, principal)
+    dataset_access.visible_dataset(session, content_hash, principal)
     rows = queries.dataset_fold_scores_page(
         session,
         principal,
@@ -128,7 +128,7 @@ def export_dataset_csv(
     role: RoleFilter = None,
 ) -> StreamingResponse:
     """Streamed page by page from the store, each page in its own short session."""
-    service.visible_dataset(session, content_hash, principal)
+    dataset_access.visible_dataset(session, content_hash, principal)
     fetch = _dataset_fetcher(
         principal, content_hash, candidate_key=candidate_key, metric=metric, role=role
     )
@@ -159,7 +159,7 @@ def export_dataset_parquet(
     role: RoleFilter = None,
 ) -> StreamingResponse:
     """Streamed as it is written: one row group per keyset page, then the footer."""
-    service.visible_dataset(session, content_hash, principal)
+    dataset_access.visible_dataset(session, content_hash, principal)
     fetch = _dataset_fetcher(
         principal, content_hash, candidate_key=candidate_key, metric=metric, role=role
     )
@@ -188,12 +188,12 @@ def export_job_parquet(
     all_metrics: AllMetrics = False,
 ) -> StreamingResponse:
     """The same scores as GET /v1/jobs/{id}/fold-scores, streamed as Parquet."""
-    job = service.get_job(session, job_id, principal)
+    job = job_queries.get_job(session, job_id, principal)
     found = job.id
 
     def fetch(page_session: Session, after: int, limit: int) -> list[FoldScore]:
         stored = page_session.get_one(Job, found)
-        return service.fold_scores_page(
+        return job_queries.fold_scores_page(
             page_session, stored, after_id=after, limit=limit, all_metrics=all_metrics
         )
 

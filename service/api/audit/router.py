@@ -9,15 +9,15 @@ from fastapi import APIRouter, Body, Path, Response
 from sqlalchemy.orm import Session
 
 from service.api.audit.schemas import AuditPublic, Provenance
-from service.api.deps import AuditorDep, DispatcherDep, ReaderDep, SessionDep
-from service.api.json_body import StrictJsonRoute
-from service.api.problems import problem_responses
 from service.auth import Action, Principal, authorize
 from service.errors import not_visible
-from service.jobs import service
-from service.jobs.audit import audit_view, check_audit_request, request_audit
-from service.jobs.provenance import provenance
-from service.jobs.service import foreign_job_ids
+from service.http.deps import AuditorDep, DispatcherDep, ReaderDep, SessionDep
+from service.http.json_body import StrictJsonRoute
+from service.http.problems import problem_responses
+from service.jobs.audits.audit import audit_view, check_audit_request, request_audit
+from service.jobs.queries import jobs as job_queries
+from service.jobs.queries.jobs import foreign_job_ids
+from service.jobs.queries.provenance import provenance
 from service.store.models import Audit
 
 log = logging.getLogger(__name__)
@@ -72,7 +72,7 @@ def start_audit(
     as a missing one does, analyst tokens included (they read other teams' work, never start it).
     """
     fraction, seed, tolerance = check_audit_request(body)
-    job = service.get_job(session, job_id, principal, Action.AUDIT)
+    job = job_queries.get_job(session, job_id, principal, Action.AUDIT)
     audit = request_audit(
         session, job, fraction=fraction, seed=seed, tolerance=tolerance, team=principal.team
     )
@@ -108,5 +108,5 @@ def get_audit(audit_id: AuditId, principal: ReaderDep, session: SessionDep) -> A
 )
 def get_provenance(job_id: JobId, principal: ReaderDep, session: SessionDep) -> Provenance:
     """Who computed what, with which versions, and what audits found."""
-    job = service.get_job(session, job_id, principal)
+    job = job_queries.get_job(session, job_id, principal)
     return Provenance(**provenance(session, job, principal))

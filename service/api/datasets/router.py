@@ -18,15 +18,15 @@ from service.api.datasets.schemas import (
     DatasetSummary,
 )
 from service.api.datasets.upload import UPLOAD_FIELD, SpooledUpload, spool_upload
-from service.api.deps import ReaderDep, SessionDep, SettingsDep, SubmitterDep
-from service.api.json_body import StrictJsonRoute
-from service.api.limits import MAX_SQL_INT
-from service.api.problems import problem_responses
 from service.auth import Principal
 from service.config import Settings
 from service.datasets.files import read_dataset_file
 from service.datasets.sources import table_from_frame
 from service.errors import BadInput
+from service.http.deps import ReaderDep, SessionDep, SettingsDep, SubmitterDep
+from service.http.json_body import StrictJsonRoute
+from service.http.limits import MAX_SQL_INT
+from service.http.problems import problem_responses
 from service.store.models import Dataset, DatasetRegistration
 
 router = APIRouter(prefix="/v1/datasets", tags=["datasets"], route_class=StrictJsonRoute)

@@ -21,8 +21,8 @@ from service.datasets.sources import (
 )
 from service.datasets.sql_source import SqlAccess
 from service.datasets.store import read_table, save_table
-from service.errors import BadInput
-from service.jobs.service import NotFound, register_dataset, visible_dataset
+from service.errors import BadInput, NotFound
+from service.jobs.queries.datasets import register_dataset, visible_dataset
 from service.store.db import insert_ignoring_duplicates
 from service.store.models import Dataset, DatasetRegistration
 

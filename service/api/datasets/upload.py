@@ -18,8 +18,8 @@ from python_multipart.exceptions import FormParserError
 from python_multipart.multipart import MultipartParser, parse_options_header
 from starlette.concurrency import run_in_threadpool
 
-from service.api.problems import ProblemError
 from service.errors import BadInput
+from service.http.problems import ProblemError
 
 UPLOAD_FIELD = "file"
 UPLOAD_SUFFIXES = (".csv", ".parquet", ".pq")

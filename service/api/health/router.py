@@ -16,10 +16,10 @@ from pydantic import BaseModel
 from sqlalchemy import text
 from sqlalchemy.orm import Session, sessionmaker
 
-from service.api.deps import SessionsDep, SettingsDep
 from service.api.health.metrics import CONTENT_TYPE, render_metrics
-from service.api.json_body import StrictJsonRoute
-from service.api.problems import ProblemError, problem_responses
+from service.http.deps import SessionsDep, SettingsDep
+from service.http.json_body import StrictJsonRoute
+from service.http.problems import ProblemError, problem_responses
 
 log = logging.getLogger(__name__)
 router = APIRouter(tags=["health"], route_class=StrictJsonRoute)
@@ -55,6 +55,8 @@ async def healthz() -> Health:
 
 
 def _ping_broker(url: str) -> None:
+    # Imported here for start-up speed: only a server with a broker pings one, and the broker
+    # clients are slow to import.
     if url.startswith(("redis://", "rediss://", "unix://")):
         import redis
 

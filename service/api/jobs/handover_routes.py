@@ -15,16 +15,17 @@ from fastapi.responses import FileResponse, PlainTextResponse, StreamingResponse
 from pydantic import BaseModel, ConfigDict
 
 from service.analysis import predictions
-from service.api.deps import ReaderDep, SessionDep, SessionsDep, SettingsDep
-from service.api.jobs.router import JobId
-from service.api.json_body import StrictJsonRoute
-from service.api.limits import MAX_SQL_INT
-from service.api.problems import ProblemError, problem_responses
-from service.api.streams import attachment
-from service.jobs import model_file, service
-from service.jobs.model_card import card_markdown, model_card
-from service.jobs.outer_predictions import NotReady, require_result
-from service.jobs.plans import plan_for_job
+from service.api.jobs.params import JobId
+from service.http.deps import ReaderDep, SessionDep, SessionsDep, SettingsDep
+from service.http.json_body import StrictJsonRoute
+from service.http.limits import MAX_SQL_INT
+from service.http.problems import ProblemError, problem_responses
+from service.http.streams import attachment
+from service.jobs.execution.plans import plan_for_job
+from service.jobs.handover import model_file
+from service.jobs.handover.model_card import card_markdown, model_card
+from service.jobs.handover.outer_predictions import NotReady, require_result
+from service.jobs.queries import jobs as job_queries
 from service.store.models import FinalModel, Job
 
 router = APIRouter(prefix="/v1/jobs", tags=["handover"], route_class=StrictJsonRoute)
@@ -34,7 +35,7 @@ _ANSWERS = problem_responses(401, 403, 404, 409, 422)
 
 
 class ModelCard(BaseModel):
-    """A model card in the sections of Mitchell et al. 2019 (service/jobs/model_card.py)."""
+    """A model card in the sections of Mitchell et al. 2019 (jobs/handover/model_card.py)."""
 
     model_config = ConfigDict(extra="allow")
 
@@ -59,7 +60,7 @@ class PredictionPage(BaseModel):
 
 
 def _job(session: Any, job_id: str, principal: Any, what: str) -> tuple[Job, dict[str, Any]]:
-    job = service.get_job(session, job_id, principal)
+    job = job_queries.get_job(session, job_id, principal)
     try:
         return job, require_result(job, what)
     except NotReady as exc:

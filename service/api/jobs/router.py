@@ -2,17 +2,28 @@
 
 from __future__ import annotations
 
-import logging
 from datetime import UTC, datetime
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Body, Header, Path, Query, Response
+from fastapi import APIRouter, Body, Header, Query, Response
 from fastapi.responses import StreamingResponse
-from sqlalchemy.exc import IntegrityError
 from sqlalchemy.orm import Session
 
 from service.api.datasets.service import confine_path_source, server_base_dir
-from service.api.deps import (
+from service.api.jobs import export
+from service.api.jobs.params import AllMetrics, JobId
+from service.api.jobs.schemas import (
+    FoldScorePage,
+    JobLinks,
+    JobList,
+    JobPublic,
+    JobStatus,
+    job_summary,
+)
+from service.auth import Action, Principal
+from service.dispatch.base import publish_after_commit
+from service.errors import BadInput, NotFound
+from service.http.deps import (
     CancellerDep,
     DispatcherDep,
     ReaderDep,
@@ -21,33 +32,19 @@ from service.api.deps import (
     SettingsDep,
     SubmitterDep,
 )
-from service.api.jobs import export
-from service.api.jobs.schemas import (
-    FoldScorePage,
-    JobLinks,
-    JobList,
-    JobProgress,
-    JobPublic,
-    JobStatus,
-    JobSummary,
-)
-from service.api.json_body import StrictJsonRoute
-from service.api.limits import MAX_SQL_INT
-from service.api.problems import problem_responses
-from service.api.streams import attachment
-from service.auth import Action, Principal
-from service.dispatch.base import mark_published
-from service.errors import BadInput
-from service.jobs import service
-from service.jobs.curves import CURVE_KIND, start_children
-from service.jobs.fold_rows import fold_context
-from service.jobs.reuse import start_if_settled
+from service.http.json_body import StrictJsonRoute
+from service.http.limits import MAX_SQL_INT
+from service.http.problems import problem_responses
+from service.http.streams import attachment
+from service.jobs import lifecycle
+from service.jobs.handover.fold_rows import fold_context
+from service.jobs.intake import submit as intake
+from service.jobs.intake.start import start_submitted
+from service.jobs.queries import jobs as job_queries
 from service.store.models import Job
 
-log = logging.getLogger(__name__)
 router = APIRouter(prefix="/v1/jobs", tags=["jobs"], route_class=StrictJsonRoute)
 
-JobId = Annotated[str, Path(max_length=64, description="The job's id.")]
 IdempotencyKey = Annotated[
     str | None,
     Header(
@@ -56,45 +53,22 @@ IdempotencyKey = Annotated[
         description="Repeat a submission safely: the same key and body name the same job.",
     ),
 ]
-AllMetrics = Annotated[
-    bool,
-    Query(
-        description="Also list metrics that other jobs stored on these folds and candidates; "
-        "by default only the metrics this job asked for."
-    ),
-]
+_UNSEEN_DATASET = (
+    "no dataset with this content hash is visible to your team; upload or register "
+    "the table first (POST /v1/datasets/upload) and pass the hash it returns."
+)
 _ROOTS_HINT = (
     "register the table first (POST /v1/datasets/upload or POST /v1/datasets) "
     "and pass its content_hash as dataset."
 )
 
 
-def _summary(job: Job) -> JobSummary:
-    total = job.units_total
-    return JobSummary(
-        id=job.id,
-        status=job.status,  # a CHECK constraint keeps it one of JobStatus
-        kind=job.kind,
-        parent_id=job.parent_id,
-        dataset_hash=job.dataset_hash,
-        team=job.team,
-        created_at=job.created_at,
-        started_at=job.started_at,
-        finished_at=job.finished_at,
-        progress=JobProgress(
-            units_done=job.units_done,
-            units_total=total,
-            fraction=min(1.0, job.units_done / total) if total else 0.0,
-        ),
-    )
-
-
 def _public(job: Job, session: Session, principal: Principal) -> JobPublic:
     base = f"/v1/jobs/{job.id}"
     return JobPublic(
-        **_summary(job).model_dump(),
+        **job_summary(job).model_dump(),
         error=job.error,
-        result=service.result_for(session, principal, job),
+        result=job_queries.result_for(session, principal, job),
         links=JobLinks(
             job=base,
             cancel=f"{base}/cancel",
@@ -133,54 +107,22 @@ def submit_job(
     """Validate and store the job, commit, then hand its first units to the workers."""
     # Taken as a plain object so every field error comes from parse_job_request's sentences.
     confine_path_source(body.get("dataset"), settings, field="dataset", hint=_ROOTS_HINT)
-
-    def submit() -> service.Submitted:
-        try:
-            return service.submit_job(
-                session,
-                body,
-                principal=principal,
-                settings=settings,
-                idempotency_key=idempotency_key,
-                base_dir=server_base_dir(settings),
-            )
-        except service.NotFound:
-            # The same answer whether the hash is unknown or another team's: nothing leaks.
-            raise BadInput(
-                "dataset",
-                "no dataset with this content hash is visible to your team; upload or register "
-                "the table first (POST /v1/datasets/upload) and pass the hash it returns.",
-            ) from None
-
     try:
-        submitted = submit()
-        session.commit()
-    except IntegrityError:
-        # Two submissions with one new key raced; the loser finds the winner's job on retry.
-        session.rollback()
-        if idempotency_key is None:
-            raise
-        submitted = submit()
-        session.commit()
+        submitted = intake.submit_committed(
+            session,
+            body,
+            principal=principal,
+            settings=settings,
+            idempotency_key=idempotency_key,
+            base_dir=server_base_dir(settings),
+        )
+    except NotFound:
+        # The same answer whether the hash is unknown or another team's: nothing leaks.
+        raise BadInput("dataset", _UNSEEN_DATASET) from None
     job = submitted.job
     if submitted.created:
-        # Published only after the commit, from the committed rows: a crash in between leaves
-        # queued units the reconciler re-publishes (RELIABILITY.md, outbox).
-        unit_ids = service.queued_unit_ids(session, job.id)
-        session.commit()
-        if not unit_ids:  # every unit came from the store: move the job on here
-            unit_ids = start_if_settled(sessions, job.id, settings)
-            session.refresh(job)
-        if job.kind == CURVE_KIND:  # the selections at each size carry the units
-            session.commit()  # SQLite: let go of the write lock before other sessions write
-            unit_ids += start_children(sessions, job.id, settings)
-            session.refresh(job)
-            session.commit()
-        try:
-            dispatcher.publish(unit_ids)
-            mark_published(sessions, unit_ids)
-        except Exception:
-            log.exception("publishing job %s failed; the reconciler will publish it", job.id)
+        publish_after_commit(dispatcher, start_submitted(sessions, job.id, settings), job.id)
+        session.refresh(job)
     response.status_code = 202 if submitted.created else 200
     response.headers["Location"] = f"/v1/jobs/{job.id}"
     return _public(job, session, principal)
@@ -194,7 +136,7 @@ def submit_job(
 )
 def get_job(job_id: JobId, principal: ReaderDep, session: SessionDep) -> JobPublic:
     """Another team's job is a 404, as if it did not exist."""
-    return _public(service.get_job(session, job_id, principal), session, principal)
+    return _public(job_queries.get_job(session, job_id, principal), session, principal)
 
 
 def _aware(moment: datetime | None) -> datetime | None:
@@ -225,7 +167,7 @@ def list_jobs(
     offset: Annotated[int, Query(ge=0, le=MAX_SQL_INT)] = 0,
 ) -> JobList:
     """The caller's team's jobs (an analyst's: every team's) with the total count."""
-    jobs, count = service.list_jobs(
+    jobs, count = job_queries.list_jobs(
         session,
         principal,
         limit=limit,
@@ -237,7 +179,7 @@ def list_jobs(
         estimator=estimator,
         schedule_id=schedule_id,
     )
-    return JobList(data=[_summary(j) for j in jobs], count=count)
+    return JobList(data=[job_summary(j) for j in jobs], count=count)
 
 
 @router.post(
@@ -252,7 +194,9 @@ def cancel_job(job_id: JobId, principal: CancellerDep, session: SessionDep) -> J
     Needs the `submit` scope and a job of the token's own team: another team's job answers 404,
     as a missing one does, analyst tokens included.
     """
-    job = service.cancel_job(session, service.get_job(session, job_id, principal, Action.CANCEL))
+    job = lifecycle.cancel_job(
+        session, job_queries.get_job(session, job_id, principal, Action.CANCEL)
+    )
     session.commit()
     return _public(job, session, principal)
 
@@ -274,8 +218,8 @@ def list_fold_scores(
     all_metrics: AllMetrics = False,
 ) -> FoldScorePage:
     """Scores of the job's candidates on its folds, whichever job computed them."""
-    job = service.get_job(session, job_id, principal)
-    rows = service.fold_scores_page(
+    job = job_queries.get_job(session, job_id, principal)
+    rows = job_queries.fold_scores_page(
         session, job, after_id=after, limit=limit, all_metrics=all_metrics
     )
     data = export.public_scores(session, principal, rows, fold_context(session, job.id))
@@ -303,7 +247,7 @@ def export_fold_scores(
     all_metrics: AllMetrics = False,
 ) -> StreamingResponse:
     """Streamed page by page, each page read in its own short session."""
-    job = service.get_job(session, job_id, principal)
+    job = job_queries.get_job(session, job_id, principal)
     return attachment(
         export.fold_score_lines(sessions, job.id, principal, all_metrics=all_metrics),
         "text/csv; charset=utf-8",

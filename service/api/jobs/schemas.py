@@ -1,4 +1,4 @@
-"""What the job routes send (the request body is job request v1, service.jobs.request)."""
+"""What the job routes send (the request body is job request v1, service.jobs.intake.request)."""
 
 from __future__ import annotations
 
@@ -8,6 +8,7 @@ from typing import Any, Literal
 from pydantic import BaseModel, ConfigDict, Field
 
 from service.api.jobs.curve_schemas import CurveResult
+from service.store.models import Job
 
 JobStatus = Literal["queued", "running", "succeeded", "failed", "cancelled"]
 
@@ -185,4 +186,22 @@ class FoldScorePage(BaseModel):
     next_after: int | None
 
 
-FOLD_SCORE_COLUMNS = tuple(FoldScorePublic.model_fields)
+def job_summary(job: Job) -> JobSummary:
+    """The listing shape of a job, shared by every route that lists jobs."""
+    total = job.units_total
+    return JobSummary(
+        id=job.id,
+        status=job.status,  # a CHECK constraint keeps it one of JobStatus
+        kind=job.kind,
+        parent_id=job.parent_id,
+        dataset_hash=job.dataset_hash,
+        team=job.team,
+        created_at=job.created_at,
+        started_at=job.started_at,
+        finished_at=job.finished_at,
+        progress=JobProgress(
+            units_done=job.units_done,
+            units_total=total,
+            fraction=min(1.0, job.units_done / total) if total else 0.0,
+        ),
+    )

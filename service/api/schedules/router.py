@@ -7,17 +7,6 @@ from typing import Annotated, Any
 
 from fastapi import APIRouter, Body, Path, Query, Response
 
-from service.api.deps import (
-    DispatcherDep,
-    ReaderDep,
-    SchedulerDep,
-    SessionDep,
-    SessionsDep,
-    SettingsDep,
-)
-from service.api.json_body import StrictJsonRoute
-from service.api.limits import MAX_SQL_INT
-from service.api.problems import problem_responses
 from service.api.schedules.schemas import (
     RefreshList,
     RefreshPublic,
@@ -27,6 +16,17 @@ from service.api.schedules.schemas import (
 )
 from service.auth import Action
 from service.dispatch.base import mark_published
+from service.http.deps import (
+    DispatcherDep,
+    ReaderDep,
+    SchedulerDep,
+    SessionDep,
+    SessionsDep,
+    SettingsDep,
+)
+from service.http.json_body import StrictJsonRoute
+from service.http.limits import MAX_SQL_INT
+from service.http.problems import problem_responses
 from service.schedules import service
 from service.schedules.tick import trigger_refresh
 from service.store.models import Refresh, Schedule

@@ -1,0 +1,27 @@
+"""The names of the scopes work runs over: an outer fold's 'r{repeat}f{fold}', or 'all' rows.
+
+Kept apart from the engine's heavier modules (no numpy, pandas or scikit-learn here) because the
+store's schema and the report pages need these names without loading the engine.
+"""
+
+from __future__ import annotations
+
+import re
+
+FINAL_SCOPE = "all"  # the inner procedure run on all rows, which gives the final pick
+
+# no leading zeros: a scope parses only if formatting its numbers gives it back
+_OUTER_SCOPE = re.compile(r"r(0|[1-9]\d*)f(0|[1-9]\d*)")
+
+
+def outer_scope(repeat: int, fold: int) -> str:
+    """The scope of outer fold `fold` of repeat `repeat`: 'r{repeat}f{fold}'."""
+    return f"r{repeat}f{fold}"
+
+
+def parse_outer_scope(scope: str) -> tuple[int, int]:
+    """(repeat, fold) of an outer fold's scope; ValueError for any other scope (e.g. 'all')."""
+    match = _OUTER_SCOPE.fullmatch(scope)
+    if match is None:
+        raise ValueError(f"{scope!r} is not an outer fold scope like 'r0f2'")
+    return int(match[1]), int(match[2])

@@ -1,0 +1,1 @@
+"""Audits: recomputing a sample of stored fold scores to check them."""

@@ -1,0 +1,1 @@
+"""Learning curves: nested selection at several training-set sizes (prepare, then settle)."""

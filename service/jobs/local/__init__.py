@@ -1,0 +1,1 @@
+"""The local driver: a job or learning curve run on a process pool in this process's store."""

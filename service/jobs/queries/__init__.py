@@ -1,0 +1,1 @@
+"""Reading jobs back: visibility, get, list, fold-score pages and provenance."""
