@@ -13,13 +13,16 @@ def _params(params: dict[str, Any]) -> str:
     return ", ".join(f"{k}={json.dumps(v)}" for k, v in params.items())
 
 
-def _interval(row: dict[str, Any]) -> str:
-    """'[lower, upper] at 90% (quick)', or a dash where no interval was given (see cautions)."""
-    found = row.get("interval")  # results stored before intervals existed have no key
-    if not found:
-        return "-"
+def _interval_line(metric: str, row: dict[str, Any]) -> str:
+    """One line naming the interval, its level and its method, or why there is none."""
+    found = row.get("interval")
+    if "interval" not in row:  # results stored before intervals existed
+        return f"  {metric}: no interval in this result (computed before intervals existed)."
+    if found is None:
+        return f"  {metric}: no interval (see the cautions below)."
     return (
-        f"[{found['lower']:.4f}, {found['upper']:.4f}] at {found['level']:.0%} ({found['method']})"
+        f"  {metric}: {found['level']:.0%} interval [{found['lower']:.4f}, {found['upper']:.4f}]"
+        f", method {found['method']}: {found['source']}."
     )
 
 
@@ -31,25 +34,17 @@ def print_result(console: Console, result: dict[str, Any], job_id: str) -> None:
         f" ({result['n_rows']} rows, {result['task']}), job {job_id}"
     )
     estimate = Table(title="Estimate over outer folds (for data like this data)")
-    for column in ("metric", "mean", "interval", "std", "se", "per fold"):
-        right = column in ("mean", "std", "se")
-        estimate.add_column(column, justify="right" if right else "left")
+    for column in ("metric", "mean", "std", "se", "per fold"):
+        estimate.add_column(column, justify="left" if column in ("metric", "per fold") else "right")
     for metric, row in result["estimate"].items():
         folds = " ".join(f"{v:.4f}" for v in row["values"])
         estimate.add_row(
-            metric,
-            f"{row['mean']:.4f}",
-            _interval(row),
-            f"{row['std']:.4f}",
-            f"{row['se']:.4f}",
-            folds,
+            metric, f"{row['mean']:.4f}", f"{row['std']:.4f}", f"{row['se']:.4f}", folds
         )
     console.print(estimate)
-    sources = {
-        row["interval"]["source"] for row in result["estimate"].values() if row.get("interval")
-    }
-    for source in sorted(sources):
-        console.print(f"  interval: {source}; std and se describe the folds, not the uncertainty.")
+    # the interval, not std or se, is the uncertainty of the estimate; one unwrapped line each
+    for metric, row in result["estimate"].items():
+        console.print(_interval_line(metric, row), soft_wrap=True, highlight=False, markup=False)
     outer = Table(title=f"Pick of each outer fold (by inner mean {pick_by})")
     for column in (
         "repeat",
