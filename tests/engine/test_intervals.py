@@ -185,3 +185,20 @@ def test_a_time_ordered_split_gets_no_interval_and_a_caution_saying_why() -> Non
     cautions = attach_intervals(plan_for(request, frame).spec, outcome.result)
     assert outcome.result["estimate"]["neg_mean_absolute_error"]["interval"] is None
     assert len(cautions) == 1 and "time_series" in cautions[0]
+
+
+def test_a_metric_with_no_spread_gets_no_interval_and_a_caution() -> None:
+    # a result as the engine assembles it, with every outer fold scoring 1.0 on accuracy
+    spec = plan_for(IRIS_JOB).spec
+    outer = [{"n_train": 120, "n_test": 30} for _ in range(10)]
+    result: dict[str, Any] = {
+        "outer": outer,
+        "estimate": {
+            "accuracy": {"mean": 1.0, "values": [1.0] * 10},
+            "neg_log_loss": {"mean": -0.2, "values": [-0.1, -0.3] * 5},
+        },
+    }
+    cautions = attach_intervals(spec, result)
+    assert result["estimate"]["accuracy"]["interval"] is None
+    assert result["estimate"]["neg_log_loss"]["interval"]["method"] == "quick"
+    assert len(cautions) == 1 and cautions[0].startswith("No interval for accuracy:")
