@@ -68,11 +68,13 @@ def nested_interval(
     repetitions: Sequence[Sequence[OuterFoldLosses]],
     cv_losses: Sequence[float] | npt.NDArray[np.float64],
     level: float,
+    n_rows: int | None = None,
 ) -> NestedInterval:
     """The level interval for the error of the procedure (a loss: lower is better).
 
     `repetitions[r][k]` is outer fold k of repetition r (every repetition has the same K >= 3);
-    `cv_losses` are the per-row losses of the plain K-fold CV, one per row.
+    `cv_losses` are the per-row losses of the plain K-fold CV: one per row, or every outer loss
+    of every repetition pooled, with `n_rows` (the table's rows) for the naive standard error.
     """
     folds = len(repetitions[0]) if repetitions else 0
     if folds < 3 or any(len(rep) != folds for rep in repetitions):
@@ -89,7 +91,7 @@ def nested_interval(
     plain = np.asarray(cv_losses, dtype="float64")
     mse = float(np.mean(a_terms) - np.mean(b_terms))
     se_unclipped = math.sqrt(max(0.0, folds / (folds - 1) * mse))
-    se_naive = float(plain.std(ddof=1)) / math.sqrt(len(plain))
+    se_naive = float(plain.std(ddof=1)) / math.sqrt(n_rows or len(plain))
     se = min(max(se_unclipped, se_naive), math.sqrt(folds) * se_naive)
     err_ncv = float(np.mean(inner))
     err_cv = float(plain.mean())

@@ -16,12 +16,20 @@ import numpy as np
 import pytest
 from scipy import stats
 from sklearn.datasets import make_moons
-from sklearn.model_selection import RepeatedStratifiedKFold, cross_val_score
+from sklearn.model_selection import (
+    PredefinedSplit,
+    RepeatedStratifiedKFold,
+    StratifiedKFold,
+    cross_val_predict,
+    cross_val_score,
+)
 from sklearn.svm import SVC
 
 from service.config import Settings
 from service.cv.intervals import attach_intervals, corrected_t
 from service.cv.nested_interval import OuterFoldLosses, nested_interval
+from service.cv.nested_interval_run import run_nested_interval
+from service.cv.preprocess import build_pipeline
 
 from .runs import plan_for, run_engine, run_stored
 from .test_time_order import dated_diabetes, time_request
@@ -202,3 +210,44 @@ def test_a_metric_with_no_spread_gets_no_interval_and_a_caution() -> None:
     assert result["estimate"]["accuracy"]["interval"] is None
     assert result["estimate"]["neg_log_loss"]["interval"]["method"] == "quick"
     assert len(cautions) == 1 and cautions[0].startswith("No interval for accuracy:")
+
+
+def test_the_in_process_nested_driver_feeds_the_arithmetic_scikit_learns_losses() -> None:
+    # one candidate, so the procedure is a plain fit: every loss the driver hands to the
+    # arithmetic must equal scikit-learn's cross_val_predict (the reference library) on the
+    # same partitions, StratifiedKFold(3, shuffle=True, random_state=seed + r)
+    request = {
+        "dataset": {"sample": "breast_cancer"},
+        "target": "target",
+        "task": "classification",
+        "families": [{"estimator": "LogisticRegression", "fixed": {"max_iter": 2000}}],
+        "outer": {"method": "stratified_kfold", "k": 3, "seed": 0},
+        "inner": {"method": "stratified_kfold", "k": 3, "seed": 1},
+        "metrics": ["accuracy"],
+    }
+    plan = plan_for(request)
+    found = run_nested_interval(plan, repetitions=2, seed=5)
+    X, y = plan.table.X, plan.y
+    pipeline = build_pipeline(plan.candidates[0], plan.table, "classification", None)
+    outer_losses, inner_errors = [], []
+    for seed in (5, 6):
+        cv = StratifiedKFold(3, shuffle=True, random_state=seed)
+        outer_losses.append(cross_val_predict(pipeline, X, y, cv=cv) != y)
+        for _, fold in cv.split(X, y):
+            rest = np.setdiff1d(np.arange(len(y)), fold)
+            labels = np.zeros(len(y), dtype=int)
+            for position, (_, part) in enumerate(cv.split(X, y)):
+                labels[part] = position
+            inner_cv = PredefinedSplit(labels[rest])
+            predicted = cross_val_predict(pipeline, X.iloc[rest], y[rest], cv=inner_cv)
+            inner_errors.append(float(np.mean(predicted != y[rest])))
+    pooled = np.concatenate(outer_losses).astype(float)
+    assert found.loss.err_cv == pytest.approx(pooled.mean(), rel=1e-12)
+    assert found.loss.err_ncv == pytest.approx(np.mean(inner_errors), rel=1e-12)
+    assert found.loss.se_naive == pytest.approx(pooled.std(ddof=1) / math.sqrt(len(y)), rel=1e-9)
+    # R * K * (K - 1) inner-CV procedures plus R * K outer ones, each an inner search of one
+    # candidate over 3 inner folds plus its refit (the engine searches even a lone candidate)
+    assert found.fits == (2 * 3 * 2 + 2 * 3) * (1 * 3 + 1)
+    # accuracy = 1 - zero-one loss: the interval is the loss interval turned around
+    assert (found.lower, found.upper) == pytest.approx((1 - found.loss.upper, 1 - found.loss.lower))
+    assert found.point == pytest.approx(1 - found.loss.point)
