@@ -113,6 +113,7 @@ def _quick(
         "df": found.df,
         "t_quantile": found.t_quantile,
         "folds": len(values),
+        "extra_fits": 0,  # built from the outer fold scores the job already has
         "test_train_ratio": ratio,
         "source": QUICK_SOURCE,
     }

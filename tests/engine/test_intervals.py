@@ -160,6 +160,7 @@ def test_the_same_request_twice_gives_identical_intervals() -> None:
         interval = first["estimate"][metric]["interval"]
         assert interval["method"] == "quick" and interval["level"] == 0.8
         assert interval["folds"] == 10 and interval["df"] == 9  # J = repeats x k
+        assert interval["extra_fits"] == 0
 
 
 def test_quick_in_result_v1_is_centred_on_the_plain_estimate(settings: Settings) -> None:
