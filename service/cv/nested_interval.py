@@ -10,8 +10,8 @@ From those: a_k = (e_in(k) - mean e_out(k))^2, b_k = var(e_out(k)) / |fold k|,
 MSE = mean(a) - mean(b), SE = sqrt(max(0, K/(K-1) * MSE)) clipped to [SE_naive, sqrt(K) * SE_naive]
 with SE_naive = sd(plain CV per-row losses) / sqrt(n); the point is Err_NCV - bias with
 bias = (1 + (K-2)/K) * (Err_NCV - Err_CV), Err_NCV the mean of the e_in, Err_CV the plain CV error.
-The formulas are as /work/shared/REFERENCES.md gives them; that variances use ddof=1 (R's var and
-sd, which the published code calls) is from memory.
+The formulas are the paper's Algorithm 1 as docs/references.md restates it; that variances use
+ddof=1 (R's var and sd, which the published code calls) is from memory.
 
 This module is arithmetic only: which fits produce the losses is the caller's business (for a
 selection job, the "procedure" is the whole inner search, pick and refit).

@@ -4,7 +4,7 @@ its place in result v1, and the nested interval's arithmetic on hand-computed ex
 Sources: Nadeau & Bengio 2003 (Machine Learning 52:239-281) and Bouckaert & Frank 2004 (PAKDD) for
 the corrected resampled t; scikit-learn's example "Statistical comparison of models using grid
 search" for its worked values; Bates, Hastie & Tibshirani 2024 (JASA 119:1434-1445, Algorithm 1)
-for the nested interval, as /work/shared/REFERENCES.md gives the formulas.
+for the nested interval, with the formulas as docs/references.md restates them.
 """
 
 from __future__ import annotations
@@ -55,9 +55,9 @@ def test_corrected_t_on_a_small_example_computed_by_hand() -> None:
 
 
 def test_corrected_t_reproduces_scikit_learns_published_comparison() -> None:
-    # scikit-learn's example "Statistical comparison of models using grid search" (REFERENCES.md,
-    # Nadeau & Bengio 2003): rbf minus linear SVC roc_auc over 10 x 10 stratified folds gives a
-    # corrected t of 0.750 and an uncorrected t of 2.611
+    # scikit-learn's example "Statistical comparison of models using grid search"
+    # (docs/references.md, Nadeau & Bengio 2003): rbf minus linear SVC roc_auc over 10 x 10
+    # stratified folds gives a corrected t of 0.750 and an uncorrected t of 2.611
     X, y = make_moons(n_samples=100, noise=0.352, random_state=1)
     cv = RepeatedStratifiedKFold(n_splits=10, n_repeats=10, random_state=0)
     scores = {
