@@ -252,3 +252,17 @@ def test_the_in_process_nested_driver_feeds_the_arithmetic_scikit_learns_losses(
     # accuracy = 1 - zero-one loss: the interval is the loss interval turned around
     assert (found.lower, found.upper) == pytest.approx((1 - found.loss.upper, 1 - found.loss.lower))
     assert found.point == pytest.approx(1 - found.loss.point)
+
+
+def test_a_request_that_differs_only_in_interval_reuses_every_fit(settings: Settings) -> None:
+    first = run_stored(IRIS_JOB, settings).result
+    second = run_stored({**IRIS_JOB, "interval": {"level": 0.95}}, settings).result
+    # issue 11: the interval is not part of a candidate key or a fold fingerprint
+    assert second["work"]["units_reused"] == second["work"]["units_total"]
+    assert second["work"]["units_computed"] == 0
+    assert second["outer"] == first["outer"]
+    for metric in IRIS_JOB["metrics"]:
+        wide, narrow = second["estimate"][metric]["interval"], first["estimate"][metric]["interval"]
+        assert (wide["level"], narrow["level"]) == (0.95, 0.8)
+        assert wide["se"] == narrow["se"]
+        assert wide["upper"] - wide["lower"] > narrow["upper"] - narrow["lower"]
