@@ -317,6 +317,48 @@ CASES = [
         contains=("205,205 fits", "at most 200,000", "reduce outer.repeats"),
     ),
     Case("target-name-too-long", "target", top(target="t" * 5_000), contains=("1000",)),
+    # interval (issue 11): refused from the request alone, before any fit
+    Case("interval-level-too-high", "interval.level", top(interval={"level": 0.9995}), ("0.999",)),
+    Case("interval-level-at-one-half", "interval.level", top(interval={"level": 0.5})),
+    Case(
+        "interval-unknown-method",
+        "interval.method",
+        top(interval={"method": "bootstrap"}),
+        contains=("'quick'", "'nested'"),
+    ),
+    Case(
+        "interval-one-repetition",
+        "interval.repetitions",
+        top(interval={"method": "nested", "repetitions": 1}),
+        contains=("2 to 100",),
+    ),
+    Case(
+        "interval-repetitions-past-the-cap",
+        "interval.repetitions",
+        top(interval={"method": "nested", "repetitions": 101}),
+        contains=("2 to 100",),
+    ),
+    Case(
+        "interval-repetitions-on-quick",
+        "interval.repetitions",
+        top(interval={"repetitions": 5}),
+        contains=("outer.repeats",),
+    ),
+    Case(
+        "interval-nested-on-a-grouped-split",
+        "interval.method",
+        lambda r: (
+            r.update(interval={"method": "nested"}),
+            r["outer"].update(method="group_kfold", groups="grade"),
+        ),
+        contains=("group_kfold",),
+    ),
+    Case(
+        "interval-nested-not-yet-available",
+        "interval.method",
+        top(interval={"method": "nested", "level": 0.8}),
+        contains=("not yet available", "'quick'"),
+    ),
 ]
 CASE_IDS = [c.id for c in CASES]
 assert len(set(CASE_IDS)) == len(CASE_IDS), "case ids must be unique"

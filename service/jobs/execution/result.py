@@ -12,6 +12,7 @@ from sqlalchemy.orm import Session
 
 import service
 from service.cv.cautions import find_cautions
+from service.cv.intervals import attach_intervals
 from service.cv.selection import Pick as EnginePick
 from service.cv.selection import ScoreBook, assemble
 from service.cv.slices import slice_estimates
@@ -86,6 +87,7 @@ def build_result(
     result["work"]["outer_computed_by"] = computing_jobs(session, loaded, result)
     result["versions"] = versions()
     result["cautions"] = find_cautions(loaded.plan, loaded.frame, loaded.kinds)
+    result["cautions"] += attach_intervals(loaded.plan.spec, result)  # estimate[m]["interval"]
     # every candidate evaluated, drawn range values as drawn, in the order that breaks ties
     result["candidates"] = [c.public() for c in loaded.plan.candidates]
     spec = loaded.plan.spec
