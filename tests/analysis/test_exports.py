@@ -85,7 +85,7 @@ def test_job_parquet_equals_the_job_listing(seeded: Seeded) -> None:
     rows = _listing(seeded, f"/v1/jobs/{job_id}/fold-scores")
     content, _ = _get_bytes(seeded, f"/v1/jobs/{job_id}/fold-scores.parquet")
     frame = pd.read_parquet(io.BytesIO(content))
-    # a job's export adds where each fold sits and the candidate (service/jobs/fold_rows.py)
+    # a job's export adds where each fold sits and its candidate (jobs/handover/fold_rows.py)
     assert list(frame.columns) == export.JOB_PARQUET_SCHEMA.names
     assert _records(frame[list(export.COLUMNS)]) == _json_records(rows)
     extra = frame[list(EXTRA_COLUMNS)].astype(object).where(frame.notna(), None)

@@ -35,7 +35,7 @@ PROBA_JOB: dict[str, Any] = {
     "dataset": {"sample": "breast_cancer"},
     "target": "target",
     "task": "classification",
-    # preprocess "none": the model file then holds no numpy.dtype (see service/jobs/model_file.py)
+    # preprocess "none": the model file holds no numpy.dtype (see jobs/handover/model_file.py)
     "families": [
         {"estimator": "LogisticRegression", "fixed": {"max_iter": 5000}, "grid": {"C": [0.1, 1.0]}}
     ],

@@ -35,7 +35,7 @@ _ANSWERS = problem_responses(401, 403, 404, 409, 422)
 
 
 class ModelCard(BaseModel):
-    """A model card in the sections of Mitchell et al. 2019 (service/jobs/model_card.py)."""
+    """A model card in the sections of Mitchell et al. 2019 (jobs/handover/model_card.py)."""
 
     model_config = ConfigDict(extra="allow")
 
