@@ -15,7 +15,6 @@ from service.api.schedules.schemas import (
     SchedulePublic,
 )
 from service.auth import Action
-from service.dispatch.base import mark_published
 from service.http.deps import (
     DispatcherDep,
     ReaderDep,
@@ -162,7 +161,6 @@ def refresh_now(
     if units:
         try:
             dispatcher.publish(units)
-            mark_published(sessions, units)
         except Exception:
             log.exception(
                 "publishing refresh %s failed; the reconciler will publish it", refresh_id

@@ -20,6 +20,7 @@ from service.jobs.execution.plans import LoadedPlan
 from service.jobs.handover.outer_predictions import NotReady, all_outer
 from service.store.db import utcnow
 from service.store.models import FinalModel, FoldScore, Job, WorkUnit
+from service.store.statuses import UnitStatus
 
 
 def versions() -> dict[str, str]:
@@ -39,7 +40,7 @@ def work_summary(session: Session, job: Job) -> dict[str, Any]:
             func.count(),
             func.count().filter(WorkUnit.reused.is_(True)),
             func.coalesce(func.sum(WorkUnit.fits), 0),
-        ).where(WorkUnit.job_id == job.id, WorkUnit.status == "done")
+        ).where(WorkUnit.job_id == job.id, WorkUnit.status == UnitStatus.DONE)
     ).one()
     seconds = (utcnow() - job.created_at).total_seconds()
     return {
