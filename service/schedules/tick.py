@@ -27,7 +27,7 @@ from service.jobs.intake.submit import submit_job
 from service.notify.outbox import REFRESH_EVENT, queue_delivery
 from service.schedules.compare import compare_results, refresh_status
 from service.schedules.cron import next_after, parse_cron, zone
-from service.schedules.service import base_dir, job_body
+from service.schedules.definitions import base_dir, job_body
 from service.store.db import utcnow
 from service.store.models import Job, JobFold, Refresh, Schedule
 from service.store.statuses import ENDED_JOB, JobStatus
