@@ -12,7 +12,7 @@ from sqlalchemy.orm import Session
 from service.auth import Action, Principal, reaches_every_team
 from service.jobs.queries.datasets import visible_dataset
 from service.jobs.queries.jobs import job_query
-from service.store.models import Refresh, Schedule
+from service.store.followup_models import Refresh, Schedule
 from service.store.statuses import JobStatus
 
 

@@ -8,7 +8,8 @@ from typing import Any
 from sqlalchemy.orm import Session
 
 from service.store.db import utcnow
-from service.store.models import Job, WebhookDelivery
+from service.store.followup_models import WebhookDelivery
+from service.store.models import Job
 from service.store.statuses import JobStatus
 
 JOB_EVENT = "job.finished"

@@ -29,7 +29,8 @@ from service.schedules.compare import compare_results, refresh_status
 from service.schedules.cron import next_after, parse_cron, zone
 from service.schedules.definitions import base_dir, job_body
 from service.store.db import utcnow
-from service.store.models import Job, JobFold, Refresh, Schedule
+from service.store.followup_models import Refresh, Schedule
+from service.store.models import Job, JobFold
 from service.store.statuses import ENDED_JOB, JobStatus
 
 log = logging.getLogger(__name__)

@@ -22,7 +22,8 @@ from sqlalchemy.orm import Session
 
 from service.auth import MATRIX as AUTH_MATRIX
 from service.auth import Action
-from service.store.models import Audit, Job, Refresh, Schedule
+from service.store.followup_models import Audit, Refresh, Schedule
+from service.store.models import Job
 
 from .server import IRIS_REQUEST, Server
 from .stores import STORES, server_on

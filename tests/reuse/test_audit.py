@@ -18,7 +18,8 @@ from service.config import Settings, load_settings
 from service.jobs.audits.audit import request_audit, run_audit
 from service.jobs.local.driver import run_embedded
 from service.store.db import make_engine, make_session_factory
-from service.store.models import Audit, FoldScore, Job, WorkUnit
+from service.store.followup_models import Audit
+from service.store.models import FoldScore, Job, WorkUnit
 
 from .conftest import make_request
 

@@ -20,7 +20,8 @@ from service.notify.outbox import queue_delivery
 from service.schedules.definitions import create_schedule
 from service.schedules.tick import tick_schedules
 from service.store.db import make_engine, make_session_factory, upgrade_database
-from service.store.models import Job, Refresh, Schedule, WebhookDelivery
+from service.store.followup_models import Refresh, Schedule, WebhookDelivery
+from service.store.models import Job
 
 from .receiver import receiving
 from .tables import TEMPLATE, write_table

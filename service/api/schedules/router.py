@@ -28,7 +28,7 @@ from service.http.limits import MAX_SQL_INT
 from service.http.problems import problem_responses
 from service.schedules import definitions
 from service.schedules.tick import trigger_refresh
-from service.store.models import Refresh, Schedule
+from service.store.followup_models import Refresh, Schedule
 
 log = logging.getLogger(__name__)
 router = APIRouter(prefix="/v1/schedules", tags=["schedules"], route_class=StrictJsonRoute)

@@ -23,7 +23,8 @@ from service.cv.units import UnitRef, fit_and_score
 from service.errors import BadInput
 from service.jobs.execution.plans import plan_for_job
 from service.store.db import utcnow
-from service.store.models import Audit, FoldScore, Job, WorkUnit
+from service.store.followup_models import Audit
+from service.store.models import FoldScore, Job, WorkUnit
 from service.store.statuses import JobStatus, UnitStatus
 
 SCORED_KINDS = ("inner", "outer_refit")  # the final refit has a model, not scores
