@@ -40,7 +40,8 @@ def _summary(view: dict[str, Any]) -> str:
 def _run(job_id: str, fraction: float, seed: int, tolerance: float) -> dict[str, Any]:
     from service.jobs.audits.audit import audit_view, check_audit_request, request_audit, run_audit
     from service.store.db import make_engine, make_session_factory, upgrade_database
-    from service.store.models import Audit, Job
+    from service.store.followup_models import Audit
+    from service.store.models import Job
 
     settings = load_settings()
     fraction, seed, tolerance = check_audit_request(

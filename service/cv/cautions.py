@@ -14,7 +14,8 @@ ALWAYS = (
     "nothing about rows drawn from a different population, place or time.",
     "The standard deviation and standard error across outer folds are descriptive: k-fold "
     "cross-validation has no unbiased variance estimator (Bengio & Grandvalet 2004), so do not "
-    "read them as a confidence interval.",
+    "read them as a confidence interval; each estimate's `interval` is the one to quote, with its "
+    "method named beside it.",
 )
 # The banner about people is raised only by what the requester declares (request field
 # `context`); a column name is a guess, so it only ever produces the soft, specific line below.

@@ -21,7 +21,7 @@ from service.errors import BadInput
 from service.notify.signing import SIGNATURE_HEADER, body_bytes, signature, team_secret
 from service.notify.targets import check_webhook_target
 from service.store.db import utcnow
-from service.store.models import WebhookDelivery
+from service.store.followup_models import WebhookDelivery
 
 log = logging.getLogger(__name__)
 MAX_ATTEMPTS = 6

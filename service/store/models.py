@@ -22,7 +22,6 @@ from sqlalchemy import (
     String,
     UniqueConstraint,
     false,
-    true,
 )
 from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
@@ -46,7 +45,7 @@ UNIT_KINDS = ("inner", "outer_refit", "final_refit")
 UNIT_STATUSES = tuple(UnitStatus)
 
 
-def _one_of(column: str, values: tuple[str, ...]) -> str:
+def one_of(column: str, values: tuple[str, ...]) -> str:
     # repr of the plain string: an enum member's own repr is not SQL (the text must not change,
     # or the stored constraints would differ from the models without a migration)
     return f"{column} IN ({', '.join(repr(str(v)) for v in values)})"
@@ -105,8 +104,8 @@ class Job(Base):
     __table_args__ = (
         # A dataset's jobs newest first (its job list and history), without sorting them all.
         Index("ix_job_dataset_created", "dataset_hash", "created_at"),
-        CheckConstraint(_one_of("status", JOB_STATUSES), name="status"),
-        CheckConstraint(_one_of("stage", JOB_STAGES), name="stage"),
+        CheckConstraint(one_of("status", JOB_STATUSES), name="status"),
+        CheckConstraint(one_of("stage", JOB_STAGES), name="stage"),
         # keys are per team: another team's key neither clashes nor names their job
         UniqueConstraint("team", "idempotency_key"),
     )
@@ -182,7 +181,7 @@ class JobFold(Base):
 
     __tablename__ = "job_fold"
     __table_args__ = (
-        CheckConstraint(_one_of("role", FOLD_ROLES), name="role"),
+        CheckConstraint(one_of("role", FOLD_ROLES), name="role"),
         # Inner folds split one outer training set; outer and final inner folds split all rows.
         CheckConstraint(
             f"(role = 'inner' AND scope <> '{FINAL_SCOPE}') OR "
@@ -207,8 +206,8 @@ class WorkUnit(Base):
 
     __tablename__ = "work_unit"
     __table_args__ = (
-        CheckConstraint(_one_of("kind", UNIT_KINDS), name="kind"),
-        CheckConstraint(_one_of("status", UNIT_STATUSES), name="status"),
+        CheckConstraint(one_of("kind", UNIT_KINDS), name="kind"),
+        CheckConstraint(one_of("status", UNIT_STATUSES), name="status"),
         CheckConstraint(_scope_matches("outer_repeat", "outer_fold"), name="scope_outer"),
         CheckConstraint(
             f"(kind <> 'outer_refit' OR scope <> '{FINAL_SCOPE}') AND "
@@ -344,19 +343,6 @@ class ApiToken(Base):
     revoked_at: Mapped[datetime | None]
 
 
-REFRESH_STATUSES = (
-    "pending",
-    "running",
-    "unchanged",
-    "reselected",
-    "pick_changed",
-    "degraded",
-    "failed",
-)
-AUDIT_STATUSES = ("queued", "running", "done", "failed")
-DELIVERY_STATUSES = ("pending", "delivered", "failed")
-
-
 class FoldPrediction(Base):
     """One candidate's predictions on one fold's test rows, so a new metric needs no refit."""
 
@@ -374,85 +360,3 @@ class FoldPrediction(Base):
     data: Mapped[bytes]  # compressed numpy arrays, float64 so metrics recompute exactly
     job_id: Mapped[str] = mapped_column(ForeignKey("job.id"), index=True)
     created_at: Mapped[CreatedAt]
-
-
-class Audit(Base):
-    """A recomputation of (a sample of) a job's units, compared with what the store holds."""
-
-    __tablename__ = "audit"
-    __table_args__ = (CheckConstraint(_one_of("status", AUDIT_STATUSES), name="status"),)
-
-    id: Mapped[str] = mapped_column(String(32), primary_key=True)
-    job_id: Mapped[str] = mapped_column(ForeignKey("job.id"), index=True)
-    team: Mapped[str] = mapped_column(String(100))
-    status: Mapped[Short]
-    fraction: Mapped[float]
-    seed: Mapped[int]
-    tolerance: Mapped[float]
-    report: Mapped[JsonDoc | None]
-    created_at: Mapped[CreatedAt]
-    finished_at: Mapped[datetime | None]
-
-
-class Schedule(Base):
-    """A changeable dataset source, a job template and a cron expression."""
-
-    __tablename__ = "schedule"
-
-    id: Mapped[str] = mapped_column(String(32), primary_key=True)
-    team: Mapped[str] = mapped_column(String(100), index=True)
-    source: Mapped[JsonDoc]
-    template: Mapped[JsonDoc]  # job request v1 without its dataset
-    cron: Mapped[str] = mapped_column(String(100))
-    timezone: Mapped[str] = mapped_column(String(64), default="UTC", server_default="UTC")
-    # the refresh is "degraded" when the pick_by estimate falls below this
-    threshold: Mapped[float | None]
-    webhook_url: Mapped[str | None] = mapped_column(String(2000))
-    active: Mapped[bool] = mapped_column(Boolean, default=True, server_default=true())
-    next_due_at: Mapped[datetime | None] = mapped_column(index=True)
-    created_at: Mapped[CreatedAt]
-
-
-class Refresh(Base):
-    """One firing of a schedule; (schedule, due time) is unique, so a double tick makes one."""
-
-    __tablename__ = "refresh"
-    __table_args__ = (
-        CheckConstraint(_one_of("status", REFRESH_STATUSES), name="status"),
-        UniqueConstraint("schedule_id", "due_at"),
-    )
-
-    id: Mapped[int] = mapped_column(primary_key=True)
-    schedule_id: Mapped[str] = mapped_column(ForeignKey("schedule.id"), index=True)
-    due_at: Mapped[datetime]
-    trigger: Mapped[str] = mapped_column(String(16))  # "tick" or "manual"
-    status: Mapped[Short]
-    dataset_hash: Mapped[Hash64 | None]
-    job_id: Mapped[str | None] = mapped_column(ForeignKey("job.id"))
-    previous_job_id: Mapped[str | None] = mapped_column(ForeignKey("job.id"))
-    comparison: Mapped[JsonDoc | None]
-    error: Mapped[LongText | None]
-    created_at: Mapped[CreatedAt]
-    finished_at: Mapped[datetime | None]
-
-
-class WebhookDelivery(Base):
-    """One notification and its delivery attempts (signed, retried with backoff)."""
-
-    __tablename__ = "webhook_delivery"
-    __table_args__ = (CheckConstraint(_one_of("status", DELIVERY_STATUSES), name="status"),)
-
-    id: Mapped[int] = mapped_column(primary_key=True)
-    team: Mapped[str] = mapped_column(String(100))
-    url: Mapped[str] = mapped_column(String(2000))
-    event: Mapped[str] = mapped_column(String(64))
-    job_id: Mapped[str | None] = mapped_column(ForeignKey("job.id"))
-    refresh_id: Mapped[int | None] = mapped_column(ForeignKey("refresh.id"))
-    body: Mapped[JsonDoc]
-    status: Mapped[Short]
-    attempts: Mapped[int] = mapped_column(default=0, server_default="0")
-    last_status: Mapped[int | None]
-    last_error: Mapped[LongText | None]
-    next_attempt_at: Mapped[datetime | None] = mapped_column(index=True)
-    created_at: Mapped[CreatedAt]
-    delivered_at: Mapped[datetime | None]

@@ -16,7 +16,8 @@ import pytest
 from api.server import Server, running_server  # tests/api/server.py: the live server helper
 from sqlalchemy import update
 
-from service.store.models import Job, Refresh, Schedule
+from service.store.followup_models import Refresh, Schedule
+from service.store.models import Job
 
 IRIS_LR: dict[str, Any] = {
     "dataset": {"sample": "iris"},

@@ -10,6 +10,7 @@ import sys
 from pathlib import Path
 from typing import Any
 
+from cli.runner import run_foldwise_in_process
 from sqlalchemy import func, select, text
 from sqlalchemy.orm import Session, sessionmaker
 
@@ -17,7 +18,8 @@ from service.config import Settings, load_settings
 from service.jobs.audits.audit import request_audit, run_audit
 from service.jobs.local.driver import run_embedded
 from service.store.db import make_engine, make_session_factory
-from service.store.models import Audit, FoldScore, Job, WorkUnit
+from service.store.followup_models import Audit
+from service.store.models import FoldScore, Job, WorkUnit
 
 from .conftest import make_request
 
@@ -131,10 +133,13 @@ def test_the_audit_command_reports_identical_then_differing_and_refuses_bad_inpu
     assert found.returncode == 1
     assert f"differing: fold score {tampered} " in found.stdout
 
+    # refusals come before any recomputation: the same command line in this process (a process
+    # per call costs seconds of imports; the two runs above are the console script's exit codes)
+    mine = {"FOLDWISE_HOME": env["FOLDWISE_HOME"]}
     for args, field in ((["--fraction", "0"], "fraction"), (["--tolerance", "-1"], "tolerance")):
-        refused = _foldwise(env, "audit", job_id, *args)
-        assert refused.returncode == 2
+        refused = run_foldwise_in_process("audit", job_id, *args, cwd=REPO, env=mine)
+        assert refused.code == 2
         assert refused.stderr.startswith(f"error: {field}:"), refused.stderr
         assert "Traceback" not in refused.stderr
-    unknown = _foldwise(env, "audit", "0" * 32)
-    assert unknown.returncode == 2 and "no job" in unknown.stderr
+    unknown = run_foldwise_in_process("audit", "0" * 32, cwd=REPO, env=mine)
+    assert unknown.code == 2 and "no job" in unknown.stderr

@@ -11,7 +11,8 @@ import pytest
 from api.server import Server, running_server
 from sqlalchemy import func, select
 
-from service.store.models import Audit, FoldScore, JobCandidate, JobFold, WorkUnit
+from service.store.followup_models import Audit
+from service.store.models import FoldScore, JobCandidate, JobFold, WorkUnit
 
 from .conftest import make_request
 

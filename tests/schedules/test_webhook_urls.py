@@ -20,7 +20,8 @@ from service.notify.delivery import deliver_due
 from service.notify.outbox import queue_delivery
 from service.notify.targets import check_webhook_target, remove_dot_segments
 from service.store.db import make_engine, make_session_factory, upgrade_database
-from service.store.models import Job, WebhookDelivery
+from service.store.followup_models import WebhookDelivery
+from service.store.models import Job
 
 from .receiver import receiving
 from .tables import TEMPLATE

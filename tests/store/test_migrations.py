@@ -11,7 +11,7 @@ from alembic.script import ScriptDirectory
 from sqlalchemy import Engine, inspect
 
 from service.store.db import HEAD_REVISION, alembic_config, make_engine, upgrade_database
-from service.store.models import Base
+from service.store.followup_models import Base  # the one metadata, with every table loaded
 
 
 def _differences(engine: Engine) -> list[object]:

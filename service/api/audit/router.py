@@ -18,7 +18,7 @@ from service.jobs.audits.audit import audit_view, check_audit_request, request_a
 from service.jobs.queries import jobs as job_queries
 from service.jobs.queries.jobs import foreign_job_ids
 from service.jobs.queries.provenance import provenance
-from service.store.models import Audit
+from service.store.followup_models import Audit
 
 log = logging.getLogger(__name__)
 router = APIRouter(prefix="/v1", tags=["audits"], route_class=StrictJsonRoute)

@@ -17,8 +17,8 @@ from sqlalchemy.orm import Session
 
 from service.auth import Action, Principal, reaches_every_team
 from service.jobs.queries.jobs import OTHER_TEAM, foreign_job_ids
+from service.store.followup_models import Audit
 from service.store.models import (
-    Audit,
     Candidate,
     Dataset,
     DatasetRegistration,

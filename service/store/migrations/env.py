@@ -10,10 +10,11 @@ from __future__ import annotations
 from alembic import context
 from sqlalchemy import Connection
 
+from service.store import followup_models
 from service.store.db import make_engine
-from service.store.models import Base
 
-target_metadata = Base.metadata
+# one metadata holds both modules' tables; taking it from the second makes sure that is loaded
+target_metadata = followup_models.Base.metadata
 
 
 def _run(connection: Connection) -> None:

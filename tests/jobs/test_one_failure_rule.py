@@ -29,7 +29,8 @@ from service.jobs.execution.work import run_and_advance
 from service.jobs.intake.start import start_submitted
 from service.jobs.lifecycle import MAX_ATTEMPTS, claim_unit
 from service.store.db import make_engine, make_session_factory, upgrade_database, utcnow
-from service.store.models import Job, WebhookDelivery, WorkUnit
+from service.store.followup_models import WebhookDelivery
+from service.store.models import Job, WorkUnit
 from service.store.statuses import JobStatus, UnitStatus
 
 # twelve rows: outer 3-fold leaves 8 training rows. Inner 4-fold on all 8 leaves 2 test rows

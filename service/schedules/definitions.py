@@ -19,7 +19,7 @@ from service.jobs.intake.request import bad_input_from
 from service.notify.targets import check_webhook_target
 from service.schedules.cron import next_after, parse_cron, zone
 from service.store.db import utcnow
-from service.store.models import Refresh, Schedule
+from service.store.followup_models import Refresh, Schedule
 
 
 class ScheduleRequest(BaseModel):
