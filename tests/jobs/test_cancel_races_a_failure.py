@@ -22,7 +22,8 @@ from service.jobs.intake.create import create_job
 from service.jobs.intake.prepare import prepare_job
 from service.jobs.lifecycle import cancel_job, fail_job
 from service.store.db import make_engine, make_session_factory, upgrade_database
-from service.store.models import Job, WebhookDelivery
+from service.store.followup_models import WebhookDelivery
+from service.store.models import Job
 
 REQUEST: dict[str, Any] = {
     "dataset": {"sample": "diabetes"},
