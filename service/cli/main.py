@@ -29,7 +29,8 @@ app = typer.Typer(
 )
 # `foldwise select` stops within this many seconds of SIGTERM or Ctrl-C with --workers > 1:
 # the pool's processes get 2 s to go before they are killed (service/processes.py). With one
-# worker the fit in progress runs in this process and ends first.
+# worker, or a job too small for a pool (pool_workers in service/jobs/local/driver.py), the fit
+# in progress runs in this process and ends first.
 SELECT_STOP_GRACE = 5
 dataset_app = typer.Typer(help="Registered tables.", no_args_is_help=True)
 db_app = typer.Typer(help="The store's schema.", no_args_is_help=True)

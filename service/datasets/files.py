@@ -153,35 +153,29 @@ def _utf8_text_bytes(path: Path, field: str) -> bytes:
         ) from None
     if not data:
         raise BadInput(field, f"{path} is empty; supply a header row and at least one data row.")
-    if b"\x00" in data:
-        raise BadInput(
-            field,
-            f"{path} contains NUL bytes, so it is binary rather than CSV text; "
-            "export the table as UTF-8 CSV or as Parquet.",
-        )
     decoder = codecs.getincrementaldecoder("utf-8")()
-    view = memoryview(data)
+    seen = 0
     try:
-        # in chunks, so checking a large file never holds a second, decoded copy of it
+        # chunk by chunk as the file was once streamed: the first problem in file order is named,
+        # and no decoded copy of a large file is ever held
         for start in range(0, len(data), _CHUNK):
-            decoder.decode(view[start : start + _CHUNK])
+            chunk = data[start : start + _CHUNK]
+            if b"\x00" in chunk:
+                raise BadInput(
+                    field,
+                    f"{path} contains NUL bytes, so it is binary rather than CSV text; "
+                    "export the table as UTF-8 CSV or as Parquet.",
+                )
+            decoder.decode(chunk)
+            seen += len(chunk)
         decoder.decode(b"", final=True)
-    except UnicodeDecodeError:
-        offset = _first_bad_byte(data)
+    except UnicodeDecodeError as exc:
         raise BadInput(
             field,
-            f"{path} is not UTF-8 text (bad byte near offset {offset}); "
+            f"{path} is not UTF-8 text (bad byte near offset {seen + exc.start}); "
             "re-save it with UTF-8 encoding.",
         ) from None
     return data
-
-
-def _first_bad_byte(data: bytes) -> int:
-    try:
-        data.decode("utf-8")
-    except UnicodeDecodeError as exc:
-        return exc.start
-    return len(data)
 
 
 def _open_bytes(path: Path) -> BinaryIO:
