@@ -14,7 +14,7 @@ import sys
 from .runner import FOLDWISE, REPO, TIMEOUT
 
 # the libraries that cost a command most of its start-up; none is needed to parse arguments
-HEAVY = ("sklearn", "pandas", "scipy", "sqlalchemy", "alembic", "skops", "pyarrow")
+HEAVY = ("sklearn", "pandas", "scipy", "sqlalchemy", "alembic", "skops", "pyarrow", "httpx")
 # every command and command group README.md documents, at the top level of `foldwise`
 DOCUMENTED = {
     "select", "serve", "demo", "worker", "beat", "audit", "webhook-secret", "login", "jobs",
