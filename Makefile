@@ -37,6 +37,7 @@ bench: $(STAMP)
 	$(BIN)/python tests/benchmarks/bench_service.py
 	$(BIN)/python tests/benchmarks/bench_reuse.py
 	$(BIN)/python tests/benchmarks/bench_refresh.py
+	$(BIN)/python tests/benchmarks/bench_engine_shared.py
 
 clean:
 	rm -rf $(VENV) .foldwise .pytest_cache .mypy_cache .ruff_cache

@@ -13,6 +13,7 @@ from service.auth import Action, Principal, reaches_every_team
 from service.jobs.queries.datasets import visible_dataset
 from service.jobs.queries.jobs import job_query
 from service.store.models import Refresh, Schedule
+from service.store.statuses import JobStatus
 
 
 @dataclass(frozen=True)
@@ -54,7 +55,7 @@ class DatasetHistory:
 
 
 def _point(job: Any) -> HistoryPoint:
-    result = job.result if job.status == "succeeded" else None
+    result = job.result if job.status == JobStatus.SUCCEEDED else None
     pick_by = mean = se = final = None
     # a learning curve's parent has no single estimate or pick; it shows as a job without them
     if result and "final_pick" in result and result.get("pick_by") in result.get("estimate", {}):

@@ -17,6 +17,7 @@ from service.errors import BadInput, NotFound
 from service.jobs.queries.datasets import visible_dataset
 from service.jobs.queries.jobs import get_job, job_query
 from service.store.models import FoldScore, Job, JobCandidate, JobFold
+from service.store.statuses import JobStatus
 
 FoldRole = Literal["outer", "inner", "final_inner"]
 MAX_PAGE = 1000
@@ -103,7 +104,7 @@ def _comparable(session: Session, principal: Principal, job_id: str) -> Job:
         job = get_job(session, job_id, principal)
     except NotFound:
         raise BadInput("jobs", f"no job {job_id!r} is visible to your token.") from None
-    if job.status != "succeeded" or job.result is None:
+    if job.status != JobStatus.SUCCEEDED or job.result is None:
         raise BadInput(
             "jobs", f"job {job_id!r} is {job.status}; only succeeded jobs can be compared."
         )

@@ -30,7 +30,7 @@ from service.errors import BadInput
 from service.http.limits import BodyCap, NoNulInUrl
 from service.http.problems import PROBLEM_MEDIA_TYPE, install_problem_handlers, problem_type
 from service.jobs.intake.request import JobRequest
-from service.schedules.service import ScheduleRequest
+from service.schedules.definitions import ScheduleRequest
 from service.store.db import make_engine, make_read_session_factory, make_session_factory
 from service.web.router import router as reports_router
 

@@ -9,7 +9,6 @@ from __future__ import annotations
 import json
 import os
 import socket
-import subprocess
 import sys
 import time
 from collections.abc import Callable, Iterator
@@ -19,6 +18,7 @@ from typing import Annotated, Any
 
 import typer
 
+from service.cli.local_server import ServerDidNotStart, free_port, serving
 from service.cli.output import fail, refuse, stderr, stdout
 from service.config import Settings, load_settings
 from service.errors import BadInput
@@ -31,13 +31,6 @@ START_SECONDS = 60.0
 DEFAULT_PORT = 8765
 # A quiet line every so often when stderr is not a terminal (a CI log, a pipe).
 LINE_SECONDS = 5.0
-
-
-def free_port() -> int:
-    """A TCP port nobody listens on right now (the server binds it a moment later)."""
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return int(probe.getsockname()[1])
 
 
 def _demo_token(settings: Settings) -> str:
@@ -56,35 +49,12 @@ def _demo_token(settings: Settings) -> str:
 @contextmanager
 def running_server(port: int, workers: int, log_path: Path) -> Iterator[str]:
     """`foldwise serve` in a subprocess until the block ends; yields its base URL."""
-    import httpx
-
-    base = f"http://127.0.0.1:{port}"
-    command = [sys.executable, "-m", "service.cli.main", "serve", "--port", str(port)]
-    command += ["--workers-local", str(workers)]
-    log_path.parent.mkdir(parents=True, exist_ok=True)
-    with log_path.open("wb") as log:
-        server = subprocess.Popen(command, stdout=log, stderr=subprocess.STDOUT, env=os.environ)
-        try:
-            deadline = time.monotonic() + START_SECONDS
-            while True:
-                if server.poll() is not None:
-                    fail(f"the server exited with code {server.returncode}; see {log_path}.")
-                try:
-                    if httpx.get(f"{base}/healthz", timeout=1).status_code == 200:
-                        break
-                except httpx.TransportError:
-                    pass
-                if time.monotonic() > deadline:
-                    fail(f"the server did not answer within {START_SECONDS:.0f} s; see {log_path}.")
-                time.sleep(0.2)
-            yield base
-        finally:
-            server.terminate()
-            try:
-                server.wait(timeout=30)
-            except subprocess.TimeoutExpired:
-                server.kill()
-                server.wait()
+    args = ("--workers-local", str(workers))
+    try:
+        with serving(port, log_path, start_timeout=START_SECONDS, args=args) as server:
+            yield server.base_url
+    except ServerDidNotStart as exc:  # only the start raises it; the demo's steps never do
+        fail(str(exc))
 
 
 def _checked(answer: Any, what: str) -> dict[str, Any]:

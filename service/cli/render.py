@@ -13,6 +13,19 @@ def _params(params: dict[str, Any]) -> str:
     return ", ".join(f"{k}={json.dumps(v)}" for k, v in params.items())
 
 
+def _interval_line(metric: str, row: dict[str, Any]) -> str:
+    """One line naming the interval, its level and its method, or why there is none."""
+    found = row.get("interval")
+    if "interval" not in row:  # results stored before intervals existed
+        return f"  {metric}: no interval in this result (computed before intervals existed)."
+    if found is None:
+        return f"  {metric}: no interval (see the cautions below)."
+    return (
+        f"  {metric}: {found['level']:.0%} interval [{found['lower']:.4f}, {found['upper']:.4f}]"
+        f", method {found['method']}: {found['source']}."
+    )
+
+
 def print_result(console: Console, result: dict[str, Any], job_id: str) -> None:
     """The estimate, each outer fold's pick, the final pick, the optimism gap and cautions."""
     pick_by = result["pick_by"]
@@ -29,6 +42,9 @@ def print_result(console: Console, result: dict[str, Any], job_id: str) -> None:
             metric, f"{row['mean']:.4f}", f"{row['std']:.4f}", f"{row['se']:.4f}", folds
         )
     console.print(estimate)
+    # the interval, not std or se, is the uncertainty of the estimate; one unwrapped line each
+    for metric, row in result["estimate"].items():
+        console.print(_interval_line(metric, row), soft_wrap=True, highlight=False, markup=False)
     outer = Table(title=f"Pick of each outer fold (by inner mean {pick_by})")
     for column in (
         "repeat",

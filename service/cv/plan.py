@@ -12,6 +12,7 @@ import sklearn
 from service.cv.candidates import Candidate, enumerate_candidates
 from service.cv.columns import apply_column_types, order_values
 from service.cv.errors import SpecError
+from service.cv.intervals import check_interval
 from service.cv.metrics import check_metrics
 from service.cv.preprocess import FeatureTable, check_preprocess, feature_table
 from service.cv.recipe import check_recipe
@@ -171,6 +172,7 @@ def build_plan(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) 
             "classification; use task 'regression'.",
         )
     check_metrics(spec.metrics, spec.task, n_classes)
+    check_interval(spec)
     features = _features(spec, frame)
     check_slices(spec.slices, frame)
     table = feature_table(frame, features, kinds)

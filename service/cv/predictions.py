@@ -15,6 +15,8 @@ from typing import Any
 import numpy as np
 import numpy.typing as npt
 from sklearn.base import BaseEstimator, ClassifierMixin, RegressorMixin
+from sklearn.ensemble._forest import ForestClassifier
+from sklearn.linear_model._base import LinearClassifierMixin
 from sklearn.metrics import check_scoring
 
 # the response methods a scorer may ask for, in the order we keep them
@@ -52,21 +54,42 @@ class StoredPredictions:
         return cls(task, arrays, classes)
 
 
+def _labels_from(model: Any, arrays: dict[str, npt.NDArray[Any]]) -> npt.NDArray[Any] | None:
+    """Class indices of `model.predict`, read off a response already computed when the class's
+    own predict is defined from that response (so it need not be computed twice); else None."""
+    # Exactly what those predict methods do (scikit-learn 1.9 source): a forest takes the argmax
+    # of predict_proba; a linear classifier takes decision > 0 (two classes) or its argmax
+    predict = getattr(type(model), "predict", None)
+    forest = predict is ForestClassifier.predict and getattr(model, "n_outputs_", 0) == 1
+    if forest and "predict_proba" in arrays:
+        return np.argmax(arrays["predict_proba"], axis=1).astype(np.float64)
+    if predict is LinearClassifierMixin.predict and "decision_function" in arrays:
+        scores = arrays["decision_function"]
+        indices = (scores > 0).astype(np.int64) if scores.ndim == 1 else np.argmax(scores, axis=1)
+        return indices.astype(np.float64)
+    return None
+
+
 def capture(model: Any, X_test: Any, task: str) -> StoredPredictions:
-    """Every response the fitted `model` offers on `X_test`, as float64 arrays."""
+    """Every response the fitted `model` offers on `X_test`, as float64 arrays, each computed
+    once (scored from here by score_stored)."""
     if task == "regression":
         return StoredPredictions(task, {"predict": np.asarray(model.predict(X_test), np.float64)})
     classes = np.asarray(model.classes_)
-    index = {label: i for i, label in enumerate(classes.tolist())}
-    labels = np.asarray(model.predict(X_test)).tolist()
-    arrays = {"predict": np.asarray([index[label] for label in labels], dtype=np.float64)}
+    arrays: dict[str, npt.NDArray[Any]] = {}
     for method in RESPONSES[1:]:
         if hasattr(model, method):
             try:
                 arrays[method] = np.asarray(getattr(model, method)(X_test), dtype=np.float64)
             except (AttributeError, NotImplementedError):
                 continue  # e.g. SVC(probability=False) declares predict_proba but refuses it
-    return StoredPredictions(task, arrays, classes.tolist())
+    derived = _labels_from(model, arrays)
+    if derived is None:
+        index = {label: i for i, label in enumerate(classes.tolist())}
+        labels = np.asarray(model.predict(X_test)).tolist()
+        derived = np.asarray([index[label] for label in labels], dtype=np.float64)
+    # predict first, as before: the stored archive keeps its member order
+    return StoredPredictions(task, {"predict": derived, **arrays}, classes.tolist())
 
 
 def _classes_array(classes: list[Any]) -> npt.NDArray[Any]:

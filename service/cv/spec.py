@@ -22,6 +22,8 @@ MAX_PARAMS = 100  # hyperparameters named in one family's fixed, grid or ranges
 MAX_METRICS = 20
 MAX_FEATURES = 100_000
 MAX_NAME = 1_000  # characters of a column, estimator or metric name
+# repetitions of the nested interval: each costs K·(K-1) whole selections (Bates et al. 2024)
+MAX_INTERVAL_REPETITIONS = 100
 Name = Annotated[str, Field(min_length=1, max_length=MAX_NAME)]
 
 
@@ -128,6 +130,33 @@ class ContextSpec(_Strict):
     domain: str | None = Field(default=None, min_length=1, max_length=100)
 
 
+class IntervalSpec(_Strict):
+    """Which interval each estimate gets: its method, its level and (nested) its repetitions."""
+
+    method: Literal["quick", "nested"] = "quick"
+    level: float = 0.9
+    repetitions: int | None = None
+
+    @model_validator(mode="after")
+    def _bounded(self) -> IntervalSpec:
+        if not 0.5 < self.level < 0.999:
+            raise ValueError(
+                f"level: {self.level} is outside (0.5, 0.999); give a coverage such as 0.9"
+            )
+        if self.repetitions is not None:
+            if self.method == "quick":
+                raise ValueError(
+                    "repetitions: the quick interval uses the outer folds the job already has; "
+                    "remove repetitions, or set outer.repeats for more outer folds"
+                )
+            if not 2 <= self.repetitions <= MAX_INTERVAL_REPETITIONS:
+                raise ValueError(
+                    f"repetitions: {self.repetitions} is outside 2 to "
+                    f"{MAX_INTERVAL_REPETITIONS}; give a number of repetitions in that range"
+                )
+        return self
+
+
 def _time_options(plan: SplitSpec) -> None:
     """gap, max_train_size and test_size belong to time_series alone."""
     if plan.method == "time_series":
@@ -159,6 +188,8 @@ class SelectionSpec(_Strict):
     weights: str | None = Field(default=None, min_length=1)
     # columns whose values split the outer test rows into groups scored apart (slices.py)
     slices: list[str] = Field(default_factory=list, max_length=20)
+    # the interval on every estimate (service/cv/intervals.py); the default costs no extra fit
+    interval: IntervalSpec = Field(default_factory=IntervalSpec)
 
     @model_validator(mode="after")
     def _consistent(self) -> SelectionSpec:

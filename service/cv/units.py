@@ -14,14 +14,17 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any, Literal
 
+from sklearn.pipeline import Pipeline
+
 from service.cv.candidates import Candidate
 from service.cv.metrics import make_scorer_set
 from service.cv.plan import SelectionPlan
 from service.cv.predictions import capture, score_stored
 from service.cv.preprocess import build_pipeline
 from service.cv.scopes import FINAL_SCOPE
+from service.cv.shared_folds import CACHE, SharedFold, handed_out, shared_fold, steps_key
 from service.cv.splits import Fold
-from service.cv.weights import fit_model
+from service.cv.weights import fit_model, fit_transform_steps
 
 UnitKind = Literal["inner", "outer_refit", "final_refit"]
 
@@ -96,24 +99,65 @@ def inner_units(plan: SelectionPlan) -> list[UnitRef]:
     return [UnitRef("inner", scope, c.key) for scope in plan.scopes for c in plan.candidates]
 
 
+def _split(pipeline: Any) -> tuple[Pipeline, Any] | None:
+    """The steps before the model (as a pipeline) and the model, for a plain pipeline with
+    steps before its model; None otherwise (a target transform wraps the whole pipeline, and
+    a model alone has nothing to share)."""
+    if not isinstance(pipeline, Pipeline) or len(pipeline.steps) < 2:
+        return None
+    return Pipeline(pipeline.steps[:-1]), pipeline.steps[-1][1]
+
+
+def _shared_inputs(plan: SelectionPlan, fold: Fold, steps: Pipeline) -> SharedFold:
+    """The fold's rows through `steps` fitted on its train rows, shared by every candidate
+    whose steps are the same (service/cv/shared_folds.py)."""
+    X, y, w = plan.table.X, plan.y, plan.weights
+    # what a fitted step can depend on: its definition, the table, the target, the weights
+    # (scalers and selectors take them) and the fold's rows (the fingerprint covers both parts)
+    key = (id(X), id(y), id(w), fold.fingerprint, steps_key(steps))
+
+    def fit() -> tuple[Any, Any, Any]:
+        w_train = None if w is None else w[fold.train]
+        train = fit_transform_steps(steps, X.iloc[fold.train], y[fold.train], w_train)
+        return steps, train, steps.transform(X.iloc[fold.test])
+
+    return shared_fold(key, (X, y, w), fit)
+
+
 def _fit_and_score_fold(
-    candidate: Candidate, plan: SelectionPlan, ref: UnitRef, fold: Fold, metrics: list[str]
+    candidate: Candidate,
+    plan: SelectionPlan,
+    ref: UnitRef,
+    fold: Fold,
+    metrics: list[str],
+    share: bool = True,
 ) -> dict[str, Any]:
     pipeline = build_pipeline(candidate, plan.table, plan.spec.task, plan.spec.recipe)
     X, y, w = plan.table.X, plan.y, plan.weights
+    w_train = None if w is None else w[fold.train]
+    parts = _split(pipeline) if share and CACHE.enabled else None
     started = time.perf_counter()
     # a fit that fails raises (scikit-learn's error_score="raise"): a failed unit keeps the text
-    fit_model(pipeline, X.iloc[fold.train], y[fold.train], None if w is None else w[fold.train])
+    if parts is None:
+        model: Any = fit_model(pipeline, X.iloc[fold.train], y[fold.train], w_train)
+        X_test: Any = X.iloc[fold.test]
+    else:
+        # what Pipeline.fit does, with the steps before the model fitted once per fold: the
+        # model is fitted on, and predicts from, the same matrices the pipeline would hand it
+        steps, model = parts
+        inputs = _shared_inputs(plan, fold, steps)
+        fit_model(model, handed_out(inputs.train), y[fold.train], w_train)
+        X_test = handed_out(inputs.test)
     fitted = time.perf_counter()
-    X_test, y_test = X.iloc[fold.test], y[fold.test]
+    y_test = y[fold.test]
     w_test = None if w is None else w[fold.test]
     # each response is computed once: kept so a later request can add a metric without a refit
     # (service/cv/predictions.py), and handed to scikit-learn's own scorers from there
-    predictions = capture(pipeline, X_test, plan.spec.task)
+    predictions = capture(model, X_test, plan.spec.task)
     scores = score_stored(predictions, y_test, metrics, w_test)
     if scores is None:  # a scorer wants a response the model did not offer: let it say so
         weighted = {} if w_test is None else {"sample_weight": w_test}
-        scores = make_scorer_set(pipeline, metrics)(pipeline, X_test, y_test, **weighted)
+        scores = make_scorer_set(model, metrics)(model, X_test, y_test, **weighted)
     check_finite(scores, plan, ref, fold)
     done = time.perf_counter()
     return {
@@ -128,9 +172,16 @@ def _fit_and_score_fold(
 
 
 def fit_and_score(
-    plan: SelectionPlan, ref: UnitRef, should_stop: Callable[[], bool] | None = None
+    plan: SelectionPlan,
+    ref: UnitRef,
+    should_stop: Callable[[], bool] | None = None,
+    share: bool = True,
 ) -> UnitOutcome:
-    """Fit and score one unit, checking `should_stop` before each fit."""
+    """Fit and score one unit, checking `should_stop` before each fit.
+
+    With `share`, a fold's preprocessing fitted for an earlier candidate in this process is
+    reused (bit-identical scores); share=False fits the whole pipeline afresh on every fold.
+    """
     candidate = plan.candidate(ref.candidate_key)
     started = time.perf_counter()
     if ref.kind == "final_refit":
@@ -144,5 +195,6 @@ def fit_and_score(
     for fold in unit_folds(plan, ref):
         if should_stop and should_stop():
             raise UnitCancelled(ref)
-        outcomes.append(_fit_and_score_fold(candidate, plan, ref, fold, plan.spec.metrics))
+        metrics = plan.spec.metrics
+        outcomes.append(_fit_and_score_fold(candidate, plan, ref, fold, metrics, share))
     return UnitOutcome(ref, outcomes, len(outcomes), time.perf_counter() - started)

@@ -13,7 +13,8 @@ import numpy as np
 import numpy.typing as npt
 import pandas as pd
 from sklearn import config_context
-from sklearn.base import BaseEstimator
+from sklearn.base import BaseEstimator, TransformerMixin
+from sklearn.pipeline import Pipeline
 
 from service.cv.errors import SpecError
 from service.cv.estimators import estimator_class
@@ -113,6 +114,36 @@ def fit_model(model: Any, X: Any, y: Any, weights: npt.NDArray[np.float64] | Non
         model.fit(X, y, sample_weight=weights)
     _forget_requests(model)
     return model
+
+
+class _WeightSink(TransformerMixin, BaseEstimator):
+    """Stands where the model stands, taking sample_weight as the model does, and hands its
+    input on untouched: the steps before it are routed the weights exactly as in the pipeline."""
+
+    def fit(self, X: Any, y: Any = None, sample_weight: Any = None) -> _WeightSink:
+        """Nothing to learn."""
+        return self
+
+    def transform(self, X: Any) -> Any:
+        """X itself."""
+        return X
+
+
+def fit_transform_steps(
+    steps: Pipeline, X: Any, y: Any, weights: npt.NDArray[np.float64] | None
+) -> Any:
+    """Fit the steps before a model on X, y and return X through them, `weights` routed to each
+    step as fit_model routes them when the same steps sit inside the whole pipeline."""
+    if weights is None:
+        return steps.fit_transform(X, y)
+    # scikit-learn refuses metadata that nothing consumes; in the whole pipeline the model
+    # consumes the weights even when no step before it does, so the sink takes its place
+    whole = Pipeline([*steps.steps, ("model", _WeightSink())])
+    with config_context(enable_metadata_routing=True):
+        _request_weights(whole)
+        transformed = whole.fit_transform(X, y, sample_weight=weights)
+    _forget_requests(whole)
+    return transformed
 
 
 def _forget_requests(estimator: Any) -> None:

@@ -9,6 +9,7 @@ from sqlalchemy.orm import Session
 
 from service.store.db import utcnow
 from service.store.models import Job, WebhookDelivery
+from service.store.statuses import JobStatus
 
 JOB_EVENT = "job.finished"
 REFRESH_EVENT = "refresh.finished"
@@ -53,7 +54,7 @@ def job_notice(job: Job) -> dict[str, Any]:
         "links": {"job": f"/v1/jobs/{job.id}"},
     }
     result = job.result or {}
-    if job.status == "succeeded" and result:
+    if job.status == JobStatus.SUCCEEDED and result:
         pick_by = result.get("pick_by")
         final = result.get("final_pick") or {}
         body["pick_by"] = pick_by

@@ -27,13 +27,14 @@ from service.jobs.intake.submit import submit_job
 from service.notify.outbox import REFRESH_EVENT, queue_delivery
 from service.schedules.compare import compare_results, refresh_status
 from service.schedules.cron import next_after, parse_cron, zone
-from service.schedules.service import base_dir, job_body
+from service.schedules.definitions import base_dir, job_body
 from service.store.db import utcnow
 from service.store.models import Job, JobFold, Refresh, Schedule
+from service.store.statuses import ENDED_JOB, JobStatus
 
 log = logging.getLogger(__name__)
-FINAL = ("succeeded", "failed", "cancelled")
-LIVE = ("queued", "running", "succeeded")
+FINAL = ENDED_JOB
+LIVE = (JobStatus.QUEUED, JobStatus.RUNNING, JobStatus.SUCCEEDED)
 
 
 @dataclass
@@ -131,7 +132,7 @@ def refresh_schedule(
         refresh.previous_job_id = last.id
         _end(session, schedule, refresh, "unchanged")
         return refresh
-    previous = _latest_job(session, schedule.id, ("succeeded",))
+    previous = _latest_job(session, schedule.id, (JobStatus.SUCCEEDED,))
     principal = Principal(schedule.team, frozenset({"submit"}))
     try:
         with session.begin_nested():  # a refused submission leaves no half-written job behind
@@ -220,7 +221,7 @@ def finish_refreshes(sessions: sessionmaker[Session]) -> list[int]:
             refresh = session.get_one(Refresh, refresh_id)
             schedule = session.get_one(Schedule, refresh.schedule_id)
             job = session.get_one(Job, refresh.job_id)
-            if job.status != "succeeded" or not job.result:
+            if job.status != JobStatus.SUCCEEDED or not job.result:
                 status, comparison = "failed", None
                 error: str | None = f"job {job.id} {job.status}: {job.error or 'no result'}"
             else:

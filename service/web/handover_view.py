@@ -21,6 +21,7 @@ from service.cv.slices import OuterPredictions
 from service.jobs.execution.plans import PlanMismatch, plan_for_job
 from service.jobs.handover.outer_predictions import NotReady, all_outer
 from service.store.models import Job
+from service.store.statuses import JobStatus
 from service.web.handover_svg import scatter
 
 CALIBRATION_BINS = 10
@@ -105,7 +106,7 @@ def _regression(parts: list[OuterPredictions], y: np.ndarray) -> dict[str, Any]:
 
 def prediction_sections(session: Session, job: Job, settings: Settings) -> dict[str, Any] | None:
     """The page context of the prediction sections, or None for a job without a result."""
-    if job.status != "succeeded" or job.kind != "selection" or not job.result:
+    if job.status != JobStatus.SUCCEEDED or job.kind != "selection" or not job.result:
         return None
     try:
         loaded = plan_for_job(session, job.id, settings)

@@ -9,6 +9,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from service.store.models import Candidate, Job, WorkUnit
+from service.store.statuses import UnitStatus
 
 # A page of a job still queued or running reloads itself this often (an HTTP Refresh header,
 # no script); the page says so and links to a copy that stays still.
@@ -47,7 +48,7 @@ def failure(session: Session, job: Job) -> Failure:
     row = session.execute(
         select(WorkUnit.error, Candidate.estimator, Candidate.params)
         .join(Candidate, Candidate.candidate_key == WorkUnit.candidate_key)
-        .where(WorkUnit.job_id == job.id, WorkUnit.status == "failed")
+        .where(WorkUnit.job_id == job.id, WorkUnit.status == UnitStatus.FAILED)
         .order_by(WorkUnit.finished_at)
         .limit(1)
     ).first()

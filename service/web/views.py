@@ -9,6 +9,7 @@ from sqlalchemy.orm import Session
 
 from service.cv.cautions import PEOPLE_PREFIX
 from service.store.models import Job
+from service.store.statuses import LIVE_JOB, JobStatus
 from service.web import job_state, svg, svg_grid, validation_curves
 from service.web.queries import (
     inner_cells,
@@ -44,7 +45,7 @@ def describe(candidate: dict[str, Any]) -> str:
 
 def learning_page(session: Session, job: Job) -> dict[str, Any]:
     """Context of a learning-curve job: estimated error against training size, with its spread."""
-    result = job.result if job.status == "succeeded" else None
+    result = job.result if job.status == JobStatus.SUCCEEDED else None
     children = session.execute(
         select(Job.id, Job.status, Job.request).where(Job.parent_id == job.id)
     ).all()
@@ -57,10 +58,10 @@ def learning_page(session: Session, job: Job) -> dict[str, Any]:
     )
     context: dict[str, Any] = {"title": f"learning curve {job.id[:12]}", "job": job}
     context["result"] = result
-    context["refresh"] = job.status in ("queued", "running")
-    context["failure"] = job.error if job.status == "failed" else None
+    context["refresh"] = job.status in LIVE_JOB
+    context["failure"] = job.error if job.status == JobStatus.FAILED else None
     context["sizes"] = sizes
-    context["sizes_done"] = sum(1 for row in sizes if row["status"] == "succeeded")
+    context["sizes_done"] = sum(1 for row in sizes if row["status"] == JobStatus.SUCCEEDED)
     if result:
         points = sorted(result["points"], key=lambda p: p["size"])
         labels = [f"{p['size']:.0%}" for p in points]
@@ -104,7 +105,7 @@ def _people(cautions: list[str]) -> tuple[str | None, list[str]]:
 
 def job_page(session: Session, job: Job) -> dict[str, Any]:
     """Context of the job page: result v1 drawn, plus inner-score curves from SQL aggregates."""
-    result = job.result if job.status == "succeeded" else None
+    result = job.result if job.status == JobStatus.SUCCEEDED else None
     request = job.request or {}
     metric = (
         (result or {}).get("pick_by")
@@ -127,8 +128,8 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
         },
         "people": None,
         "progress": job_state.progress(job),
-        "failure": job_state.failure(session, job) if job.status == "failed" else None,
-        "refresh": job.status in ("queued", "running"),
+        "failure": job_state.failure(session, job) if job.status == JobStatus.FAILED else None,
+        "refresh": job.status in LIVE_JOB,
     }
     if result:
         pick = result["estimate"][metric]

@@ -1,4 +1,8 @@
-"""The analysts' commands as a user runs them: the console script against the live server."""
+"""The analysts' commands as a user runs them against the live server.
+
+Signing in, opening the page and the exit codes without a server run the console script; the
+other commands run in this process (tests/cli/runner.py) with the same arguments and checks.
+"""
 
 from __future__ import annotations
 
@@ -15,6 +19,7 @@ from typing import Any
 
 import pytest
 from api.server import REPO, free_port
+from cli.runner import run_foldwise_in_process
 
 from .conftest import Seeded
 
@@ -28,7 +33,8 @@ class Ran:
     stderr: str
 
 
-def _run(*args: str, home: Path, **env: str) -> Ran:
+def _script(*args: str, home: Path, **env: str) -> Ran:
+    """`foldwise ARGS` as the real console script, in a process of its own."""
     clean = {k: v for k, v in os.environ.items() if not k.startswith("FOLDWISE_")}
     clean |= {"FOLDWISE_HOME": str(home), "PYTHONPATH": str(REPO), **env}
     proc = subprocess.run(
@@ -42,6 +48,17 @@ def _run(*args: str, home: Path, **env: str) -> Ran:
         check=False,
     )
     return Ran(proc.returncode, proc.stdout, proc.stderr)
+
+
+def _run(*args: str, home: Path, **env: str) -> Ran:
+    """`foldwise ARGS` in this process, as the same command line with the same environment.
+
+    What these cases check is the command's answer, not the process start; a process per call
+    costs seconds of imports. Signing in, opening a browser and the exit codes 1 and 2 without a
+    server run as the console script (`_script`).
+    """
+    out = run_foldwise_in_process(*args, cwd=home.parent, env={"FOLDWISE_HOME": str(home), **env})
+    return Ran(out.code, out.stdout, out.stderr)
 
 
 @pytest.fixture
@@ -59,12 +76,12 @@ def _listing(seeded: Seeded, path: str, **params: Any) -> Any:
 
 def test_login_writes_a_private_config_the_commands_use(seeded: Seeded, tmp_path: Path) -> None:
     home = tmp_path / "home"
-    ran = _run("login", "--url", seeded.server.base_url, "--token", seeded.lab, home=home)
+    ran = _script("login", "--url", seeded.server.base_url, "--token", seeded.lab, home=home)
     assert ran.code == 0, ran.stderr
     config = home / "client.json"
     assert stat.S_IMODE(config.stat().st_mode) == 0o600  # it holds a bearer token
     assert json.loads(config.read_text()) == {"url": seeded.server.base_url, "token": seeded.lab}
-    listed = _run("jobs", "--json", home=home)  # no FOLDWISE_URL/TOKEN: the file is enough
+    listed = _script("jobs", "--json", home=home)  # no FOLDWISE_URL/TOKEN: the file is enough
     assert listed.code == 0, listed.stderr
     assert json.loads(listed.stdout) == _listing(seeded, "/v1/jobs", limit=50)
 
@@ -128,14 +145,14 @@ def test_report_prints_and_opens_the_page(
 ) -> None:
     job_id = seeded.jobs["A"]["id"]
     expected = f"{seeded.server.base_url}/reports/jobs/{job_id}"
-    ran = _run("report", job_id, home=tmp_path / "h", **as_lab)
+    ran = _script("report", job_id, home=tmp_path / "h", **as_lab)
     assert (ran.code, ran.stdout.strip()) == (0, expected)
     # webbrowser honours BROWSER: a stand-in browser that notes the address it was given
     opened = tmp_path / "opened.txt"
     browser = tmp_path / "browser.sh"
     browser.write_text(f'#!/bin/sh\nprintf "%s" "$1" > {opened}\n')
     browser.chmod(0o755)
-    ran = _run("report", job_id, "--open", home=tmp_path / "h", BROWSER=str(browser), **as_lab)
+    ran = _script("report", job_id, "--open", home=tmp_path / "h", BROWSER=str(browser), **as_lab)
     assert ran.code == 0, ran.stderr
     assert opened.read_text() == expected
 
@@ -161,7 +178,7 @@ def test_client_errors_exit_2_with_the_problem_detail(
 
 def test_unreachable_server_exits_1_and_missing_config_exits_2(tmp_path: Path) -> None:
     nobody = f"http://127.0.0.1:{free_port()}"
-    ran = _run("jobs", home=tmp_path / "h", FOLDWISE_URL=nobody, FOLDWISE_TOKEN="fw_x")
+    ran = _script("jobs", home=tmp_path / "h", FOLDWISE_URL=nobody, FOLDWISE_TOKEN="fw_x")
     assert ran.code == 1 and "cannot reach" in ran.stderr
-    unset = _run("jobs", home=tmp_path / "h")
+    unset = _script("jobs", home=tmp_path / "h")
     assert unset.code == 2 and "FOLDWISE_URL" in unset.stderr

@@ -7,9 +7,6 @@ store it writes only to check what was (or was not) kept.
 from __future__ import annotations
 
 import os
-import socket
-import subprocess
-import sys
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -22,6 +19,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.auth import create_token
+from service.cli.local_server import free_port, serving
 from service.config import Settings, load_settings
 from service.store.db import make_engine, make_session_factory
 from service.store.models import Dataset, Job
@@ -47,13 +45,6 @@ IRIS_REQUEST: dict[str, Any] = {
     "metrics": ["accuracy", "balanced_accuracy"],
     "pick_by": "accuracy",
 }
-
-
-def free_port() -> int:
-    """A port nobody listens on right now."""
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return int(probe.getsockname()[1])
 
 
 def server_env(home: Path, **extra: str) -> dict[str, str]:
@@ -120,33 +111,11 @@ class Server:
 @contextmanager
 def running_server(home: Path, log: Path, **extra_env: str) -> Iterator[Server]:
     """Start `python -m service.cli.main serve` on a free port until the block ends."""
-    port = free_port()
     env = server_env(home, **extra_env)
-    command = [sys.executable, "-m", "service.cli.main", "serve", "--port", str(port)]
-    with log.open("wb") as out:
-        proc = subprocess.Popen(command, env=env, stdout=out, stderr=subprocess.STDOUT, cwd=REPO)
-    base = f"http://127.0.0.1:{port}"
-    engine = None
-    try:
-        deadline = time.monotonic() + START_TIMEOUT
-        while True:
-            assert proc.poll() is None, f"server exited: {log.read_text()[-2000:]}"
-            try:
-                if httpx.get(f"{base}/healthz", timeout=1).status_code == 200:
-                    break
-            except httpx.TransportError:
-                pass
-            assert time.monotonic() < deadline, f"server did not start: {log.read_text()[-2000:]}"
-            time.sleep(0.2)
+    with serving(free_port(), log, start_timeout=START_TIMEOUT, env=env, cwd=REPO) as server:
         settings = load_settings(env)
         engine = make_engine(settings.database_url)
-        yield Server(base, env, settings, make_session_factory(engine))
-    finally:
-        proc.terminate()
         try:
-            proc.wait(timeout=30)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
-        if engine is not None:
+            yield Server(server.base_url, env, settings, make_session_factory(engine))
+        finally:
             engine.dispose()

@@ -85,6 +85,33 @@ CASES: list[tuple[str, Edit, str]] = [
     ("metrics unknown", _set("metrics", ["accuracy", "vibes"]), "metrics[1]"),
     ("metrics repeated", _set("metrics", ["accuracy", "accuracy"]), "metrics"),
     ("pick_by not a metric", _set("pick_by", "roc_auc"), "pick_by"),
+    # interval (issue 11): level in (0.5, 0.999), a known method, 2 to 100 repetitions
+    ("interval level too high", _set("interval", {"level": 0.9995}), "interval.level"),
+    ("interval level at one half", _set("interval", {"level": 0.5}), "interval.level"),
+    ("interval method unknown", _set("interval", {"method": "bootstrap"}), "interval.method"),
+    (
+        "interval one repetition",
+        _set("interval", {"method": "nested", "repetitions": 1}),
+        "interval.repetitions",
+    ),
+    (
+        "interval repetitions past the cap",
+        _set("interval", {"method": "nested", "repetitions": 101}),
+        "interval.repetitions",
+    ),
+    ("interval unknown field", _set("interval", {"colour": "red"}), "interval.colour"),
+    (
+        "interval nested on a grouped split",
+        lambda r: _set("interval", {"method": "nested"})(
+            _set("outer", {"method": "group_kfold", "k": 3, "groups": "petal width (cm)"})(r)
+        ),
+        "interval.method",
+    ),
+    (
+        "interval nested not yet available",
+        _set("interval", {"method": "nested"}),
+        "interval.method",
+    ),
     # the body as a whole
     ("unknown top-level field", _set("colour", "red"), "colour"),
 ]

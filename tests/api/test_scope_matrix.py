@@ -18,6 +18,7 @@ import httpx
 import pytest
 from sklearn.datasets import load_iris
 from sqlalchemy import func, select
+from sqlalchemy.orm import Session
 
 from service.auth import MATRIX as AUTH_MATRIX
 from service.auth import Action
@@ -165,12 +166,28 @@ def owned(
         )
 
 
+@pytest.fixture(scope="module")
+def clients(owned: Owned) -> Iterator[dict[str, httpx.Client]]:
+    """One keep-alive HTTP client per principal, for all of its cells (each request still
+    carries the principal's own bearer token and nothing else: the API sets no cookies)."""
+    opened = {name: owned.server.client(token) for name, token in owned.tokens.items()}
+    try:
+        yield opened
+    finally:
+        for client in opened.values():
+            client.close()
+
+
+def _count_in(session: Session, model: Any, **where: Any) -> int:
+    query = select(func.count()).select_from(model)
+    for column, value in where.items():
+        query = query.where(getattr(model, column) == value)
+    return int(session.scalar(query) or 0)
+
+
 def _count(server: Server, model: Any, **where: Any) -> int:
     with server.sessions() as session:
-        query = select(func.count()).select_from(model)
-        for column, value in where.items():
-            query = query.where(getattr(model, column) == value)
-        return int(session.scalar(query) or 0)
+        return _count_in(session, model, **where)
 
 
 def _attempt(action: str, client: httpx.Client, owned: Owned) -> httpx.Response:
@@ -203,28 +220,27 @@ def _attempt(action: str, client: httpx.Client, owned: Owned) -> httpx.Response:
 def _footprint(owned: Owned, who: Who) -> tuple[Any, ...]:
     """What a refused action must leave alone: alpha's audits and refreshes, the caller's jobs,
     schedules and the job's status."""
-    server = owned.server
-    with server.sessions() as session:
-        status = session.get_one(Job, owned.job["id"]).status
-    return (
-        _count(server, Audit, job_id=owned.job["id"]),
-        _count(server, Refresh, schedule_id=owned.schedule_id),
-        _count(server, Job, team=who.team),
-        _count(server, Schedule, team=who.team),
-        status,
-    )
+    with owned.server.sessions() as session:
+        return (
+            _count_in(session, Audit, job_id=owned.job["id"]),
+            _count_in(session, Refresh, schedule_id=owned.schedule_id),
+            _count_in(session, Job, team=who.team),
+            _count_in(session, Schedule, team=who.team),
+            session.get_one(Job, owned.job["id"]).status,
+        )
 
 
 CELLS = [(action, name) for action in MATRIX for name in PRINCIPALS]
 
 
 @pytest.mark.parametrize(("action", "principal"), CELLS, ids=[f"{a}-{p}" for a, p in CELLS])
-def test_matrix_cell(owned: Owned, action: str, principal: str) -> None:
+def test_matrix_cell(
+    owned: Owned, clients: dict[str, httpx.Client], action: str, principal: str
+) -> None:
     who = PRINCIPALS[principal]
     expected = MATRIX[action][principal]
     before = _footprint(owned, who)
-    with owned.server.client(owned.tokens[principal]) as client:
-        answer = _attempt(action, client, owned)
+    answer = _attempt(action, clients[principal], owned)
     if action == "register dataset" and expected == 201:
         expected = 200 if answer.status_code == 200 else 201  # 200: the team had it already
     assert answer.status_code == expected, answer.text

@@ -22,11 +22,12 @@ from typing import Any
 
 import httpx
 
+from service.cli.local_server import free_port, serving
 from service.cli.main import SELECT_STOP_GRACE
 from service.cli.server_cmd import STOP_GRACE
 
 from .processes import alive, descendants
-from .server import REPO, free_port, server_env
+from .server import REPO, server_env
 
 # breast_cancer ships with scikit-learn; 300 trees a fit make every inner unit take seconds,
 # so units are mid-fit when the signal comes
@@ -79,24 +80,10 @@ def _wait_for_running_units(store: Path, deadline: float) -> None:
 
 
 def test_sigterm_stops_the_server_and_its_pool_within_the_grace(tmp_path: Path) -> None:
-    port = free_port()
     env = server_env(tmp_path / "home", FOLDWISE_LOCAL_WORKERS="2")
     log = tmp_path / "server.log"
-    command = [sys.executable, "-m", "service.cli.main", "serve", "--port", str(port)]
-    with log.open("wb") as out:
-        proc = subprocess.Popen(command, env=env, stdout=out, stderr=subprocess.STDOUT, cwd=REPO)
-    base = f"http://127.0.0.1:{port}"
-    try:
-        deadline = time.monotonic() + 60
-        while True:
-            assert proc.poll() is None, log.read_text()[-2000:]
-            try:
-                if httpx.get(f"{base}/healthz", timeout=1).status_code == 200:
-                    break
-            except httpx.TransportError:
-                pass
-            assert time.monotonic() < deadline, log.read_text()[-2000:]
-            time.sleep(0.2)
+    with serving(free_port(), log, start_timeout=60, env=env, cwd=REPO) as server:
+        proc, base = server.process, server.base_url
         from service.auth import create_token
         from service.config import load_settings
         from service.store.db import make_engine, make_session_factory
@@ -130,10 +117,6 @@ def test_sigterm_stops_the_server_and_its_pool_within_the_grace(tmp_path: Path) 
         assert elapsed <= STOP_GRACE, f"took {elapsed:.1f} s; the stated grace is {STOP_GRACE} s"
         # the interrupted units went back to the queue: a restart runs them at once
         assert _running_units(store) == 0
-    finally:
-        if proc.poll() is None:
-            proc.kill()
-            proc.wait()
 
 
 def _post_quietly(url: str, body: dict[str, Any], headers: dict[str, str]) -> None:

@@ -14,6 +14,7 @@ from typing import Any
 
 import httpx
 import pytest
+from cli.runner import run_foldwise_in_process
 
 from service.auth import hash_token
 from service.store.models import ApiToken
@@ -31,7 +32,8 @@ def live(
         yield server
 
 
-def _cli(server: Server, *args: str) -> subprocess.CompletedProcess[str]:
+def _script(server: Server, *args: str) -> subprocess.CompletedProcess[str]:
+    """`foldwise token ARGS` as the real console script, in a process of its own."""
     return subprocess.run(
         [sys.executable, "-m", "service.cli.main", "token", *args],
         env=server.env,
@@ -39,6 +41,16 @@ def _cli(server: Server, *args: str) -> subprocess.CompletedProcess[str]:
         capture_output=True,
         text=True,
         timeout=120,
+    )
+
+
+def _cli(server: Server, *args: str) -> subprocess.CompletedProcess[str]:
+    """`foldwise token ARGS` run in this process against the server's store (a process per call
+    costs seconds of imports; `_script` runs the console script for the end-to-end cases)."""
+    env = {k: v for k, v in server.env.items() if k.startswith("FOLDWISE_")}
+    out = run_foldwise_in_process("token", *args, cwd=REPO, env=env)
+    return subprocess.CompletedProcess(
+        ["foldwise", "token", *args], out.code, out.stdout, out.stderr
     )
 
 
@@ -145,6 +157,16 @@ def test_bad_token_commands_exit_2_with_one_sentence(
     assert _cli(live, "list", "--json").stdout == before
 
 
+def test_a_bad_token_command_exits_2_from_the_console_script(live: Server) -> None:
+    """The refusal above, end to end: the real console script's exit code and streams."""
+    before = _cli(live, "list", "--json").stdout
+    done = _script(live, "create", "--team", "x", "--scopes", "read", "--expires-in", "0")
+    assert done.returncode == 2, done.stderr
+    assert done.stdout == "" and "Traceback" not in done.stderr
+    assert done.stderr.startswith("error: --expires-in:")
+    assert _cli(live, "list", "--json").stdout == before
+
+
 def test_a_prefix_shared_by_two_tokens_names_them_and_revokes_neither(live: Server) -> None:
     team = f"t-{uuid.uuid4().hex[:6]}"
     shared = "fw_" + uuid.uuid4().hex[:5]
@@ -192,7 +214,7 @@ def test_an_expired_token_gets_401_and_its_session_ends(live: Server) -> None:
 
 def test_token_create_says_what_it_made_on_stderr(live: Server) -> None:
     team = f"t-{uuid.uuid4().hex[:6]}"
-    made = _cli(live, "create", "--team", team, "--scopes", "read", "--expires-in", "7")
+    made = _script(live, "create", "--team", team, "--scopes", "read", "--expires-in", "7")
     token = made.stdout.strip()
     assert made.stdout == token + "\n"
     assert token[:11] in made.stderr and token not in made.stderr

@@ -1,19 +1,24 @@
 """Running the real `foldwise` console script and looking into the store it leaves.
 
-Every CLI test runs `foldwise` as a subprocess, exactly as a user would, so exit codes, stdout,
-stderr and the SQLite store are observed from outside. A subprocess costs one to two seconds of
-imports, so the data is tiny and the families cheap.
+CLI tests run `foldwise` as a subprocess, exactly as a user would, so exit codes, stdout, stderr
+and the SQLite store are observed from outside. A subprocess costs one to two seconds of imports,
+so the data is tiny and the families cheap, and catalogues of cheap refusals run the same command
+in this process (`run_foldwise_in_process`) while a few of their cases still run as subprocesses.
 """
 
 from __future__ import annotations
 
 import copy
 import json
+import logging
 import os
 import random
+import signal
 import sqlite3
 import subprocess
 import sys
+import traceback
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -120,3 +125,56 @@ def store_count(home: Path, table: str, where: str = "1 = 1", params: tuple = ()
     """Rows of `table` in the embedded store under `home` matching `where`."""
     with sqlite3.connect(home / "foldwise.sqlite") as con:
         return int(con.execute(f"SELECT COUNT(*) FROM {table} WHERE {where}", params).fetchone()[0])
+
+
+class _StderrAtEmit(logging.Handler):
+    """Log records to whatever sys.stderr is when they are emitted, as Python's last resort does
+    in a process with no logging set up (here: the runner's captured stderr)."""
+
+    def emit(self, record: logging.LogRecord) -> None:
+        sys.stderr.write(self.format(record) + "\n")
+
+
+def run_foldwise_in_process(*args: str, cwd: Path, env: dict[str, str]) -> Outcome:
+    """Run `foldwise ARGS` inside this process, seen from outside as the console script is.
+
+    For cases where what is under test is the command's answer, not the process start: a
+    subprocess costs a second or two of imports per call. The command sees `env` as its whole
+    FOLDWISE_* environment and `cwd` as its working directory; an exception that escapes is
+    written to stderr as a traceback with exit code 1, and warnings and log records that a fresh
+    process would print go to stderr too, so the checks on stderr are the same as for a
+    subprocess. `tests/cli` keeps true subprocess cases for exit codes end to end.
+    """
+    from typer.testing import CliRunner
+
+    from service.cli.main import app
+
+    # variables this process has but the command must not see, removed for the call
+    unset: dict[str, str | None] = {k: None for k in os.environ if k.startswith("FOLDWISE_")}
+    overrides: dict[str, str | None] = {**unset, **env}
+    root = logging.getLogger()
+    handler = _StderrAtEmit(logging.WARNING)
+    sigterm = signal.getsignal(signal.SIGTERM)  # `select` turns SIGTERM into Ctrl-C
+    before = Path.cwd()
+    os.chdir(cwd)
+    root.addHandler(handler)
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("default")
+            # ignored by default outside __main__ in a fresh interpreter
+            for quiet in (DeprecationWarning, PendingDeprecationWarning, ImportWarning):
+                warnings.simplefilter("ignore", quiet)
+            result = CliRunner().invoke(app, list(args), env=overrides, catch_exceptions=True)
+    finally:
+        root.removeHandler(handler)
+        signal.signal(signal.SIGTERM, sigterm)
+        os.chdir(before)
+    stderr = result.stderr
+    stderr += "".join(
+        warnings.formatwarning(w.message, w.category, w.filename, w.lineno) for w in caught
+    )
+    code = result.exit_code
+    if result.exception is not None and not isinstance(result.exception, SystemExit):
+        stderr += "".join(traceback.format_exception(result.exception))
+        code = 1
+    return Outcome(code, result.stdout, stderr, Path(env.get("FOLDWISE_HOME", cwd / "home")))

@@ -1,8 +1,9 @@
 """Bad input to `foldwise select`: exit 2, one sentence naming the field, nothing stored.
 
 Each case is one mutation of the valid base request (or of the job file, the data file or the
-command line). The catalogue runs as real subprocesses, several at a time, because each costs a
-second or two of imports; every case still has its own working directory and store.
+command line). The catalogue runs the command in this process (a subprocess costs a second or two
+of imports per case); one case of each kind also runs as the real console script, several at a
+time. Every case has its own working directory and store.
 """
 
 from __future__ import annotations
@@ -25,6 +26,7 @@ from .runner import (
     Outcome,
     base_request,
     run_foldwise,
+    run_foldwise_in_process,
     store_jobs,
     table_csv,
     write_job,
@@ -315,6 +317,48 @@ CASES = [
         contains=("205,205 fits", "at most 200,000", "reduce outer.repeats"),
     ),
     Case("target-name-too-long", "target", top(target="t" * 5_000), contains=("1000",)),
+    # interval (issue 11): refused from the request alone, before any fit
+    Case("interval-level-too-high", "interval.level", top(interval={"level": 0.9995}), ("0.999",)),
+    Case("interval-level-at-one-half", "interval.level", top(interval={"level": 0.5})),
+    Case(
+        "interval-unknown-method",
+        "interval.method",
+        top(interval={"method": "bootstrap"}),
+        contains=("'quick'", "'nested'"),
+    ),
+    Case(
+        "interval-one-repetition",
+        "interval.repetitions",
+        top(interval={"method": "nested", "repetitions": 1}),
+        contains=("2 to 100",),
+    ),
+    Case(
+        "interval-repetitions-past-the-cap",
+        "interval.repetitions",
+        top(interval={"method": "nested", "repetitions": 101}),
+        contains=("2 to 100",),
+    ),
+    Case(
+        "interval-repetitions-on-quick",
+        "interval.repetitions",
+        top(interval={"repetitions": 5}),
+        contains=("outer.repeats",),
+    ),
+    Case(
+        "interval-nested-on-a-grouped-split",
+        "interval.method",
+        lambda r: (
+            r.update(interval={"method": "nested"}),
+            r["outer"].update(method="group_kfold", groups="grade"),
+        ),
+        contains=("group_kfold",),
+    ),
+    Case(
+        "interval-nested-not-yet-available",
+        "interval.method",
+        top(interval={"method": "nested", "level": 0.8}),
+        contains=("not yet available", "'quick'"),
+    ),
 ]
 CASE_IDS = [c.id for c in CASES]
 assert len(set(CASE_IDS)) == len(CASE_IDS), "case ids must be unique"
@@ -337,25 +381,62 @@ def _prepare(case: Case, folder: Path, shared_csv: Path) -> None:
     write_job(folder, request)
 
 
+# One case of each way in (the request, a data file, the job file, an option, the bounds) also
+# runs as the real console script, so the exit code and streams are proven end to end; the whole
+# catalogue runs in this process, where a case costs milliseconds instead of seconds of imports.
+SUBPROCESS_CASES = [
+    c
+    for c in CASES
+    if c.id
+    in {
+        "unknown-estimator",
+        "binary-junk-csv",
+        "job-file-not-json",
+        "zero-workers",
+        "job-past-the-fits-cap",
+    }
+]
+
+
 def _run(case: Case, folder: Path) -> Outcome:
     return run_foldwise(*case.argv, cwd=folder, home=folder / "home")
+
+
+def _selected(request: pytest.FixtureRequest, test_name: str) -> set[str]:
+    """Ids of the cases of `test_name` this session runs."""
+    return {
+        item.callspec.params["case"].id
+        for item in request.session.items
+        if getattr(item, "originalname", "") == test_name and hasattr(item, "callspec")
+    }
 
 
 @pytest.fixture(scope="module")
 def outcomes(
     request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory, shared_csv: Path
 ) -> dict[str, Outcome]:
-    """Run every selected case of this module at once; case id -> outcome."""
-    selected = {
-        item.callspec.params["case"].id
-        for item in request.session.items
-        if getattr(item, "originalname", "") == "test_bad_request_is_refused"
-        and hasattr(item, "callspec")
-    }
-    todo = []
+    """Run every selected case of the catalogue in this process; case id -> outcome."""
+    selected = _selected(request, "test_bad_request_is_refused")
+    found = {}
     for case in CASES:
         if case.id in selected:
             folder = tmp_path_factory.mktemp(case.id)
+            _prepare(case, folder, shared_csv)
+            env = {"FOLDWISE_HOME": str(folder / "home")}
+            found[case.id] = run_foldwise_in_process(*case.argv, cwd=folder, env=env)
+    return found
+
+
+@pytest.fixture(scope="module")
+def script_outcomes(
+    request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory, shared_csv: Path
+) -> dict[str, Outcome]:
+    """Run the selected subprocess cases as the console script, several at once."""
+    selected = _selected(request, "test_bad_request_is_refused_by_the_console_script")
+    todo = []
+    for case in SUBPROCESS_CASES:
+        if case.id in selected:
+            folder = tmp_path_factory.mktemp(f"script-{case.id}")
             _prepare(case, folder, shared_csv)
             todo.append((case, folder))
     # imports dominate each run, so one more process than cores keeps the cores busy
@@ -365,9 +446,7 @@ def outcomes(
         return {case_id: future.result() for case_id, future in futures.items()}
 
 
-@pytest.mark.parametrize("case", CASES, ids=CASE_IDS)
-def test_bad_request_is_refused(case: Case, outcomes: dict[str, Outcome]) -> None:
-    out = outcomes[case.id]
+def _check_refusal(case: Case, out: Outcome) -> None:
     assert "Traceback" not in out.stdout + out.stderr, out.stderr
     assert out.code == 2, f"exit {out.code}; stderr: {out.stderr}"
     assert out.stdout == ""
@@ -386,3 +465,15 @@ def test_bad_request_is_refused(case: Case, outcomes: dict[str, Outcome]) -> Non
     jobs = store_jobs(out.home)
     assert [status for _, status in jobs if status == "succeeded"] == []
     assert jobs == []
+
+
+@pytest.mark.parametrize("case", CASES, ids=CASE_IDS)
+def test_bad_request_is_refused(case: Case, outcomes: dict[str, Outcome]) -> None:
+    _check_refusal(case, outcomes[case.id])
+
+
+@pytest.mark.parametrize("case", SUBPROCESS_CASES, ids=[c.id for c in SUBPROCESS_CASES])
+def test_bad_request_is_refused_by_the_console_script(
+    case: Case, script_outcomes: dict[str, Outcome]
+) -> None:
+    _check_refusal(case, script_outcomes[case.id])

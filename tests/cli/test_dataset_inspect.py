@@ -10,7 +10,7 @@ from typing import Any
 import pandas as pd
 import pytest
 
-from .runner import REPO, Outcome, run_foldwise
+from .runner import REPO, Outcome, run_foldwise, run_foldwise_in_process
 
 DEMO_CSV = "demo_data/pump_failures.csv"
 
@@ -75,14 +75,17 @@ def test_inspect_shows_how_to_read_a_column_otherwise(
     folder = tmp_path_factory.mktemp("hints")
     rows = "".join(f"{m:02d}/15/2024,{m % 3},{m * 1.5}\n" for m in range(1, 13))
     (folder / "dated.csv").write_text("when,code,x\n" + rows)
-    as_json = run_foldwise(
-        "dataset", "inspect", "dated.csv", "--json", cwd=folder, home=folder / "h"
+    # the command's answer is under test here, not the process start (the fixture above runs
+    # the console script): in this process, as the same command line
+    env = {"FOLDWISE_HOME": str(folder / "h")}
+    as_json = run_foldwise_in_process(
+        "dataset", "inspect", "dated.csv", "--json", cwd=folder, env=env
     )
     description = _description(as_json)
     hints = {c["name"]: c["hint"] for c in description["columns"]}
     assert '"format": "%m/%d/%Y"' in hints["when"]
     assert hints["x"] is None
     assert '"columns"' in description["column_types"]
-    text = run_foldwise("dataset", "inspect", "dated.csv", cwd=folder, home=folder / "h")
+    text = run_foldwise_in_process("dataset", "inspect", "dated.csv", cwd=folder, env=env)
     assert text.code == 0, text.stderr
     assert "%m/%d/%Y" in text.stdout and "overrides these kinds" in text.stdout

@@ -16,6 +16,8 @@ from pathlib import Path
 import httpx
 import pytest
 
+from service.cli.local_server import free_port
+
 from .runner import FOLDWISE, REPO
 
 # the demo fits its whole search space once; on a loaded two-core machine that takes minutes
@@ -35,12 +37,6 @@ def _listening(port: int) -> bool:
     with socket.socket() as probe:
         probe.settimeout(1)
         return probe.connect_ex(("127.0.0.1", port)) == 0
-
-
-def _free_port() -> int:
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return int(probe.getsockname()[1])
 
 
 @pytest.fixture(scope="module")
@@ -72,7 +68,7 @@ def test_make_demo_ends_by_itself_and_names_the_report_and_a_token(demo_home: Pa
 @pytest.mark.slow
 def test_on_a_terminal_the_demo_keeps_serving_until_ctrl_c(demo_home: Path) -> None:
     """stdout a terminal, --port given: the report page answers the printed token; SIGINT ends."""
-    port = _free_port()
+    port = free_port()
     leader, follower = pty.openpty()
     proc = subprocess.Popen(
         [*FOLDWISE, "demo", "--port", str(port)],

@@ -161,3 +161,20 @@ def test_store_holds_the_job_and_every_fold_score(
     expected = m * c * (outer_k * inner_k + inner_k) + m * outer_k
     assert store_count(out.home, "fold_score") == expected
     assert store_count(out.home, "fold_score", "job_id = ?", (jobs[0][0],)) == expected
+
+
+def test_summary_prints_each_interval_with_its_method(
+    runs: dict[str, Outcome], result: dict[str, Any]
+) -> None:
+    out = runs["summary"]
+    assert out.code == 0, out.stderr
+    for metric, estimate in result["estimate"].items():
+        interval = estimate["interval"]
+        # issue 11: the default interval is quick at level 0.9, beside every estimate
+        assert (interval["method"], interval["level"]) == ("quick", 0.9)
+        assert interval["lower"] <= estimate["mean"] <= interval["upper"]
+        line = (
+            f"  {metric}: 90% interval [{interval['lower']:.4f}, {interval['upper']:.4f}], "
+            "method quick: corrected resampled t (Nadeau & Bengio 2003; Bouckaert & Frank 2004)."
+        )
+        assert line in out.stdout.splitlines(), out.stdout

@@ -6,7 +6,6 @@ distributed tests use; its fixtures are imported from there rather than copied.
 
 from __future__ import annotations
 
-import socket
 import subprocess
 import sys
 import time
@@ -16,30 +15,18 @@ from distributed.conftest import redis_url, running_stack, stack  # noqa: F401 (
 from distributed.stack import REPO, Stack, wait_until
 from sqlalchemy import select
 
+from service.cli.local_server import answers_healthz, free_port
 from service.store.models import WorkUnit
 
 from .requests import curve
 
 
-def _free_port() -> int:
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return int(probe.getsockname()[1])
-
-
-def _healthy(base: str) -> bool:
-    try:
-        return httpx.get(f"{base}/healthz", timeout=1).status_code == 200
-    except httpx.HTTPError:
-        return False
-
-
 def test_a_curve_over_rest_runs_every_size_on_the_workers(running_stack: Stack) -> None:  # noqa: F811
     live = running_stack
-    port = _free_port()
+    port = free_port()
     base = f"http://127.0.0.1:{port}"
     live.start("api", "serve", "--host", "127.0.0.1", "--port", str(port))
-    wait_until(lambda: _healthy(base), 60, "the API answering /healthz", live)
+    wait_until(lambda: answers_healthz(base), 60, "the API answering /healthz", live)
     command = ["token", "create", "--team", "curves", "--scopes", "submit,read"]
     token = subprocess.run(
         [sys.executable, "-m", "service.cli.main", *command],

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import socket
 import subprocess
 import sys
 import time
@@ -12,16 +11,11 @@ from typing import Any
 import httpx
 from sqlalchemy import select
 
+from service.cli.local_server import answers_healthz, free_port
 from service.store.models import WorkUnit
 
 from .requests import small_request
 from .stack import REPO, Stack, comparable, wait_until
-
-
-def _free_port() -> int:
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return int(probe.getsockname()[1])
 
 
 def _token(stack: Stack) -> str:
@@ -46,21 +40,14 @@ def _token(stack: Stack) -> str:
     return created.stdout.strip()
 
 
-def _healthy(base: str) -> bool:
-    try:
-        return httpx.get(f"{base}/healthz", timeout=1).status_code == 200
-    except httpx.HTTPError:
-        return False
-
-
 def test_a_job_submitted_over_rest_finishes_on_the_workers_like_the_embedded_run(
     running_stack: Stack, embedded_result: Callable[[dict[str, Any]], dict[str, Any]]
 ) -> None:
     stack = running_stack
-    port = _free_port()
+    port = free_port()
     base = f"http://127.0.0.1:{port}"
     stack.start("api", "serve", "--host", "127.0.0.1", "--port", str(port))
-    wait_until(lambda: _healthy(base), 60, "the API answering /healthz", stack)
+    wait_until(lambda: answers_healthz(base), 60, "the API answering /healthz", stack)
     headers = {"Authorization": f"Bearer {_token(stack)}"}
     request = small_request()
 

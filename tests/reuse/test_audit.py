@@ -10,6 +10,7 @@ import sys
 from pathlib import Path
 from typing import Any
 
+from cli.runner import run_foldwise_in_process
 from sqlalchemy import func, select, text
 from sqlalchemy.orm import Session, sessionmaker
 
@@ -131,10 +132,13 @@ def test_the_audit_command_reports_identical_then_differing_and_refuses_bad_inpu
     assert found.returncode == 1
     assert f"differing: fold score {tampered} " in found.stdout
 
+    # refusals come before any recomputation: the same command line in this process (a process
+    # per call costs seconds of imports; the two runs above are the console script's exit codes)
+    mine = {"FOLDWISE_HOME": env["FOLDWISE_HOME"]}
     for args, field in ((["--fraction", "0"], "fraction"), (["--tolerance", "-1"], "tolerance")):
-        refused = _foldwise(env, "audit", job_id, *args)
-        assert refused.returncode == 2
+        refused = run_foldwise_in_process("audit", job_id, *args, cwd=REPO, env=mine)
+        assert refused.code == 2
         assert refused.stderr.startswith(f"error: {field}:"), refused.stderr
         assert "Traceback" not in refused.stderr
-    unknown = _foldwise(env, "audit", "0" * 32)
-    assert unknown.returncode == 2 and "no job" in unknown.stderr
+    unknown = run_foldwise_in_process("audit", "0" * 32, cwd=REPO, env=mine)
+    assert unknown.code == 2 and "no job" in unknown.stderr

@@ -17,7 +17,7 @@ from service.auth import Principal
 from service.config import Settings, load_settings
 from service.notify.delivery import MAX_ATTEMPTS, deliver_due
 from service.notify.outbox import queue_delivery
-from service.schedules.service import create_schedule
+from service.schedules.definitions import create_schedule
 from service.schedules.tick import tick_schedules
 from service.store.db import make_engine, make_session_factory, upgrade_database
 from service.store.models import Job, Refresh, Schedule, WebhookDelivery

@@ -67,21 +67,32 @@ def output_dir() -> Path:
     return OUTPUT
 
 
-@pytest.fixture
-def browser(tmp_path: Path) -> Iterator[Any]:
-    """A headless Debian Chromium with a fresh profile, driven by Playwright (never downloaded)."""
+@pytest.fixture(scope="module")
+def chromium() -> Iterator[Any]:
+    """One headless Debian Chromium per test module, driven by Playwright (never downloaded).
+
+    Starting the browser takes seconds on a busy machine; each test still gets a context of its
+    own (`browser`), which shares no cookies, storage or cache with any other.
+    """
     if not os.path.exists(CHROMIUM):
         pytest.fail(f"{CHROMIUM} is missing: `make test` installs Debian's chromium package")
     from playwright.sync_api import sync_playwright
 
     with sync_playwright() as driver:
-        context = driver.chromium.launch_persistent_context(
-            str(tmp_path / "profile"),
-            executable_path=CHROMIUM,
-            args=CHROMIUM_ARGS,
-            headless=True,
+        launched = driver.chromium.launch(
+            executable_path=CHROMIUM, args=CHROMIUM_ARGS, headless=True
         )
         try:
-            yield context
+            yield launched
         finally:
-            context.close()
+            launched.close()
+
+
+@pytest.fixture
+def browser(chromium: Any) -> Iterator[Any]:
+    """A fresh browser context: no cookies, no storage, nothing cached from another test."""
+    context = chromium.new_context()
+    try:
+        yield context
+    finally:
+        context.close()

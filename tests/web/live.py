@@ -3,9 +3,6 @@
 from __future__ import annotations
 
 import os
-import socket
-import subprocess
-import sys
 import time
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -17,6 +14,7 @@ import httpx
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.auth import create_token
+from service.cli.local_server import free_port, serving
 from service.config import load_settings
 from service.store.db import make_engine, make_session_factory
 
@@ -34,12 +32,6 @@ CHROMIUM_ARGS = [
     "--disable-component-update",
     "--disable-sync",
 ]
-
-
-def _free_port() -> int:
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return int(probe.getsockname()[1])
 
 
 @dataclass
@@ -83,35 +75,12 @@ class LiveServer:
 @contextmanager
 def live_server(home: Path, log: Path) -> Iterator[LiveServer]:
     """`python -m service.cli.main serve` on a free port, with nothing but FOLDWISE_HOME set."""
-    port = _free_port()
     env = {k: v for k, v in os.environ.items() if not k.startswith("FOLDWISE_")}
     env.update(FOLDWISE_HOME=str(home), FOLDWISE_LOCAL_WORKERS="2")
     env["PYTHONPATH"] = os.pathsep.join(filter(None, [str(REPO), env.get("PYTHONPATH")]))
-    command = [sys.executable, "-m", "service.cli.main", "serve", "--port", str(port)]
-    with log.open("wb") as out:
-        proc = subprocess.Popen(command, env=env, stdout=out, stderr=subprocess.STDOUT, cwd=REPO)
-    base = f"http://127.0.0.1:{port}"
-    engine = None
-    try:
-        deadline = time.monotonic() + 60
-        while True:
-            assert proc.poll() is None, f"server exited: {log.read_text()[-2000:]}"
-            try:
-                if httpx.get(f"{base}/healthz", timeout=1).status_code == 200:
-                    break
-            except httpx.TransportError:
-                pass
-            assert time.monotonic() < deadline, "server did not start"
-            time.sleep(0.2)
-        settings = load_settings({"FOLDWISE_HOME": str(home)})
-        engine = make_engine(settings.database_url)
-        yield LiveServer(base, make_session_factory(engine))
-    finally:
-        proc.terminate()
+    with serving(free_port(), log, start_timeout=60, env=env, cwd=REPO) as server:
+        engine = make_engine(load_settings({"FOLDWISE_HOME": str(home)}).database_url)
         try:
-            proc.wait(timeout=30)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
-        if engine is not None:
+            yield LiveServer(server.base_url, make_session_factory(engine))
+        finally:
             engine.dispose()

@@ -7,7 +7,6 @@ http://127.0.0.1:PORT; both are the loopback, nothing leaves the machine).
 
 from __future__ import annotations
 
-import socket
 import threading
 from collections.abc import Iterator
 from http.server import BaseHTTPRequestHandler, ThreadingHTTPServer
@@ -16,6 +15,7 @@ from typing import Any
 import httpx
 import pytest
 
+from service.cli.local_server import free_port
 from service.web.signin import COOKIE
 
 from .live import LiveServer
@@ -80,12 +80,6 @@ def test_a_cross_site_sign_out_is_refused_and_the_session_stays(
         assert done.status_code == 303 and f'{COOKIE}=""' in done.headers["set-cookie"]
 
 
-def _free_port() -> int:
-    with socket.socket() as probe:
-        probe.bind(("127.0.0.1", 0))
-        return int(probe.getsockname()[1])
-
-
 @pytest.fixture
 def other_site(server: LiveServer, owner_token: str) -> Iterator[str]:
     """A page on http://localhost:PORT whose form posts a token to our sign-in."""
@@ -108,7 +102,7 @@ def other_site(server: LiveServer, owner_token: str) -> Iterator[str]:
         def log_message(self, *args: Any) -> None:
             pass
 
-    port = _free_port()
+    port = free_port()
     host = ThreadingHTTPServer(("127.0.0.1", port), Handler)
     thread = threading.Thread(target=host.serve_forever, daemon=True)
     thread.start()

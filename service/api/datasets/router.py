@@ -9,7 +9,7 @@ from sqlalchemy.orm import Session
 from starlette.concurrency import run_in_threadpool
 from starlette.convertors import StringConvertor, register_url_convertor
 
-from service.api.datasets import service
+from service.api.datasets import registration
 from service.api.datasets.schemas import (
     ColumnPublic,
     DatasetCreate,
@@ -64,8 +64,12 @@ def _summary(dataset: Dataset, copy: DatasetRegistration | None) -> DatasetSumma
 def _public(
     session: Session, dataset: Dataset, principal: Principal, settings: Settings
 ) -> DatasetPublic:
-    copy = service.team_copies(session, principal, [dataset.content_hash]).get(dataset.content_hash)
-    columns = [ColumnPublic.model_validate(c) for c in service.column_summaries(dataset, settings)]
+    copy = registration.team_copies(session, principal, [dataset.content_hash]).get(
+        dataset.content_hash
+    )
+    columns = [
+        ColumnPublic.model_validate(c) for c in registration.column_summaries(dataset, settings)
+    ]
     return DatasetPublic(**_summary(dataset, copy).model_dump(), columns=columns)
 
 
@@ -79,7 +83,7 @@ def _answer(
 ) -> DatasetPublic:
     response.status_code = 201 if created else 200
     response.headers["Location"] = f"/v1/datasets/{content_hash}"
-    return _public(session, service.stored_dataset(session, content_hash), principal, settings)
+    return _public(session, registration.stored_dataset(session, content_hash), principal, settings)
 
 
 @router.post(
@@ -106,8 +110,8 @@ def register_dataset(
 ) -> DatasetPublic:
     """Load, check and store the table, and register it for the caller's team."""
     # Loaded before the session is first used, so no transaction is open while a file is read.
-    table = service.load_source(source, settings, team=principal.team)
-    created = service.store_table(session, table, team=principal.team, settings=settings)
+    table = registration.load_source(source, settings, team=principal.team)
+    created = registration.store_table(session, table, team=principal.team, settings=settings)
     return _answer(session, table.content_hash, created, principal, settings, response)
 
 
@@ -125,9 +129,9 @@ def _register_upload(
         raise BadInput(
             exc.field, exc.message.replace(str(spooled.path), spooled.filename)
         ) from None
-    service.check_shape(raw, settings, field=UPLOAD_FIELD)
+    registration.check_shape(raw, settings, field=UPLOAD_FIELD)
     table = table_from_frame(raw, {"upload": spooled.filename, "format": fmt}, field=UPLOAD_FIELD)
-    created = service.store_table(session, table, team=principal.team, settings=settings)
+    created = registration.store_table(session, table, team=principal.team, settings=settings)
     return _answer(session, table.content_hash, created, principal, settings, response)
 
 
@@ -189,7 +193,7 @@ def get_dataset(
     content_hash: ContentHash, principal: ReaderDep, session: SessionDep, settings: SettingsDep
 ) -> DatasetPublic:
     """The table's shape, columns and origin, if the caller's team registered it."""
-    dataset = service.get_dataset(session, content_hash, principal)
+    dataset = registration.get_dataset(session, content_hash, principal)
     return _public(session, dataset, principal, settings)
 
 
@@ -206,6 +210,6 @@ def list_datasets(
     offset: Annotated[int, Query(ge=0, le=MAX_SQL_INT)] = 0,
 ) -> DatasetList:
     """Newest first, with the total count."""
-    rows, count = service.list_datasets(session, principal, limit=limit, offset=offset)
-    copies = service.team_copies(session, principal, [d.content_hash for d in rows])
+    rows, count = registration.list_datasets(session, principal, limit=limit, offset=offset)
+    copies = registration.team_copies(session, principal, [d.content_hash for d in rows])
     return DatasetList(data=[_summary(d, copies.get(d.content_hash)) for d in rows], count=count)

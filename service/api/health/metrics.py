@@ -12,6 +12,7 @@ from sqlalchemy import case, func, select
 from sqlalchemy.orm import Session
 
 from service.store.models import JOB_STATUSES, Job, WorkUnit
+from service.store.statuses import UnitStatus
 
 CONTENT_TYPE = "text/plain; version=0.0.4; charset=utf-8"
 # Units range from a fraction of a second (a linear model on a small table) to many minutes.
@@ -36,9 +37,9 @@ def render_metrics(session: Session) -> str:
         session.execute(select(Job.status, func.count()).group_by(Job.status)).tuples().all()
     )
     jobs = [(f'foldwise_jobs{{status="{s}"}}', by_status.get(s, 0)) for s in JOB_STATUSES]
-    done = session.scalar(select(func.count()).where(WorkUnit.status == "done")) or 0
-    queued = session.scalar(select(func.count()).where(WorkUnit.status == "queued")) or 0
-    timed = WorkUnit.status == "done", WorkUnit.seconds.is_not(None)
+    done = session.scalar(select(func.count()).where(WorkUnit.status == UnitStatus.DONE)) or 0
+    queued = session.scalar(select(func.count()).where(WorkUnit.status == UnitStatus.QUEUED)) or 0
+    timed = WorkUnit.status == UnitStatus.DONE, WorkUnit.seconds.is_not(None)
     bucket_counts = session.execute(
         select(
             func.count(),

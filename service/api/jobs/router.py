@@ -9,7 +9,7 @@ from fastapi import APIRouter, Body, Header, Query, Response
 from fastapi.responses import StreamingResponse
 from sqlalchemy.orm import Session
 
-from service.api.datasets.service import confine_path_source, server_base_dir
+from service.api.datasets.registration import confine_path_source, server_base_dir
 from service.api.jobs import export
 from service.api.jobs.params import AllMetrics, JobId
 from service.api.jobs.schemas import (

@@ -3,14 +3,13 @@
 from __future__ import annotations
 
 from datetime import datetime
-from typing import Any, Literal
+from typing import Any
 
 from pydantic import BaseModel, ConfigDict, Field
 
 from service.api.jobs.curve_schemas import CurveResult
 from service.store.models import Job
-
-JobStatus = Literal["queued", "running", "succeeded", "failed", "cancelled"]
+from service.store.statuses import JobStatus
 
 
 class _Open(BaseModel):
@@ -191,7 +190,7 @@ def job_summary(job: Job) -> JobSummary:
     total = job.units_total
     return JobSummary(
         id=job.id,
-        status=job.status,  # a CHECK constraint keeps it one of JobStatus
+        status=JobStatus(job.status),
         kind=job.kind,
         parent_id=job.parent_id,
         dataset_hash=job.dataset_hash,

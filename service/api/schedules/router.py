@@ -15,7 +15,6 @@ from service.api.schedules.schemas import (
     SchedulePublic,
 )
 from service.auth import Action
-from service.dispatch.base import mark_published
 from service.http.deps import (
     DispatcherDep,
     ReaderDep,
@@ -27,7 +26,7 @@ from service.http.deps import (
 from service.http.json_body import StrictJsonRoute
 from service.http.limits import MAX_SQL_INT
 from service.http.problems import problem_responses
-from service.schedules import service
+from service.schedules import definitions
 from service.schedules.tick import trigger_refresh
 from service.store.models import Refresh, Schedule
 
@@ -80,7 +79,7 @@ def create_schedule(
     response: Response,
 ) -> SchedulePublic:
     """Validate, store, answer 201 with Location."""
-    schedule = service.create_schedule(session, body, principal=principal, settings=settings)
+    schedule = definitions.create_schedule(session, body, principal=principal, settings=settings)
     session.commit()
     response.headers["Location"] = f"/v1/schedules/{schedule.id}"
     return _public(schedule)
@@ -99,7 +98,7 @@ def list_schedules(
     offset: Annotated[int, Query(ge=0, le=MAX_SQL_INT)] = 0,
 ) -> ScheduleList:
     """The caller's team's schedules (an analyst's: every team's)."""
-    rows, count = service.list_schedules(session, principal, limit=limit, offset=offset)
+    rows, count = definitions.list_schedules(session, principal, limit=limit, offset=offset)
     return ScheduleList(data=[_public(s) for s in rows], count=count)
 
 
@@ -113,7 +112,7 @@ def get_schedule(
     schedule_id: ScheduleId, principal: ReaderDep, session: SessionDep
 ) -> SchedulePublic:
     """Another team's schedule is a 404."""
-    return _public(service.get_schedule(session, schedule_id, principal))
+    return _public(definitions.get_schedule(session, schedule_id, principal))
 
 
 @router.get(
@@ -130,8 +129,8 @@ def list_refreshes(
     offset: Annotated[int, Query(ge=0, le=MAX_SQL_INT)] = 0,
 ) -> RefreshList:
     """Each with its status, job and comparison."""
-    schedule = service.get_schedule(session, schedule_id, principal)
-    rows, count = service.list_refreshes(session, schedule, limit=limit, offset=offset)
+    schedule = definitions.get_schedule(session, schedule_id, principal)
+    rows, count = definitions.list_refreshes(session, schedule, limit=limit, offset=offset)
     return RefreshList(data=[_refresh(r) for r in rows], count=count)
 
 
@@ -157,12 +156,11 @@ def refresh_now(
     # Short sessions, no request-wide one: on SQLite an open transaction holds the write lock
     # the refresh's own transaction needs.
     with sessions() as session:
-        service.get_schedule(session, schedule_id, principal, Action.SCHEDULE)
+        definitions.get_schedule(session, schedule_id, principal, Action.SCHEDULE)
     refresh_id, units = trigger_refresh(sessions, schedule_id, settings)
     if units:
         try:
             dispatcher.publish(units)
-            mark_published(sessions, units)
         except Exception:
             log.exception(
                 "publishing refresh %s failed; the reconciler will publish it", refresh_id

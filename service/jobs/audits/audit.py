@@ -24,6 +24,7 @@ from service.errors import BadInput
 from service.jobs.execution.plans import plan_for_job
 from service.store.db import utcnow
 from service.store.models import Audit, FoldScore, Job, WorkUnit
+from service.store.statuses import JobStatus, UnitStatus
 
 SCORED_KINDS = ("inner", "outer_refit")  # the final refit has a model, not scores
 
@@ -60,7 +61,7 @@ def request_audit(
     session: Session, job: Job, *, fraction: float, seed: int, tolerance: float, team: str
 ) -> Audit:
     """Store a queued audit of a succeeded job; the caller commits, then runs or publishes it."""
-    if job.status != "succeeded":
+    if job.status != JobStatus.SUCCEEDED:
         raise BadInput("job", f"job {job.id} is {job.status}; only a succeeded job can be audited.")
     audit = Audit(
         id=uuid.uuid4().hex,
@@ -171,7 +172,7 @@ def _recompute(
                 select(WorkUnit)
                 .where(
                     WorkUnit.job_id == job_id,
-                    WorkUnit.status == "done",
+                    WorkUnit.status == UnitStatus.DONE,
                     WorkUnit.kind.in_(SCORED_KINDS),
                 )
                 .order_by(WorkUnit.id)
@@ -181,7 +182,8 @@ def _recompute(
         items: list[dict[str, Any]] = []
         for unit in chosen:
             ref = UnitRef(unit.kind, unit.scope, unit.candidate_key)  # type: ignore[arg-type]
-            outcome = fit_and_score(loaded.plan, ref)  # a fresh fit; no stored score is read
+            # a fresh fit: no stored score is read, no fold's preprocessing shared from memory
+            outcome = fit_and_score(loaded.plan, ref, share=False)
             items += _compare_unit(session, unit, outcome.folds, loaded.dataset_hash)
     counts = {"identical": 0, "within_tolerance": 0, "differing": 0, "missing": 0}
     for item in items:

@@ -12,6 +12,7 @@ from sqlalchemy.orm import Session
 
 import service
 from service.cv.cautions import find_cautions
+from service.cv.intervals import attach_intervals
 from service.cv.selection import Pick as EnginePick
 from service.cv.selection import ScoreBook, assemble
 from service.cv.slices import slice_estimates
@@ -19,6 +20,7 @@ from service.jobs.execution.plans import LoadedPlan
 from service.jobs.handover.outer_predictions import NotReady, all_outer
 from service.store.db import utcnow
 from service.store.models import FinalModel, FoldScore, Job, WorkUnit
+from service.store.statuses import UnitStatus
 
 
 def versions() -> dict[str, str]:
@@ -38,7 +40,7 @@ def work_summary(session: Session, job: Job) -> dict[str, Any]:
             func.count(),
             func.count().filter(WorkUnit.reused.is_(True)),
             func.coalesce(func.sum(WorkUnit.fits), 0),
-        ).where(WorkUnit.job_id == job.id, WorkUnit.status == "done")
+        ).where(WorkUnit.job_id == job.id, WorkUnit.status == UnitStatus.DONE)
     ).one()
     seconds = (utcnow() - job.created_at).total_seconds()
     return {
@@ -86,6 +88,7 @@ def build_result(
     result["work"]["outer_computed_by"] = computing_jobs(session, loaded, result)
     result["versions"] = versions()
     result["cautions"] = find_cautions(loaded.plan, loaded.frame, loaded.kinds)
+    result["cautions"] += attach_intervals(loaded.plan.spec, result)  # estimate[m]["interval"]
     # every candidate evaluated, drawn range values as drawn, in the order that breaks ties
     result["candidates"] = [c.public() for c in loaded.plan.candidates]
     spec = loaded.plan.spec

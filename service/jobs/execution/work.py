@@ -8,6 +8,7 @@ from service.config import Settings
 from service.jobs.curves.settle import settle_parent
 from service.jobs.execution.advance import advance_job
 from service.jobs.execution.execute import UnitReport, execute_unit
+from service.store.statuses import UnitStatus
 
 
 def run_and_advance(
@@ -16,7 +17,7 @@ def run_and_advance(
     """Run unit `unit_id`; if it finished its job's stage, return the next units to publish."""
     report = execute_unit(sessions, unit_id, settings=settings, worker=worker)
     if report.job_id is None or not report.stage_complete:
-        if report.job_id is not None and report.status == "failed":
+        if report.job_id is not None and report.status == UnitStatus.FAILED:
             settle_parent(sessions, report.job_id)  # a learning curve fails with its child
         return report, []
     added = advance_job(sessions, report.job_id, settings)

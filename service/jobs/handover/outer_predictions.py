@@ -17,6 +17,7 @@ from service.cv.predictions import StoredPredictions
 from service.cv.slices import OuterPredictions
 from service.jobs.execution.plans import LoadedPlan
 from service.store.models import FoldPrediction, Job
+from service.store.statuses import JobStatus
 
 
 class NotReady(Exception):
@@ -33,7 +34,7 @@ def require_result(job: Job, what: str) -> dict[str, Any]:
             f"job {job.id} is a {job.kind} job; its {what} belongs to each selection job it "
             f"started (GET /v1/jobs?... lists them with parent_id {job.id})."
         )
-    if job.status != "succeeded" or job.result is None:
+    if job.status != JobStatus.SUCCEEDED or job.result is None:
         why = f": {job.error.strip().splitlines()[-1]}" if job.error else ""
         raise NotReady(
             f"job {job.id} is {job.status}{why}; a {what} exists once the job has succeeded."

@@ -1,0 +1,157 @@
+"""Intervals on the outer estimate: the request's method checked, and the `quick` interval.
+
+`quick` is the corrected resampled t over the outer fold scores (Nadeau & Bengio 2003, Machine
+Learning 52:239-281; Bouckaert & Frank 2004, PAKDD, for repeated k-fold): the J fold scores are
+correlated because their training parts overlap, so the plain variance s²/J is too small; their
+correction inflates it to (1/J + n_test/n_train)·s² and reads the quantile of a t with J - 1 degrees
+of freedom. It needs nothing but what a plain nested job already has: no extra fit.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from scipy import stats
+
+from service.cv.errors import SpecError
+from service.cv.spec import SelectionSpec
+
+QUICK_SOURCE = "corrected resampled t (Nadeau & Bengio 2003; Bouckaert & Frank 2004)"
+
+# The range a metric's score can take; an interval is cut to it, since the truth lies inside
+# (cutting loses no coverage, and an accuracy interval reaching past 1 reads as a mistake).
+_UNIT = (0.0, 1.0)
+METRIC_RANGES: dict[str, tuple[float | None, float | None]] = {
+    **{m: _UNIT for m in ("accuracy", "balanced_accuracy", "roc_auc", "roc_auc_ovr")},
+    **{m: _UNIT for m in ("roc_auc_ovo", "average_precision", "f1", "f1_macro", "f1_weighted")},
+    **{m: _UNIT for m in ("precision", "precision_macro", "recall", "recall_macro")},
+    "matthews_corrcoef": (-1.0, 1.0),
+    "neg_brier_score": (-1.0, 0.0),
+    "r2": (None, 1.0),
+    "explained_variance": (None, 1.0),
+    **{m: (None, 0.0) for m in ("neg_log_loss", "neg_mean_squared_error")},
+    **{m: (None, 0.0) for m in ("neg_root_mean_squared_error", "neg_mean_absolute_error")},
+    **{m: (None, 0.0) for m in ("neg_median_absolute_error", "neg_mean_absolute_percentage_error")},
+}
+
+
+@dataclass(frozen=True)
+class CorrectedT:
+    """A corrected resampled t interval around the mean of J fold scores."""
+
+    mean: float
+    se: float  # sqrt((1/J + n_test/n_train) · s²), s² with ddof=1
+    df: int  # J - 1
+    t_quantile: float
+    lower: float
+    upper: float
+
+
+def corrected_t(values: Sequence[float], test_train_ratio: float, level: float) -> CorrectedT:
+    """The two-sided `level` interval of the corrected resampled t over fold scores `values`.
+
+    `test_train_ratio` is n_test / n_train of the folds (0 gives the uncorrected t interval).
+    """
+    scores = np.asarray(values, dtype="float64")
+    folds = len(scores)
+    if folds < 2:
+        raise ValueError("the corrected resampled t needs at least two fold scores")
+    variance = float(scores.var(ddof=1))
+    se = math.sqrt((1.0 / folds + test_train_ratio) * variance)
+    df = folds - 1
+    quantile = float(stats.t.ppf(0.5 + level / 2.0, df))
+    mean = float(scores.mean())
+    return CorrectedT(mean, se, df, quantile, mean - quantile * se, mean + quantile * se)
+
+
+def check_interval(spec: SelectionSpec) -> None:
+    """Refuse an interval method that cannot serve this request's split; raises SpecError."""
+    interval = spec.interval
+    if interval.method != "nested":
+        return
+    for name, plan in (("outer", spec.outer), ("inner", spec.inner)):
+        if plan.method in ("group_kfold", "time_series"):
+            raise SpecError(
+                "interval.method",
+                f"'nested' redraws random K-fold partitions, which would break the "
+                f"{plan.method} split of {name}; use 'quick' or a kfold or stratified_kfold split.",
+            )
+    if spec.train_fraction < 1:
+        raise SpecError(
+            "interval.method",
+            "'nested' assesses a selection on all rows, not on a train_fraction share; "
+            "use 'quick' for a learning-curve size.",
+        )
+    # The arithmetic is in service/cv/nested_interval.py; its fits (R·K·(K-1) whole selections)
+    # do not yet run as work units, and running them in one process would bypass reuse,
+    # cancellation and progress, so the request is refused rather than silently downgraded.
+    raise SpecError(
+        "interval.method",
+        "'nested' is not yet available in this version; use 'quick' (the default) for now.",
+    )
+
+
+def _quick(
+    metric: str, values: list[float], n_train: list[int], n_test: list[int], level: float
+) -> dict[str, Any]:
+    ratio = sum(n_test) / sum(n_train)  # the mean test size over the mean training size
+    found = corrected_t(values, ratio, level)
+    low, high = METRIC_RANGES.get(metric, (None, None))
+    lower = found.lower if low is None else max(found.lower, low)
+    upper = found.upper if high is None else min(found.upper, high)
+    return {
+        "method": "quick",
+        "level": level,
+        "lower": lower,
+        "upper": upper,
+        "cut_to_range": (lower, upper) != (found.lower, found.upper),
+        "se": found.se,
+        "df": found.df,
+        "t_quantile": found.t_quantile,
+        "folds": len(values),
+        "extra_fits": 0,  # built from the outer fold scores the job already has
+        "test_train_ratio": ratio,
+        "source": QUICK_SOURCE,
+    }
+
+
+def attach_intervals(spec: SelectionSpec, result: dict[str, Any]) -> list[str]:
+    """Set `result["estimate"][metric]["interval"]` for every metric; returns the cautions.
+
+    `result` is the engine's assembled result (outer rows and estimate). A metric the method
+    cannot serve gets None and one sentence saying why, never a number that is not an interval.
+    """
+    if spec.interval.method != "quick":  # check_interval refuses the others before any fit
+        raise ValueError(f"no interval method {spec.interval.method!r} in this version")
+    level = spec.interval.level
+    outer = result["outer"]
+    n_train = [row["n_train"] for row in outer]
+    n_test = [row["n_test"] for row in outer]
+    cautions: list[str] = []
+    flat: list[str] = []
+    for metric, estimate in result["estimate"].items():
+        estimate["interval"] = None
+        values = estimate["values"]
+        if spec.outer.method == "time_series":
+            continue
+        if np.ptp(np.asarray(values, dtype="float64")) == 0:
+            flat.append(metric)
+            continue
+        estimate["interval"] = _quick(metric, values, n_train, n_test, level)
+    if spec.outer.method == "time_series":
+        cautions.append(
+            "No interval on the estimate: the outer folds of a time_series split are ordered "
+            "in time, not drawn at random, which the quick interval (corrected resampled t) "
+            "assumes; read the per-fold values as a sequence."
+        )
+    if flat:
+        cautions.append(
+            f"No interval for {', '.join(flat)}: every outer fold scored the same, so the "
+            "corrected resampled t has no spread to work from; that is not evidence that new "
+            "data will score the same."
+        )
+    return cautions
