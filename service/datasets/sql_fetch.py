@@ -40,6 +40,7 @@ def driver_errors() -> tuple[type[Exception], ...]:
 
     return (SQLAlchemyError, psycopg.Error, sqlite3.Error)
 
+
 # sqlite3 authorizer actions a plain SELECT needs (SQLite C API, "Authorizer Action Codes");
 # everything else (writes, PRAGMA, ATTACH, transactions) is denied before the statement runs
 _SQLITE_READS = {
