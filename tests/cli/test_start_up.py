@@ -10,8 +10,9 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
+from pathlib import Path
 
-from .runner import FOLDWISE, REPO, TIMEOUT
+from .runner import FOLDWISE, REPO, TIMEOUT, base_request, cli_env, run_foldwise, write_job
 
 # the libraries that cost a command most of its start-up; none is needed to parse arguments
 HEAVY = ("sklearn", "pandas", "scipy", "sqlalchemy", "alembic", "skops", "pyarrow", "httpx")
@@ -66,3 +67,37 @@ def test_help_lists_every_command() -> None:
     assert done.returncode == 0, done.stderr
     listed = {line.split()[1] for line in done.stdout.splitlines() if line.startswith("│ ")}
     assert listed >= registered, f"missing from --help: {sorted(registered - listed)}"
+
+
+def test_a_job_the_store_answers_loads_neither_the_model_format_nor_the_migrations(
+    workdir: Path, foldwise_home: Path
+) -> None:
+    job = write_job(workdir, base_request())
+    first = run_foldwise("select", str(job), "--json", cwd=workdir, home=foldwise_home)
+    assert first.code == 0, first.stderr
+    # the same request again, run by the command line inside a probe that reports what it loaded
+    probe = (
+        "import json, sys\n"
+        "from service.cli.main import app\n"
+        "try:\n"
+        f"    app(['select', {str(job)!r}, '--json'])\n"
+        "except SystemExit as stop:\n"
+        "    assert not stop.code, stop.code\n"
+        "loaded = sorted({m.split('.')[0] for m in sys.modules})\n"
+        "print(json.dumps(loaded), file=sys.stderr)\n"
+    )
+    done = subprocess.run(
+        [sys.executable, "-c", probe],
+        cwd=workdir,
+        env=cli_env(foldwise_home),
+        capture_output=True,
+        text=True,
+        timeout=TIMEOUT,
+    )
+    assert done.returncode == 0, done.stderr
+    second = json.loads(done.stdout)
+    assert second["work"]["fits"] == 0  # every unit and the final model came from the store
+    assert second["outer"] == json.loads(first.stdout)["outer"]
+    loaded = set(json.loads(done.stderr.strip().splitlines()[-1]))
+    assert "sklearn" in loaded  # planning the folds needs it; the probe sees real imports
+    assert sorted(loaded & {"skops", "alembic"}) == []
