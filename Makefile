@@ -33,6 +33,7 @@ test: lint $(CHROMIUM)
 
 bench: $(STAMP)
 	$(BIN)/python tests/benchmarks/bench_select.py
+	$(BIN)/python tests/benchmarks/bench_fixed_costs.py
 	$(BIN)/python tests/benchmarks/bench_service.py
 	$(BIN)/python tests/benchmarks/bench_reuse.py
 	$(BIN)/python tests/benchmarks/bench_refresh.py

@@ -12,14 +12,16 @@ import webbrowser
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from enum import StrEnum
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.table import Table
 
-from service.cli.client import Client, ClientConfig, ServerFailed, load_config, save_config
 from service.cli.output import fail, refuse, stderr, stdout
 from service.errors import BadInput
+
+if TYPE_CHECKING:
+    from service.cli.client import Client
 
 SCORE_PAGE = 1000
 
@@ -33,6 +35,9 @@ class ScoreFormat(StrEnum):
 
 @contextmanager
 def _client() -> Iterator[Client]:
+    # imported here for start-up speed: only commands that talk to a server load httpx
+    from service.cli.client import Client, ServerFailed, load_config
+
     try:
         with Client(load_config()) as client:
             yield client
@@ -54,6 +59,9 @@ def login(
     token: Annotated[str, typer.Option(help="A token from `foldwise token create`.")],
 ) -> None:
     """Remember a server and token in FOLDWISE_HOME/client.json (readable by you only)."""
+    # imported here for start-up speed, as in _client
+    from service.cli.client import ClientConfig, save_config
+
     try:
         path = save_config(ClientConfig(url, token))
     except BadInput as exc:

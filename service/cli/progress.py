@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 
 from rich.console import Console
@@ -15,7 +15,9 @@ from rich.progress import (
     TimeRemainingColumn,
 )
 
-from service.jobs.local.driver import Progress as ProgressCallback
+# (done, total), as service/jobs/local/driver.py's Progress; spelled here so that drawing a bar
+# does not import the job runner (and scikit-learn) into every command that shows one
+ProgressCallback = Callable[[int, int], None]
 
 
 @contextmanager

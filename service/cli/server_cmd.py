@@ -8,7 +8,6 @@ from types import FrameType
 from typing import TYPE_CHECKING, Annotated
 
 import typer
-from sqlalchemy.engine import make_url
 
 from service.cli.output import refuse, stderr
 from service.config import Settings, load_settings
@@ -29,6 +28,9 @@ STOP_GRACE = 20
 
 def embedded_store(settings: Settings) -> bool:
     """True for the one-machine default: SQLite and no broker."""
+    # imported here for start-up speed: `foldwise --help` need not load SQLAlchemy
+    from sqlalchemy.engine import make_url
+
     return settings.embedded and make_url(settings.database_url).get_backend_name() == "sqlite"
 
 

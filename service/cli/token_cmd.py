@@ -6,17 +6,18 @@ import json
 import sys
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from typing import Annotated, Any
+from typing import TYPE_CHECKING, Annotated, Any
 
 import typer
 from rich.table import Table
-from sqlalchemy.exc import SQLAlchemyError
-from sqlalchemy.orm import Session
 
 from service.cli.output import fail, refuse, stderr, stdout
 from service.cli.server_cmd import upgrade_if_embedded
 from service.config import load_settings
 from service.errors import BadInput
+
+if TYPE_CHECKING:
+    from sqlalchemy.orm import Session
 
 token_app = typer.Typer(help="Bearer tokens for the REST API.", no_args_is_help=True)
 
@@ -36,6 +37,9 @@ def _store() -> Iterator[Session]:
 
 
 def _run(work: Callable[[Session], Any]) -> Any:
+    # imported here for start-up speed: `foldwise --help` need not load SQLAlchemy
+    from sqlalchemy.exc import SQLAlchemyError
+
     try:
         with _store() as session:
             return work(session)

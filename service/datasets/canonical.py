@@ -80,7 +80,11 @@ def _canonical_booleans(series: pd.Series) -> pd.api.extensions.ExtensionArray:
 def content_hash(frame: pd.DataFrame) -> str:
     """sha256 hex of the table's logical content: names, kinds, row order and values."""
     canonical = canonical_frame(frame)
-    kinds = infer_column_kinds(canonical)
+    return canonical_content_hash(canonical, infer_column_kinds(canonical))
+
+
+def canonical_content_hash(canonical: pd.DataFrame, kinds: dict[str, ColumnKind]) -> str:
+    """`content_hash` of a frame already canonical, with its inferred kinds (no second pass)."""
     digest = hashlib.sha256(_STREAM_VERSION)
     header = json.dumps(
         {"columns": list(kinds), "kinds": list(kinds.values()), "n_rows": len(canonical)},

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import codecs
 import gzip
+import io
 import re
 from pathlib import Path
 from typing import BinaryIO, Literal
@@ -66,12 +67,15 @@ def read_dataset_file(path: Path, *, field: str) -> tuple[pd.DataFrame, FileForm
 
 
 def _read_csv(path: Path, field: str) -> pd.DataFrame:
-    _check_utf8_text(path, field)
+    # The file is read from disk once: checked as text and parsed from the same bytes.
+    data = _utf8_text_bytes(path, field)
     try:
         # The raw header, because pandas silently renames a repeated name "a" to "a.1".
-        header = pd.read_csv(path, header=None, nrows=1, dtype=str, keep_default_na=False)
+        header = pd.read_csv(
+            io.BytesIO(data), header=None, nrows=1, dtype=str, keep_default_na=False
+        )
         # pandas 3 parses each float to the nearest double by default, so CSV agrees with Parquet.
-        frame = pd.read_csv(path)
+        frame = pd.read_csv(io.BytesIO(data))
     except pd.errors.EmptyDataError:
         raise BadInput(
             field, f"{path} holds no header row; supply a header row and at least one data row."
@@ -137,34 +141,41 @@ def _check_flat(schema: pa.Schema, path: Path, field: str) -> None:
             )
 
 
-def _check_utf8_text(path: Path, field: str) -> None:
-    """Refuse binary files before pandas sees them, since its errors would say nothing useful."""
+def _utf8_text_bytes(path: Path, field: str) -> bytes:
+    """The file's bytes (decompressed); binary files are refused here, as pandas' errors would
+    say nothing useful."""
+    try:
+        with _open_bytes(path) as stream:
+            data = stream.read()
+    except (OSError, EOFError) as exc:
+        raise BadInput(
+            field, f"{path} could not be read ({_brief(exc)}); check that the file is intact."
+        ) from None
+    if not data:
+        raise BadInput(field, f"{path} is empty; supply a header row and at least one data row.")
     decoder = codecs.getincrementaldecoder("utf-8")()
     seen = 0
     try:
-        with _open_bytes(path) as stream:
-            while chunk := stream.read(_CHUNK):
-                if b"\x00" in chunk:
-                    raise BadInput(
-                        field,
-                        f"{path} contains NUL bytes, so it is binary rather than CSV text; "
-                        "export the table as UTF-8 CSV or as Parquet.",
-                    )
-                decoder.decode(chunk)
-                seen += len(chunk)
-            decoder.decode(b"", final=True)
+        # chunk by chunk as the file was once streamed: the first problem in file order is named,
+        # and no decoded copy of a large file is ever held
+        for start in range(0, len(data), _CHUNK):
+            chunk = data[start : start + _CHUNK]
+            if b"\x00" in chunk:
+                raise BadInput(
+                    field,
+                    f"{path} contains NUL bytes, so it is binary rather than CSV text; "
+                    "export the table as UTF-8 CSV or as Parquet.",
+                )
+            decoder.decode(chunk)
+            seen += len(chunk)
+        decoder.decode(b"", final=True)
     except UnicodeDecodeError as exc:
         raise BadInput(
             field,
             f"{path} is not UTF-8 text (bad byte near offset {seen + exc.start}); "
             "re-save it with UTF-8 encoding.",
         ) from None
-    except (OSError, EOFError) as exc:
-        raise BadInput(
-            field, f"{path} could not be read ({_brief(exc)}); check that the file is intact."
-        ) from None
-    if seen == 0:
-        raise BadInput(field, f"{path} is empty; supply a header row and at least one data row.")
+    return data
 
 
 def _open_bytes(path: Path) -> BinaryIO:

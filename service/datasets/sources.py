@@ -10,7 +10,7 @@ import pandas as pd
 import pyarrow as pa
 from pydantic import BaseModel, ConfigDict, Field, model_validator
 
-from service.datasets.canonical import canonical_frame, content_hash
+from service.datasets.canonical import canonical_content_hash, canonical_frame
 from service.datasets.files import read_dataset_file
 from service.datasets.kinds import OVERRIDE_NOTE, ColumnKind, infer_column_kinds, override_hint
 from service.datasets.sql_source import SqlAccess, SqlSource, read_sql_source
@@ -178,9 +178,11 @@ def _loaded(raw: pd.DataFrame, origin: dict[str, str], field: str) -> LoadedTabl
             f"a column could not be brought to a numeric, text, boolean or timestamp form "
             f"({type(exc).__name__}); store plain values in every cell.",
         ) from None
+    # canonicalised and its kinds inferred once: the hash is taken from the same frame
+    kinds = infer_column_kinds(frame)
     return LoadedTable(
         frame=frame,
-        kinds=infer_column_kinds(frame),
-        content_hash=content_hash(frame),
+        kinds=kinds,
+        content_hash=canonical_content_hash(frame, kinds),
         origin=origin,
     )

@@ -17,19 +17,29 @@ from __future__ import annotations
 import sqlite3
 import time
 from collections.abc import Generator, Iterator
-from typing import Any, cast
+from typing import TYPE_CHECKING, Any, cast
 
-import psycopg
 from sqlalchemy import Connection
 from sqlalchemy.exc import SQLAlchemyError
 
 from service.errors import BadInput
 
+if TYPE_CHECKING:
+    import psycopg
+
 STATEMENT_TIMEOUT_MS = 120_000
 CURSOR = "foldwise_source"
 # what one number, date or boolean is counted as; text and bytes count their length
 SCALAR_BYTES = 8
-DRIVER_ERRORS = (SQLAlchemyError, psycopg.Error, sqlite3.Error)
+
+
+def driver_errors() -> tuple[type[Exception], ...]:
+    """What the drivers raise for a statement the database refused."""
+    # imported here for start-up speed: only a sql source on PostgreSQL needs psycopg loaded
+    import psycopg
+
+    return (SQLAlchemyError, psycopg.Error, sqlite3.Error)
+
 
 # sqlite3 authorizer actions a plain SELECT needs (SQLite C API, "Authorizer Action Codes");
 # everything else (writes, PRAGMA, ATTACH, transactions) is denied before the statement runs
@@ -133,6 +143,8 @@ def read_rows(
     connection: Connection, statement: str, *, max_rows: int, max_bytes: int, field: str
 ) -> tuple[list[str], list[tuple[Any, ...]]]:
     """Column names and rows of one statement, in the connection's (read-only) transaction."""
+    import psycopg  # imported here for start-up speed, as in driver_errors
+
     driver = connection.connection.driver_connection
     dialect = connection.dialect.name
     if dialect == "postgresql" and isinstance(driver, psycopg.Connection):

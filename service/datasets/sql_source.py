@@ -23,7 +23,7 @@ from sqlalchemy import Connection, Engine, create_engine, make_url, text
 from sqlalchemy.pool import QueuePool
 
 from service.config import Settings, SqlConnection
-from service.datasets.sql_fetch import DRIVER_ERRORS, STATEMENT_TIMEOUT_MS, read_rows
+from service.datasets.sql_fetch import STATEMENT_TIMEOUT_MS, driver_errors, read_rows
 from service.errors import BadInput
 
 _IDENTIFIER = re.compile(r"^[A-Za-z_][A-Za-z0-9_]{0,62}$")
@@ -150,7 +150,7 @@ def read_sql_source(
             )
     except BadInput:
         raise
-    except DRIVER_ERRORS as exc:
+    except driver_errors() as exc:
         reason = str(getattr(exc, "orig", None) or exc).strip().splitlines()[0]
         raise BadInput(
             inner_field, f"the database refused it ({reason}); check the name or the query."

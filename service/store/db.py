@@ -179,12 +179,13 @@ def alembic_config(url: str) -> Config:
 
 def upgrade_database(url: str) -> None:
     """Bring the schema at `url` to the newest revision; a no-op when it is already there."""
-    from alembic import command
-
     engine = make_engine(url)
     try:
         if _at_head(engine):
             return
+        # imported here for start-up speed: a store already at head never loads Alembic
+        from alembic import command
+
         with engine.begin() as connection:
             if connection.dialect.name == "postgresql":
                 # Two processes starting at once (API and a worker) would both see an empty

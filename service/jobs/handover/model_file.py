@@ -26,14 +26,21 @@ import json
 import re
 import zipfile
 from pathlib import Path
+from types import ModuleType
 from typing import Any
-
-import skops.io as sio
 
 MEDIA_TYPE = "application/vnd.skops"  # not registered; names the format for a reader
 SUFFIX = ".skops"
 _FIXED_TIME = (1980, 1, 1, 0, 0, 0)  # the earliest time a zip entry can carry
 _SCHEMA = "schema.json"
+
+
+def _skops_io() -> ModuleType:
+    # imported here for start-up speed: importing skops.io imports every scikit-learn estimator
+    # (its trusted-types list), seconds that a job answered from the store never needs
+    import skops.io
+
+    return skops.io
 
 
 _ARRAY_FILE = re.compile(r"^(\d+)(\.np[yz])$")
@@ -83,7 +90,7 @@ def _stable_zip(data: bytes) -> bytes:
 
 def model_bytes(model: Any) -> bytes:
     """The skops serialisation of `model`, identical for identical fitted models."""
-    return _stable_zip(sio.dumps(model))
+    return _stable_zip(_skops_io().dumps(model))
 
 
 def sha256(data: bytes) -> str:
@@ -102,14 +109,14 @@ def file_sha256(path: Path) -> str:
 
 def untrusted_types_of(path: Path) -> list[str]:
     """Types in the file at `path` that skops would not load without being told to trust them."""
-    return list(sio.get_untrusted_types(file=path))
+    return list(_skops_io().get_untrusted_types(file=path))
 
 
 def untrusted_types(data: bytes) -> list[str]:
     """Types in the file that skops would not load without being told to trust them."""
-    return list(sio.get_untrusted_types(data=data))
+    return list(_skops_io().get_untrusted_types(data=data))
 
 
 def load_model(data: bytes) -> Any:
     """Load a model file, trusting nothing beyond skops' defaults (raises on unknown types)."""
-    return sio.loads(data)
+    return _skops_io().loads(data)

@@ -68,6 +68,18 @@ def _child_execute(unit_id: int) -> tuple[UnitReport, list[int]]:
     )
 
 
+def pool_workers(workers: int, queued_units: int) -> int:
+    """How many processes to run `queued_units` on: 1 (this process, no pool) unless a pool pays.
+
+    A pool costs a fork, an engine and a plan per process before its first fit; with fewer
+    units than two rounds of its workers (or none left: the store answered the job), the units
+    run here, through the same `run_and_advance`, at once.
+    """
+    if workers <= 1 or queued_units < 2 * workers:
+        return 1
+    return workers
+
+
 @contextmanager
 def _local_pool(
     engine: Engine, settings: Settings, workers: int
@@ -194,7 +206,9 @@ def run_embedded(
         _remember_plans(ids, prepared)
         try:
             start_submitted(sessions, job_id, settings)  # the store may answer a stage entirely
-            with _local_pool(engine, settings, workers) as pool:
+            with sessions() as session:
+                queued = sum(len(queued_unit_ids(session, i)) for i, _ in selections)
+            with _local_pool(engine, settings, pool_workers(workers, queued)) as pool:
                 _drive_selections(sessions, selections, settings, pool, progress)
         except BaseException:
             with sessions.begin() as session:
