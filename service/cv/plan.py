@@ -12,6 +12,7 @@ import sklearn
 from service.cv.candidates import Candidate, enumerate_candidates
 from service.cv.columns import apply_column_types, order_values
 from service.cv.errors import SpecError
+from service.cv.halving_schedule import check_halving
 from service.cv.intervals import check_interval
 from service.cv.metrics import check_metrics
 from service.cv.preprocess import FeatureTable, check_preprocess, feature_table
@@ -205,4 +206,6 @@ def build_plan(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) 
     inner[FINAL_SCOPE] = split_rows(
         spec.inner, all_rows, inputs, n_rows=n, versions=tag, field="inner"
     )
+    search_rows = [len(fold.train) for fold in outer] + [n]
+    check_halving(spec, len(candidates), search_rows, len(inner[FINAL_SCOPE]), n_classes)
     return SelectionPlan(spec, candidates, table, y, outer, inner, inputs, versions, weights)
