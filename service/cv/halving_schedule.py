@@ -79,7 +79,8 @@ def check_halving(
 def refuse_as_units(spec: SelectionSpec) -> None:
     """The service's refusal: halving is not split into stored work units yet.
 
-    Call it where a job is accepted; SpecError on `search.strategy` when the spec asks for halving.
+    build_plan calls it unless told the plan runs in-process, so a job that asks for halving is
+    refused where its plan is built; SpecError on `search.strategy`.
     """
     if spec.search.strategy == "halving":
         raise SpecError(

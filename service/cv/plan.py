@@ -12,7 +12,7 @@ import sklearn
 from service.cv.candidates import Candidate, enumerate_candidates
 from service.cv.columns import apply_column_types, order_values
 from service.cv.errors import SpecError
-from service.cv.halving_schedule import check_halving
+from service.cv.halving_schedule import check_halving, refuse_as_units
 from service.cv.intervals import check_interval
 from service.cv.metrics import check_metrics
 from service.cv.preprocess import FeatureTable, check_preprocess, feature_table
@@ -159,8 +159,16 @@ def _split_inputs(
     return SplitInputs(y=y, groups=groups, order=order)
 
 
-def build_plan(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) -> SelectionPlan:
-    """Validate `spec` against `frame` and fix candidates and folds; raises SpecError."""
+def build_plan(
+    spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str], *, in_process: bool = False
+) -> SelectionPlan:
+    """Validate `spec` against `frame` and fix candidates and folds; raises SpecError.
+
+    Only a caller that runs the plan itself (nested.run_nested) passes `in_process`: the service
+    splits plans into stored work units, which halving does not have yet, so it is refused here.
+    """
+    if not in_process:
+        refuse_as_units(spec)
     if len(frame) < 4:
         raise SpecError("dataset", f"the table has {len(frame)} rows; nested CV needs more.")
     frame, kinds = apply_column_types(frame, kinds, spec.columns)

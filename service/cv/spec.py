@@ -172,7 +172,11 @@ class SearchSpec(_Strict):
     @model_validator(mode="after")
     def _consistent(self) -> SearchSpec:
         if self.strategy == "grid":
-            given = sorted({"factor", "min_rows", "seed"} & self.model_fields_set)
+            # non-default values, not fields set: a request read back from the store has them all
+            defaults = SearchSpec.model_fields
+            given = [
+                n for n in ("factor", "min_rows", "seed") if getattr(self, n) != defaults[n].default
+            ]
             if given:
                 raise ValueError(
                     f"{given[0]}: only the halving strategy takes {given[0]}; remove it or set "

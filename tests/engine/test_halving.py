@@ -25,10 +25,12 @@ from sklearn.preprocessing import StandardScaler
 
 from service.cv.errors import SpecError
 from service.cv.halving_schedule import refuse_as_units
+from service.cv.nested import NestedOutcome, run_nested
+from service.cv.plan import SelectionPlan, build_plan
 from service.cv.spec import SelectionSpec
 from service.cv.units import inner_units
 
-from .runs import outer_scores, plan_for, run_engine
+from .runs import outer_scores, sample_table
 
 TOLERANCE = 1e-9
 C_GRID = [0.001, 0.01, 0.03, 0.1, 0.3, 1.0, 3.0, 10.0, 100.0]
@@ -79,6 +81,17 @@ class Case:
             random_state=self.search.get("seed", 0),
             refit=True,
         )
+
+
+def plan_for(request: dict[str, Any], *, in_process: bool = True) -> SelectionPlan:
+    """The engine's plan for a request on its bundled sample, built as run_nested runs it."""
+    spec = SelectionSpec.model_validate({k: v for k, v in request.items() if k != "dataset"})
+    frame, kinds = sample_table(request["dataset"]["sample"])
+    return build_plan(spec, frame, kinds, in_process=in_process)
+
+
+def run_engine(request: dict[str, Any]) -> NestedOutcome:
+    return run_nested(plan_for(request))
 
 
 LOGISTIC_FAMILY = {"estimator": "LogisticRegression", "fixed": {"max_iter": 5000}}
@@ -262,17 +275,29 @@ def test_the_nested_interval_is_refused_with_halving() -> None:
 
 
 def test_the_service_refuses_halving_as_work_units() -> None:
-    plan = plan_for(_spec({"strategy": "halving"}))
+    request = _spec({"strategy": "halving"})
+    # the service builds plans without in_process: refused there, before anything is stored
     with pytest.raises(SpecError) as caught:
-        refuse_as_units(plan.spec)
+        plan_for(request, in_process=False)
     assert caught.value.field == "search.strategy"
     assert caught.value.message.startswith("'halving' runs only in-process for now")
-    # and the units the service would store are never made for a halving spec
+    plan = plan_for(request)
+    with pytest.raises(SpecError):
+        refuse_as_units(plan.spec)
+    # and the units the service would store are never made for a halving plan
     with pytest.raises(SpecError):
         inner_units(plan)
-    grid = plan_for(_spec({"strategy": "grid"}))
+    grid = plan_for(_spec({"strategy": "grid"}), in_process=False)
     refuse_as_units(grid.spec)
     assert len(inner_units(grid)) == 5 * len(grid.candidates)
+
+
+def test_a_spec_read_back_from_the_store_validates_again() -> None:
+    # the service stores model_dump() of the request and validates it again to run it
+    for search in ({}, {"strategy": "halving", "factor": 2, "min_rows": 30, "seed": 4}):
+        body = {k: v for k, v in _spec(search).items() if k != "dataset"}
+        spec = SelectionSpec.model_validate(body)
+        assert SelectionSpec.model_validate(spec.model_dump()) == spec
 
 
 def test_grid_is_still_the_default_and_its_result_unchanged() -> None:
