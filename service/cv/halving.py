@@ -124,7 +124,7 @@ def halving_search(plan: SelectionPlan, scope: str, outcome: HalvingOutcome) -> 
                 "rows": n_rows,
                 "fits": len(racing) * len(these),
                 "train_rows": fitted_rows,
-                "kept": min(keep, len(racing)),
+                "kept": keep,
                 "best_mean": float(np.nanmax(means)),
             }
         )
