@@ -24,10 +24,9 @@ from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
-from sklearn.utils import resample
 
 from service.cv.candidates import Candidate
-from service.cv.halving_schedule import keep_count, rounds_for
+from service.cv.halving_schedule import cut, keep_count, rounds_for
 from service.cv.plan import SelectionPlan
 from service.cv.scopes import FINAL_SCOPE
 from service.cv.selection import Pick
@@ -55,18 +54,7 @@ def round_folds(plan: SelectionPlan, folds: list[Fold], fraction: float, seed: i
     tag = _versions_tag(plan)
     out = []
     for fold in folds:
-        # resample draws positions, so drawing from absolute row numbers picks the same rows
-        # scikit-learn picks from the positions of the search's own table
-        train = resample(
-            fold.train,
-            replace=False,
-            random_state=seed,
-            n_samples=int(fraction * len(fold.train)),
-        )
-        test = resample(
-            fold.test, replace=False, random_state=seed, n_samples=int(fraction * len(fold.test))
-        )
-        train, test = np.asarray(train), np.asarray(test)
+        train, test = cut(fold.train, fraction, seed), cut(fold.test, fraction, seed)
         fingerprint = fold_fingerprint(train, test, plan.n_rows, tag)
         out.append(Fold(fold.repeat, fold.index, train, test, fingerprint))
     return out

@@ -3,15 +3,20 @@
 The schedule is scikit-learn's HalvingGridSearchCV with resource="n_samples" and
 aggressive_elimination=False (sklearn/model_selection/_search_successive_halving.py,
 `_check_input_parameters` and `_run_search`), written out with the same expressions so the
-same floating-point rounding gives the same rounds. Nothing here fits a model.
+same floating-point rounding gives the same rounds. The rows of a round are chosen here too
+(`cut`), so the plan can check a first round before any fit. Nothing here fits a model.
 """
 
 from __future__ import annotations
 
 from math import ceil, floor, log
 
+import numpy as np
+from sklearn.utils import resample
+
 from service.cv.errors import SpecError
 from service.cv.spec import SearchSpec, SelectionSpec
+from service.cv.splits import Fold
 
 # scikit-learn's "exhaust" and "smallest" start from inner folds x 2 (x classes for a classifier)
 ROWS_PER_FOLD = 2
@@ -40,6 +45,48 @@ def rounds_for(
 def keep_count(search: SearchSpec, n_candidates: int) -> int:
     """How many candidates a round passes on: ceil(n / factor), as scikit-learn rounds it."""
     return ceil(n_candidates / search.factor)
+
+
+def cut(part: np.ndarray, fraction: float, seed: int) -> np.ndarray:
+    """`fraction` of a fold's part, as scikit-learn's _SubsampleMetaSplitter cuts it.
+
+    resample draws positions, so drawing from absolute row numbers picks the very rows it picks
+    from the positions of the search's own table, in the order it returns them (the order rows
+    reach a fit can change its floating-point result). With one seed every cut of a part is a
+    prefix of one permutation: a later, larger round keeps the rows of an earlier one.
+    """
+    n = int(fraction * len(part))
+    return np.asarray(resample(part, replace=False, random_state=seed, n_samples=n))
+
+
+def check_first_rounds(
+    spec: SelectionSpec,
+    y: np.ndarray,
+    searches: dict[str, tuple[np.ndarray, list[Fold]]],
+    n_cand: int,
+) -> None:
+    """Refuse a first round whose cut training parts cannot be fitted (fewer than two rows, or
+    one class for classification). scikit-learn would score such fits NaN and race on; the
+    engine never ranks on a fit that failed, so the request must start with more rows."""
+    search = spec.search
+    if search.strategy != "halving":
+        return
+    for scope, (rows, folds) in searches.items():  # the rows each search is given
+        n_rows = len(rows)
+        classes = len(np.unique(y[rows])) if spec.task == "classification" else None
+        first = rounds_for(search, n_cand, len(folds), n_rows, classes)[1][0]
+        for fold in folds:
+            train = cut(fold.train, first / n_rows, search.seed)
+            one_class = spec.task == "classification" and len(np.unique(y[train])) < 2
+            if len(train) < 2 or one_class:
+                where = "all rows" if scope == "all" else f"outer fold {scope}"
+                what = "a single class" if one_class and len(train) >= 2 else "too few rows"
+                raise SpecError(
+                    "search.min_rows",
+                    f"the first round ({first} of {n_rows} rows) leaves inner fold "
+                    f"{fold.index} of {where} {len(train)} training rows with {what}; "
+                    "give a larger min_rows.",
+                )
 
 
 def check_halving(

@@ -12,7 +12,7 @@ import sklearn
 from service.cv.candidates import Candidate, enumerate_candidates
 from service.cv.columns import apply_column_types, order_values
 from service.cv.errors import SpecError
-from service.cv.halving_schedule import check_halving, refuse_as_units
+from service.cv.halving_schedule import check_first_rounds, check_halving, refuse_as_units
 from service.cv.intervals import check_interval
 from service.cv.metrics import check_metrics
 from service.cv.preprocess import FeatureTable, check_preprocess, feature_table
@@ -216,4 +216,7 @@ def build_plan(
     )
     search_rows = [len(fold.train) for fold in outer] + [n]
     check_halving(spec, len(candidates), search_rows, len(inner[FINAL_SCOPE]), n_classes)
+    searches = {fold.scope: (fold.train, inner[fold.scope]) for fold in outer}
+    searches[FINAL_SCOPE] = (all_rows, inner[FINAL_SCOPE])
+    check_first_rounds(spec, y, searches, len(candidates))
     return SelectionPlan(spec, candidates, table, y, outer, inner, inputs, versions, weights)

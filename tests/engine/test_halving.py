@@ -258,6 +258,24 @@ def test_min_rows_beyond_the_inner_search_is_refused() -> None:
     assert "more than the 426 rows" in caught.value.message
 
 
+def test_a_first_round_with_one_class_is_refused_before_any_fit() -> None:
+    # load_breast_cancer, 27 candidates: scikit-learn's default start (16 of 455 rows) cuts
+    # inner fold 0 of outer fold r0f0 to 10 training rows of a single class; scikit-learn
+    # would score those fits NaN and race on, the engine asks for a larger min_rows instead
+    request = _spec({"strategy": "halving"})
+    request["families"] = [
+        {**LOGISTIC_FAMILY, "grid": {"C": [float(c) for c in np.logspace(-3, 3, 27)]}}
+    ]
+    request["outer"] = {"method": "stratified_kfold", "k": 5, "seed": 2}
+    request["inner"] = {"method": "stratified_kfold", "k": 3, "seed": 1}
+    with pytest.raises(SpecError) as caught:
+        plan_for(request)
+    assert caught.value.field == "search.min_rows"
+    assert "a single class" in caught.value.message
+    request["search"] = {"strategy": "halving", "min_rows": 40}
+    assert len(plan_for(request).candidates) == 27
+
+
 def test_halving_with_one_candidate_is_refused() -> None:
     request = _spec({"strategy": "halving"})
     request["families"] = [{**LOGISTIC_FAMILY, "grid": {"C": [1.0]}}]
