@@ -185,8 +185,8 @@ class SearchSpec(_Strict):
             return self
         if self.factor < 2:
             raise ValueError(
-                f"factor: {self.factor} would keep every candidate each round; give a factor "
-                "of at least 2, e.g. 3"
+                f"factor: {self.factor} is below 2 and each round keeps 1/factor of the "
+                "candidates; give a factor of at least 2, e.g. 3"
             )
         if self.min_rows is not None and self.min_rows < 1:
             raise ValueError(
