@@ -17,8 +17,8 @@ from sklearn import datasets
 from sklearn.compose import ColumnTransformer
 from sklearn.experimental import enable_halving_search_cv  # noqa: F401  (makes the class)
 from sklearn.impute import SimpleImputer
-from sklearn.linear_model import LogisticRegression
-from sklearn.model_selection import HalvingGridSearchCV, StratifiedKFold, cross_validate
+from sklearn.linear_model import LogisticRegression, Ridge
+from sklearn.model_selection import HalvingGridSearchCV, KFold, StratifiedKFold, cross_validate
 from sklearn.neighbors import KNeighborsClassifier
 from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import StandardScaler
@@ -56,25 +56,38 @@ class Case:
     inner: int
     seeds: tuple[int, int]
     metrics: tuple[str, ...]
+    task: str = "classification"
+
+    def splitter(self, k: int, seed: int) -> Any:
+        if self.task == "classification":
+            return StratifiedKFold(k, shuffle=True, random_state=seed)
+        return KFold(k, shuffle=True, random_state=seed)
 
     def request(self) -> dict[str, Any]:
+        method = "stratified_kfold" if self.task == "classification" else "kfold"
         return {
             "dataset": {"sample": self.sample},
             "target": "target",
-            "task": "classification",
+            "task": self.task,
             "families": self.families,
             "preprocess": "auto",
-            "outer": {"method": "stratified_kfold", "k": self.outer, "seed": self.seeds[0]},
-            "inner": {"method": "stratified_kfold", "k": self.inner, "seed": self.seeds[1]},
+            "outer": {"method": method, "k": self.outer, "seed": self.seeds[0]},
+            "inner": {"method": method, "k": self.inner, "seed": self.seeds[1]},
             "metrics": list(self.metrics),
             "search": {"strategy": "halving", **self.search},
         }
 
     def halving(self, columns: list[str]) -> HalvingGridSearchCV:
+        # Ridge has a random_state (its sag solvers); the engine pins it to 0 as for the others
+        model = (
+            LogisticRegression(**LOGISTIC)
+            if self.task == "classification"
+            else Ridge(random_state=0)
+        )
         return HalvingGridSearchCV(
-            auto(LogisticRegression(**LOGISTIC), columns),
+            auto(model, columns),
             self.grid,
-            cv=StratifiedKFold(self.inner, shuffle=True, random_state=self.seeds[1]),
+            cv=self.splitter(self.inner, self.seeds[1]),
             scoring=self.metrics[0],
             factor=self.search.get("factor", 3),
             min_resources=self.search.get("min_rows", "exhaust"),
@@ -135,6 +148,18 @@ CASES = {
         (4, 4),
         ("accuracy", "roc_auc_ovr"),
     ),
+    # load_diabetes (scikit-learn's bundled table): regression, so no classes in the first round
+    "diabetes-regression": Case(
+        "diabetes",
+        [{"estimator": "Ridge", "grid": {"alpha": C_GRID}}],
+        {"model__alpha": C_GRID},
+        {"seed": 11},
+        5,
+        4,
+        (0, 9),
+        ("neg_mean_squared_error", "r2"),
+        task="regression",
+    ),
 }
 
 
@@ -147,7 +172,7 @@ def reference(name: str) -> tuple[dict[str, Any], list[HalvingGridSearchCV], Hal
         case.halving(list(X.columns)),
         X,
         y,
-        cv=StratifiedKFold(case.outer, shuffle=True, random_state=case.seeds[0]),
+        cv=case.splitter(case.outer, case.seeds[0]),
         scoring=list(case.metrics),
         return_estimator=True,
     )
@@ -212,7 +237,7 @@ def test_halving_matches_halving_search_inside_cross_validate(name: str) -> None
 def search_inputs(case: Case) -> list[tuple[Any, Any]]:
     """The (X, y) each reference search was given: each outer training part, then all rows."""
     X, y = getattr(datasets, f"load_{case.sample}")(return_X_y=True, as_frame=True)
-    outer = StratifiedKFold(case.outer, shuffle=True, random_state=case.seeds[0])
+    outer = case.splitter(case.outer, case.seeds[0])
     return [(X.iloc[tr], y.iloc[tr]) for tr, _ in outer.split(X, y)] + [(X, y)]
 
 
