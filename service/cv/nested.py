@@ -10,6 +10,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
+from service.cv.halving import full_grid_work, halving_picks
 from service.cv.plan import SelectionPlan
 from service.cv.scopes import FINAL_SCOPE
 from service.cv.selection import Pick, ScoreBook, assemble, pick
@@ -47,6 +48,8 @@ def run_nested(
     plan: SelectionPlan, progress: Callable[[int, int], None] | None = None
 ) -> NestedOutcome:
     """Run every unit of `plan` here, in order, and aggregate."""
+    if plan.spec.search.strategy == "halving":
+        return _run_halving(plan, progress)
     book: ScoreBook = {}
     first = inner_units(plan)
     total = len(first) + len(plan.outer) + 1
@@ -58,8 +61,22 @@ def run_nested(
         if progress:
             progress(done, total)
     picks = {scope: pick(plan, scope, book) for scope in plan.scopes}
+    model, refits = _refit(plan, book, picks, len(first), total, progress)
+    return NestedOutcome(assemble(plan, book, picks), model, fits + refits)
+
+
+def _refit(
+    plan: SelectionPlan,
+    book: ScoreBook,
+    picks: dict[str, Pick],
+    done_before: int,
+    total: int,
+    progress: Callable[[int, int], None] | None,
+) -> tuple[Any, int]:
+    """The second phase: refit the picks, scoring each outer one on its test part."""
     model: Any = None
-    for done, ref in enumerate(refit_units(picks), len(first) + 1):
+    fits = 0
+    for done, ref in enumerate(refit_units(picks), done_before + 1):
         outcome = fit_and_score(plan, ref)
         record(book, outcome)
         fits += outcome.fits
@@ -67,4 +84,29 @@ def run_nested(
         if progress:
             progress(done, total)
     assert model is not None
-    return NestedOutcome(assemble(plan, book, picks), model, fits)
+    return model, fits
+
+
+def _run_halving(plan: SelectionPlan, progress: Callable[[int, int], None] | None) -> NestedOutcome:
+    """Nested CV with successive halving as the inner search (service/cv/halving.py)."""
+    total = len(plan.scopes) + len(plan.outer) + 1
+    searched = halving_picks(plan, (lambda done: progress(done, total)) if progress else None)
+    book: ScoreBook = {}
+    model, refits = _refit(plan, book, searched.picks, len(plan.scopes), total, progress)
+    result = assemble(plan, book, searched.picks)
+    search = plan.spec.search
+    grid_fits, grid_rows = full_grid_work(plan)
+    result["search"] = {
+        "strategy": "halving",
+        "factor": search.factor,
+        "min_rows": search.min_rows,
+        "seed": search.seed,
+        # with the refits, which both strategies make alike
+        "fits": searched.fits + refits,
+        "full_grid_fits": grid_fits + refits,
+        # the inner searches' rows fitted on, summed over fits: what halving saves
+        "inner_train_rows": searched.train_rows,
+        "full_grid_inner_train_rows": grid_rows,
+        "rounds": searched.rounds,
+    }
+    return NestedOutcome(result, model, searched.fits + refits)

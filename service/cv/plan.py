@@ -12,6 +12,7 @@ import sklearn
 from service.cv.candidates import Candidate, enumerate_candidates
 from service.cv.columns import apply_column_types, order_values
 from service.cv.errors import SpecError
+from service.cv.halving_schedule import check_first_rounds, check_halving, refuse_as_units
 from service.cv.intervals import check_interval
 from service.cv.metrics import check_metrics
 from service.cv.preprocess import FeatureTable, check_preprocess, feature_table
@@ -158,8 +159,16 @@ def _split_inputs(
     return SplitInputs(y=y, groups=groups, order=order)
 
 
-def build_plan(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) -> SelectionPlan:
-    """Validate `spec` against `frame` and fix candidates and folds; raises SpecError."""
+def build_plan(
+    spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str], *, in_process: bool = False
+) -> SelectionPlan:
+    """Validate `spec` against `frame` and fix candidates and folds; raises SpecError.
+
+    Only a caller that runs the plan itself (nested.run_nested) passes `in_process`: the service
+    splits plans into stored work units, which halving does not have yet, so it is refused here.
+    """
+    if not in_process:
+        refuse_as_units(spec)
     if len(frame) < 4:
         raise SpecError("dataset", f"the table has {len(frame)} rows; nested CV needs more.")
     frame, kinds = apply_column_types(frame, kinds, spec.columns)
@@ -205,4 +214,9 @@ def build_plan(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) 
     inner[FINAL_SCOPE] = split_rows(
         spec.inner, all_rows, inputs, n_rows=n, versions=tag, field="inner"
     )
+    search_rows = [len(fold.train) for fold in outer] + [n]
+    check_halving(spec, len(candidates), search_rows, len(inner[FINAL_SCOPE]), n_classes)
+    searches = {fold.scope: (fold.train, inner[fold.scope]) for fold in outer}
+    searches[FINAL_SCOPE] = (all_rows, inner[FINAL_SCOPE])
+    check_first_rounds(spec, y, searches, len(candidates))
     return SelectionPlan(spec, candidates, table, y, outer, inner, inputs, versions, weights)

@@ -157,6 +157,45 @@ class IntervalSpec(_Strict):
         return self
 
 
+class SearchSpec(_Strict):
+    """How the inner search spends its fits: the full grid, or successive halving (halving.py).
+
+    Halving follows scikit-learn's HalvingGridSearchCV with resource="n_samples": `factor` is its
+    factor, `min_rows` its min_resources (None: its "exhaust" rule), `seed` its random_state.
+    """
+
+    strategy: Literal["grid", "halving"] = "grid"
+    factor: int = 3
+    min_rows: int | None = None
+    seed: int = Field(default=0, ge=0, le=2**32 - 1)  # which rows each round subsamples
+
+    @model_validator(mode="after")
+    def _consistent(self) -> SearchSpec:
+        if self.strategy == "grid":
+            # non-default values, not fields set: a request read back from the store has them all
+            defaults = SearchSpec.model_fields
+            given = [
+                n for n in ("factor", "min_rows", "seed") if getattr(self, n) != defaults[n].default
+            ]
+            if given:
+                raise ValueError(
+                    f"{given[0]}: only the halving strategy takes {given[0]}; remove it or set "
+                    "strategy to 'halving'"
+                )
+            return self
+        if self.factor < 2:
+            raise ValueError(
+                f"factor: {self.factor} is below 2 and each round keeps 1/factor of the "
+                "candidates; give a factor of at least 2, e.g. 3"
+            )
+        if self.min_rows is not None and self.min_rows < 1:
+            raise ValueError(
+                f"min_rows: {self.min_rows} rows cannot fit a model; give at least 1, or leave "
+                "it out for the default"
+            )
+        return self
+
+
 def _time_options(plan: SplitSpec) -> None:
     """gap, max_train_size and test_size belong to time_series alone."""
     if plan.method == "time_series":
@@ -190,6 +229,8 @@ class SelectionSpec(_Strict):
     slices: list[str] = Field(default_factory=list, max_length=20)
     # the interval on every estimate (service/cv/intervals.py); the default costs no extra fit
     interval: IntervalSpec = Field(default_factory=IntervalSpec)
+    # the inner search: every candidate on every inner fold, or successive halving (opt-in)
+    search: SearchSpec = Field(default_factory=SearchSpec)
 
     @model_validator(mode="after")
     def _consistent(self) -> SelectionSpec:
@@ -207,6 +248,11 @@ class SelectionSpec(_Strict):
             raise ValueError(
                 "train_fraction: subsampling draws rows at random, which would break the groups "
                 f"or time order of {sorted(ordered)[0]}; use kfold or stratified_kfold"
+            )
+        if self.search.strategy == "halving" and self.interval.method == "nested":
+            raise ValueError(
+                "interval: the nested interval reruns the full-grid search, not halving; use "
+                "the quick interval with the halving strategy"
             )
         return self
 

@@ -17,6 +17,7 @@ from typing import Any, Literal
 from sklearn.pipeline import Pipeline
 
 from service.cv.candidates import Candidate
+from service.cv.halving_schedule import refuse_as_units
 from service.cv.metrics import make_scorer_set
 from service.cv.plan import SelectionPlan
 from service.cv.predictions import capture, score_stored
@@ -96,6 +97,8 @@ def unit_folds(plan: SelectionPlan, ref: UnitRef) -> list[Fold]:
 
 def inner_units(plan: SelectionPlan) -> list[UnitRef]:
     """Every inner unit: each outer fold and the all-rows scope, times each candidate."""
+    # the full grid's units: a halving spec must never run as a grid without saying so
+    refuse_as_units(plan.spec)
     return [UnitRef("inner", scope, c.key) for scope in plan.scopes for c in plan.candidates]
 
 
