@@ -80,11 +80,17 @@ def estimate_strip(
     inner_best: float | None,
     label: str,
     bounds: Bounds = (None, None),
+    interval: tuple[float, float, str] | None = None,
 ) -> Markup:
-    """Every outer fold's score as a dot, the mean ± std as a band, the non-nested score apart."""
+    """Every outer fold's score as a dot, the mean ± std as a band, the non-nested score apart.
+
+    `interval` (lower, upper, its name in words) is drawn as a bracket under the dots, in a colour
+    of its own, so it is not read as the descriptive std band.
+    """
     height = 120
     low_band, high_band = clip(mean - std, bounds), clip(mean + std, bounds)
     everything = [*values, low_band, high_band, *([inner_best] if inner_best is not None else [])]
+    everything += list(interval[:2]) if interval is not None else []
     x = Scale(linear_axis(everything, bounds), PAD_LEFT, WIDTH - PAD_RIGHT)
     axis_y = 84
     parts = open_svg(height, label)
@@ -101,6 +107,8 @@ def estimate_strip(
         f'<line data-kind="mean" x1="{x(mean):.1f}" x2="{x(mean):.1f}" y1="22" y2="70" '
         f'stroke="{SERIES[0]}" stroke-width="3"><title>outer mean {_fmt(mean)}</title></line>'
     )
+    if interval is not None:
+        parts.append(_interval_bracket(x, *interval))
     for i, value in enumerate(values):
         # alternate rows so equal scores stay visible as separate dots
         cy = 40 if i % 2 == 0 else 52
@@ -118,6 +126,16 @@ def estimate_strip(
         )
     parts.append("</svg>")
     return Markup("".join(parts))
+
+
+def _interval_bracket(x: Scale, lower: float, upper: float, words: str) -> str:
+    """A bracket from lower to upper under the fold dots (y 66 to 78), its ends ticked upward."""
+    x0, x1 = x(lower), x(upper)
+    return (
+        f'<path data-kind="interval" data-lower="{lower!r}" data-upper="{upper!r}" '
+        f'd="M{x0:.1f} 68 V76 H{x1:.1f} V68" fill="none" stroke="{SERIES[2]}" '
+        f'stroke-width="3"><title>{escape(words)}: {_fmt(lower)} to {_fmt(upper)}</title></path>'
+    )
 
 
 @dataclass(frozen=True)
