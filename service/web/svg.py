@@ -259,14 +259,32 @@ def line_chart(
     return Markup("".join(parts))
 
 
-def difference_dots(points: Sequence[Point], *, label: str) -> Markup:
-    """Per-fold differences as dots around a zero line (positive favours the first job)."""
+def difference_dots(
+    points: Sequence[Point],
+    *,
+    label: str,
+    interval: tuple[float, float, str] | None = None,
+) -> Markup:
+    """Per-fold differences as dots around a zero line (positive favours the first job).
+
+    `interval` (lower, upper, its name in words) on the mean difference is a band across the plot.
+    """
     height = 160
-    values = [p.y for p in points]
+    values = [p.y for p in points] + (list(interval[:2]) if interval is not None else [])
     y = Scale(linear_axis([*values, 0.0]), height - PAD_BOTTOM, PAD_TOP)
     step = (WIDTH - PAD_LEFT - PAD_RIGHT) / max(1, len(points))
     parts = open_svg(height, label)
     _y_axis(parts, y, PAD_LEFT, WIDTH - PAD_RIGHT)
+    if interval is not None:
+        lower, upper, words = interval
+        top, bottom = y(upper), y(lower)
+        parts.append(
+            f'<rect data-kind="interval" data-lower="{lower!r}" data-upper="{upper!r}" '
+            f'x="{PAD_LEFT}" y="{top:.1f}" width="{WIDTH - PAD_LEFT - PAD_RIGHT}" '
+            f'height="{max(1.0, bottom - top):.1f}" fill="{SERIES[2]}" fill-opacity="0.16">'
+            f"<title>{escape(words)} on the mean difference: {_fmt(lower)} to {_fmt(upper)}"
+            "</title></rect>"
+        )
     parts.append(
         f'<line x1="{PAD_LEFT}" x2="{WIDTH - PAD_RIGHT}" y1="{y(0.0):.1f}" y2="{y(0.0):.1f}" '
         f'stroke="{INK}" stroke-width="2"/>'
