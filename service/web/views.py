@@ -67,6 +67,10 @@ def learning_page(session: Session, job: Job) -> dict[str, Any]:
         points = sorted(result["points"], key=lambda p: p["size"])
         labels = [f"{p['size']:.0%}" for p in points]
         context["points"] = points
+        band = next(
+            (p["error"].get("interval") for p in points if p["error"].get("interval")), None
+        )
+        context["interval_words"] = interval_words(band) if band else None
         context["chart"] = svg.band_chart(
             labels,
             [p["error"]["mean"] for p in points],
