@@ -94,6 +94,11 @@ def test_dataset_page_names_the_table_and_draws_comparable_jobs_apart(
     assert log_range_job not in [p["job"] for p in together]
     for job_id in (iris_job, second_job, repeat_job, log_range_job):
         assert page.locator(f'a[href="/reports/jobs/{job_id}"]').count() == 1
+        # the jobs table shows each estimate's interval (pick_by) as result v1 holds it
+        result = server.job(owner_token, job_id)["result"]
+        band = result["estimate"][result["pick_by"]]["interval"]
+        cell = page.locator(f'td[data-field="interval"][data-job="{job_id}"]').inner_text()
+        assert cell == f"{band['lower']:.4f} to {band['upper']:.4f}"
     # time labels: a short date over the time, and no two labels of a chart overlap
     boxes = page.eval_on_selector_all(
         "figure[data-group] svg",

@@ -125,6 +125,11 @@ class HistoryJob(BaseModel):
     pick_by: str | None
     mean: float | None = Field(description="Outer estimate of pick_by: mean over outer folds.")
     se: float | None = Field(description="Its standard error (descriptive; see the caveats).")
+    interval: dict[str, Any] | None = Field(
+        default=None,
+        description="The estimate's interval, as estimate[pick_by].interval in result v1 (null "
+        "when it has none).",
+    )
     final_pick: dict[str, Any] | None
 
 
