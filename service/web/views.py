@@ -141,6 +141,7 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
         context["pick"] = pick
         band = pick.get("interval")  # results from before intervals have no key at all
         context["interval_words"] = interval_words(band) if band else None
+        context["interval_predates"] = "interval" not in pick
         context["coverage"] = QUICK_COVERAGE if band and band["method"] == "quick" else None
         context["strip"] = svg.estimate_strip(
             pick["values"],

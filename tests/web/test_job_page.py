@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import copy
 import re
+import uuid
 from pathlib import Path
 from typing import Any
 
@@ -14,7 +16,7 @@ from sklearn.neighbors import KNeighborsClassifier
 from sqlalchemy import func, select
 
 from service.cv.intervals import QUICK_COVERAGE
-from service.store.models import FoldScore, JobCandidate, JobFold
+from service.store.models import FoldScore, Job, JobCandidate, JobFold
 
 from .conftest import KNN_GRID
 from .live import LiveServer
@@ -209,3 +211,44 @@ def test_interval_is_drawn_named_and_equal_to_the_result(
     at = [float(n) for n in re.findall(r"[MH]([\d.]+)", geometry["d"])]
     for value, pixel in zip((interval["lower"], interval["upper"]), at, strict=True):
         assert abs(p0 + (value - v0) / (v1 - v0) * (p1 - p0) - pixel) <= 0.2
+
+
+def test_a_result_from_before_intervals_says_so_and_draws_no_bracket(
+    browser: Any, server: LiveServer, owner_token: str, iris_job: str
+) -> None:
+    """A result stored by an earlier version (no interval key) gets a sentence, not a number.
+
+    The row is the iris job's own, written back under a new id with every interval removed, as
+    results stored before intervals existed look.
+    """
+    with server.sessions.begin() as session:
+        source = session.get_one(Job, iris_job)
+        result = copy.deepcopy(source.result)
+        assert result is not None
+        for row in result["estimate"].values():
+            del row["interval"]
+        old = Job(
+            id=uuid.uuid4().hex,
+            dataset_hash=source.dataset_hash,
+            status=source.status,
+            stage=source.stage,
+            request=source.request,
+            result=result,
+            team=source.team,
+            kind=source.kind,
+            finished_at=source.finished_at,
+        )
+        session.add(old)
+        old_id = old.id
+    page = browser.new_page()
+    errors = watch_console(page)
+    sign_in(page, server.base_url, owner_token, f"/reports/jobs/{old_id}")
+    line = page.locator('[data-field="interval"]').inner_text()
+    assert line.startswith("No interval: this result was computed before intervals existed")
+    assert marks(page, "interval") == []
+    assert len(marks(page, "outer-score")) == len(result["outer"])
+    cells = page.eval_on_selector_all(
+        '[data-field="interval-cell"]', "els => els.map(e => e.textContent)"
+    )
+    assert cells == ["not computed (earlier version)"] * len(result["estimate"])
+    assert errors == []
