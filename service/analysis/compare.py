@@ -14,8 +14,16 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from typing import Any
 
+import numpy as np
 from scipy import stats
+
+from service.cv.intervals import QUICK_SOURCE, corrected_t
+from service.cv.spec import IntervalSpec
+
+# The level of a comparison's interval: the same default as a job's estimate.
+DEFAULT_LEVEL = IntervalSpec().level
 
 CORRECTED_T = "corrected_resampled_t"
 WELCH_T = "welch_t"
@@ -42,7 +50,7 @@ SIGN_NOTE = (
 
 @dataclass(frozen=True)
 class PairedTest:
-    """The corrected resampled t-test on J per-fold differences."""
+    """The corrected resampled t-test on J per-fold differences, with its interval."""
 
     n_folds: int
     mean_difference: float
@@ -51,12 +59,13 @@ class PairedTest:
     t: float
     df: int
     p_value: float  # two-sided
+    interval: dict[str, Any]  # the quick interval on the mean difference, as result v1 has it
     test: str = CORRECTED_T
 
 
 @dataclass(frozen=True)
 class UnpairedTest:
-    """Welch's t-test on two independent sets of outer values."""
+    """Welch's t-test on two independent sets of outer values, with its interval."""
 
     n_left: int
     n_right: int
@@ -64,32 +73,33 @@ class UnpairedTest:
     t: float
     df: float
     p_value: float  # two-sided
+    interval: dict[str, Any] | None  # Welch's, from scipy; None when neither side varies
     test: str = WELCH_T
 
 
-def corrected_t_test(differences: Sequence[float], *, n_train: float, n_test: float) -> PairedTest:
-    """Nadeau & Bengio's corrected resampled t-test; t = 0 and p = 1 when every difference is 0."""
-    j = len(differences)
-    if j < 2:
+def corrected_t_test(
+    differences: Sequence[float], *, n_train: float, n_test: float, level: float = DEFAULT_LEVEL
+) -> PairedTest:
+    """Nadeau & Bengio's corrected resampled t-test; t = 0 and p = 1 when every difference is 0.
+
+    The arithmetic (variance, t quantile, bounds) is service.cv.intervals.corrected_t's, the
+    one formula the estimate's quick interval uses too.
+    """
+    if len(differences) < 2:
         raise ValueError("the corrected t-test needs at least two per-fold differences")
     if n_train <= 0 or n_test <= 0:
         raise ValueError("n_train and n_test must be positive")
-    mean = math.fsum(differences) / j
-    variance = math.fsum((d - mean) ** 2 for d in differences) / (j - 1)
     ratio = n_test / n_train
-    df = j - 1
-    if variance == 0.0:
-        # Identical differences leave no spread to scale by. All zero is no evidence of a
-        # difference (a job compared with itself); a constant non-zero shift is the strongest.
-        t = 0.0 if mean == 0.0 else math.copysign(math.inf, mean)
-        p = 1.0 if mean == 0.0 else 0.0
-    else:
-        t = mean / math.sqrt((1.0 / j + ratio) * variance)
-        p = float(2.0 * stats.t.sf(abs(t), df))
-    return PairedTest(j, mean, variance, ratio, t, df, min(1.0, p))
+    found = corrected_t(differences, ratio, level)
+    t, p = found.against_zero()
+    variance = float(np.var(np.asarray(differences, dtype="float64"), ddof=1))
+    interval = {**found.entry(level), "source": QUICK_SOURCE}
+    return PairedTest(len(differences), found.mean, variance, ratio, t, found.df, p, interval)
 
 
-def welch_t_test(left: Sequence[float], right: Sequence[float]) -> UnpairedTest:
+def welch_t_test(
+    left: Sequence[float], right: Sequence[float], level: float = DEFAULT_LEVEL
+) -> UnpairedTest:
     """Welch's unequal-variance t-test (two-sided) of mean(left) against mean(right)."""
     if len(left) < 2 or len(right) < 2:
         raise ValueError("Welch's t-test needs at least two values on each side")
@@ -98,11 +108,22 @@ def welch_t_test(left: Sequence[float], right: Sequence[float]) -> UnpairedTest:
         # scipy answers NaN when neither side varies; the answer is known without it
         t = 0.0 if mean_difference == 0.0 else math.copysign(math.inf, mean_difference)
         p = 1.0 if mean_difference == 0.0 else 0.0
-        return UnpairedTest(len(left), len(right), mean_difference, t, math.nan, p)
+        return UnpairedTest(len(left), len(right), mean_difference, t, math.nan, p, None)
     answer = stats.ttest_ind(left, right, equal_var=False)
     df = float(getattr(answer, "df", math.nan))
+    bounds = answer.confidence_interval(level)
+    t = float(answer.statistic)
+    interval = {
+        "method": "welch",
+        "level": level,
+        "lower": float(bounds.low),
+        "upper": float(bounds.high),
+        "se": math.sqrt(np.var(left, ddof=1) / len(left) + np.var(right, ddof=1) / len(right)),
+        "df": df,
+        "source": "Welch's t interval (Welch 1947), scipy.stats.ttest_ind",
+    }
     return UnpairedTest(
-        len(left), len(right), mean_difference, float(answer.statistic), df, float(answer.pvalue)
+        len(left), len(right), mean_difference, t, df, float(answer.pvalue), interval
     )
 
 

@@ -29,6 +29,7 @@ class HistoryPoint:
     pick_by: str | None
     mean: float | None  # outer estimate of pick_by
     se: float | None
+    interval: dict[str, Any] | None  # estimate[pick_by].interval of result v1, when it has one
     final_pick: dict[str, Any] | None  # candidate_key, estimator, params
 
 
@@ -56,12 +57,13 @@ class DatasetHistory:
 
 def _point(job: Any) -> HistoryPoint:
     result = job.result if job.status == JobStatus.SUCCEEDED else None
-    pick_by = mean = se = final = None
+    pick_by = mean = se = final = interval = None
     # a learning curve's parent has no single estimate or pick; it shows as a job without them
     if result and "final_pick" in result and result.get("pick_by") in result.get("estimate", {}):
         pick_by = result["pick_by"]
         estimate = result["estimate"][pick_by]
         mean, se = float(estimate["mean"]), float(estimate["se"])
+        interval = estimate.get("interval")  # absent from results made before intervals
         final = {k: result["final_pick"][k] for k in ("candidate_key", "estimator", "params")}
     return HistoryPoint(
         job_id=job.id,
@@ -73,6 +75,7 @@ def _point(job: Any) -> HistoryPoint:
         pick_by=pick_by,
         mean=mean,
         se=se,
+        interval=interval,
         final_pick=final,
     )
 

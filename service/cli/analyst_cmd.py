@@ -180,6 +180,9 @@ def compare(
     as_json: JsonOption = False,
 ) -> None:
     """Compare two jobs on one dataset: per-fold differences and a corrected t-test."""
+    # deferred for start-up: service.cv.intervals loads scipy, which `foldwise --help` must not
+    from service.cv.intervals import interval_words
+
     with _client() as client:
         comparison = client.get("/v1/compare", jobs=f"{first},{second}")
     if as_json:
@@ -201,6 +204,16 @@ def compare(
             _fmt(test["p_value"], ".3f"),
         )
     stdout.print(table)
+    # the interval on each difference, one unwrapped line a metric (as the job summary does)
+    for row in comparison["metrics"]:
+        band = row.get("interval")
+        line = (
+            f"{row['metric']}: {interval_words(band)} on the difference: "
+            f"{band['lower']:+.4f} to {band['upper']:+.4f}"
+            if band
+            else f"{row['metric']}: no interval on the difference (neither job's values vary)"
+        )
+        stdout.print(line, soft_wrap=True, highlight=False, markup=False)
     for caveat in comparison["caveats"]:
         stdout.print(f"  - {caveat}", highlight=False, soft_wrap=True)
 

@@ -17,6 +17,8 @@ from typing import Any
 
 from scipy import stats
 
+from service.cv import intervals
+
 ALPHA = 0.05
 PAIRED_TEST = "nadeau_bengio_corrected_t"
 UNPAIRED_TEST = "welch_t"
@@ -25,22 +27,16 @@ UNPAIRED_TEST = "welch_t"
 def corrected_t(
     differences: Sequence[float], n_train: float, n_test: float
 ) -> tuple[float, int, float]:
-    """Nadeau & Bengio's corrected resampled t: (t, df, two-sided p)."""
-    j = len(differences)
-    if j < 2:
+    """Nadeau & Bengio's corrected resampled t: (t, df, two-sided p).
+
+    The arithmetic is service.cv.intervals.corrected_t's (one formula for the estimate's
+    interval, /v1/compare and refreshes); NaN when there are fewer than two folds.
+    """
+    if len(differences) < 2:
         return math.nan, 0, math.nan
-    mean = sum(differences) / j
-    variance = sum((d - mean) ** 2 for d in differences) / (j - 1)
-    scale = math.sqrt((1 / j + n_test / n_train) * variance)
-    if scale == 0:
-        # identical differences on every fold: no noise to compare with
-        return (
-            (0.0 if mean == 0 else math.copysign(math.inf, mean)),
-            j - 1,
-            (1.0 if mean == 0 else 0.0),
-        )
-    t = mean / scale
-    return t, j - 1, float(2 * stats.t.sf(abs(t), j - 1))
+    found = intervals.corrected_t(differences, n_test / n_train, 0.9)  # level: not used for t
+    t, p = found.against_zero()
+    return t, found.df, p
 
 
 def welch_t(new: Sequence[float], old: Sequence[float]) -> tuple[float, float, float]:

@@ -12,6 +12,7 @@ from sqlalchemy.orm import Session
 from service.analysis.compare import Comparison, PairedTest
 from service.analysis.queries import compare_jobs
 from service.auth import Principal
+from service.cv.intervals import interval_words
 from service.errors import BadInput
 from service.web import svg
 
@@ -31,10 +32,16 @@ def _number(value: float) -> str:
     return f"{value:.4g}"
 
 
-def _differences_chart(metric: str, differences: list[float]) -> Markup:
+def _differences_chart(
+    metric: str, differences: list[float], interval: dict[str, Any] | None
+) -> Markup:
     points = [svg.Point(str(i), d, 1) for i, d in enumerate(differences)]
     return svg.difference_dots(
-        points, label=f"Per-fold {metric} difference, first job minus second"
+        points,
+        label=f"Per-fold {metric} difference, first job minus second",
+        interval=(interval["lower"], interval["upper"], interval_words(interval))
+        if interval
+        else None,
     )
 
 
@@ -63,7 +70,9 @@ def compare_page(session: Session, jobs: str, principal: Principal) -> dict[str,
                 "df": _number(float(test.df)),
                 "p": _number(test.p_value),
                 "mean_difference": test.mean_difference,
-                "chart": _differences_chart(item.metric, item.differences)
+                "interval": test.interval,
+                "interval_words": interval_words(test.interval) if test.interval else None,
+                "chart": _differences_chart(item.metric, item.differences, test.interval)
                 if item.differences is not None
                 else None,
             }

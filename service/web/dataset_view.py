@@ -125,6 +125,9 @@ def _row(point: HistoryPoint, job: Job, refresh_of: dict[str, str]) -> dict[str,
         "kind": kind,
         "metric": point.pick_by or "",
         "estimate": fmt(point.mean),
+        "interval": f"{fmt(point.interval['lower'])} to {fmt(point.interval['upper'])}"
+        if point.interval
+        else "none",
         "pick": describe(point.final_pick) if point.final_pick else "none",
     }
 

@@ -80,11 +80,17 @@ def estimate_strip(
     inner_best: float | None,
     label: str,
     bounds: Bounds = (None, None),
+    interval: tuple[float, float, str] | None = None,
 ) -> Markup:
-    """Every outer fold's score as a dot, the mean ± std as a band, the non-nested score apart."""
+    """Every outer fold's score as a dot, the mean ± std as a band, the non-nested score apart.
+
+    `interval` (lower, upper, its name in words) is drawn as a bracket under the dots, in a colour
+    of its own, so it is not read as the descriptive std band.
+    """
     height = 120
     low_band, high_band = clip(mean - std, bounds), clip(mean + std, bounds)
     everything = [*values, low_band, high_band, *([inner_best] if inner_best is not None else [])]
+    everything += list(interval[:2]) if interval is not None else []
     x = Scale(linear_axis(everything, bounds), PAD_LEFT, WIDTH - PAD_RIGHT)
     axis_y = 84
     parts = open_svg(height, label)
@@ -101,6 +107,8 @@ def estimate_strip(
         f'<line data-kind="mean" x1="{x(mean):.1f}" x2="{x(mean):.1f}" y1="22" y2="70" '
         f'stroke="{SERIES[0]}" stroke-width="3"><title>outer mean {_fmt(mean)}</title></line>'
     )
+    if interval is not None:
+        parts.append(_interval_bracket(x, *interval))
     for i, value in enumerate(values):
         # alternate rows so equal scores stay visible as separate dots
         cy = 40 if i % 2 == 0 else 52
@@ -118,6 +126,16 @@ def estimate_strip(
         )
     parts.append("</svg>")
     return Markup("".join(parts))
+
+
+def _interval_bracket(x: Scale, lower: float, upper: float, words: str) -> str:
+    """A bracket from lower to upper under the fold dots (y 66 to 78), its ends ticked upward."""
+    x0, x1 = x(lower), x(upper)
+    return (
+        f'<path data-kind="interval" data-lower="{lower!r}" data-upper="{upper!r}" '
+        f'd="M{x0:.1f} 68 V76 H{x1:.1f} V68" fill="none" stroke="{SERIES[2]}" '
+        f'stroke-width="3"><title>{escape(words)}: {_fmt(lower)} to {_fmt(upper)}</title></path>'
+    )
 
 
 @dataclass(frozen=True)
@@ -241,14 +259,32 @@ def line_chart(
     return Markup("".join(parts))
 
 
-def difference_dots(points: Sequence[Point], *, label: str) -> Markup:
-    """Per-fold differences as dots around a zero line (positive favours the first job)."""
+def difference_dots(
+    points: Sequence[Point],
+    *,
+    label: str,
+    interval: tuple[float, float, str] | None = None,
+) -> Markup:
+    """Per-fold differences as dots around a zero line (positive favours the first job).
+
+    `interval` (lower, upper, its name in words) on the mean difference is a band across the plot.
+    """
     height = 160
-    values = [p.y for p in points]
+    values = [p.y for p in points] + (list(interval[:2]) if interval is not None else [])
     y = Scale(linear_axis([*values, 0.0]), height - PAD_BOTTOM, PAD_TOP)
     step = (WIDTH - PAD_LEFT - PAD_RIGHT) / max(1, len(points))
     parts = open_svg(height, label)
     _y_axis(parts, y, PAD_LEFT, WIDTH - PAD_RIGHT)
+    if interval is not None:
+        lower, upper, words = interval
+        top, bottom = y(upper), y(lower)
+        parts.append(
+            f'<rect data-kind="interval" data-lower="{lower!r}" data-upper="{upper!r}" '
+            f'x="{PAD_LEFT}" y="{top:.1f}" width="{WIDTH - PAD_LEFT - PAD_RIGHT}" '
+            f'height="{max(1.0, bottom - top):.1f}" fill="{SERIES[2]}" fill-opacity="0.16">'
+            f"<title>{escape(words)} on the mean difference: {_fmt(lower)} to {_fmt(upper)}"
+            "</title></rect>"
+        )
     parts.append(
         f'<line x1="{PAD_LEFT}" x2="{WIDTH - PAD_RIGHT}" y1="{y(0.0):.1f}" y2="{y(0.0):.1f}" '
         f'stroke="{INK}" stroke-width="2"/>'

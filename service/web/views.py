@@ -8,6 +8,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.cv.cautions import PEOPLE_PREFIX
+from service.cv.intervals import QUICK_COVERAGE, interval_words
 from service.store.models import Job
 from service.store.statuses import LIVE_JOB, JobStatus
 from service.web import job_state, svg, svg_grid, validation_curves
@@ -66,6 +67,10 @@ def learning_page(session: Session, job: Job) -> dict[str, Any]:
         points = sorted(result["points"], key=lambda p: p["size"])
         labels = [f"{p['size']:.0%}" for p in points]
         context["points"] = points
+        band = next(
+            (p["error"].get("interval") for p in points if p["error"].get("interval")), None
+        )
+        context["interval_words"] = interval_words(band) if band else None
         context["chart"] = svg.band_chart(
             labels,
             [p["error"]["mean"] for p in points],
@@ -134,6 +139,10 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
     if result:
         pick = result["estimate"][metric]
         context["pick"] = pick
+        band = pick.get("interval")  # results from before intervals have no key at all
+        context["interval_words"] = interval_words(band) if band else None
+        context["interval_predates"] = "interval" not in pick
+        context["coverage"] = QUICK_COVERAGE if band and band["method"] == "quick" else None
         context["strip"] = svg.estimate_strip(
             pick["values"],
             pick["mean"],
@@ -141,6 +150,7 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
             inner_best=result["final_pick"]["inner_mean"],
             label=f"Outer fold {metric} of the picked candidates, mean {fmt(pick['mean'])}",
             bounds=bounds,
+            interval=(band["lower"], band["upper"], interval_words(band)) if band else None,
         )
         picked = {row["candidate_key"]: row["count"] for row in result["pick_frequency"]}
         items = [(describe(c.__dict__), picked.get(c.key, 0)) for c in candidates]

@@ -138,6 +138,14 @@ def test_compare_as_json_and_readable(
     assert (
         "corrected resampled t-test" in readable.stdout and "balanced_accuracy" in readable.stdout
     )
+    # each metric's interval on the difference, as the API answered it
+    for row in json.loads(ran.stdout)["metrics"]:
+        band = row["interval"]
+        line = (
+            f"{row['metric']}: 90% interval, corrected resampled t — no extra fits on the "
+            f"difference: {band['lower']:+.4f} to {band['upper']:+.4f}"
+        )
+        assert line in readable.stdout.splitlines()
 
 
 def test_report_prints_and_opens_the_page(

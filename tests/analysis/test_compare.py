@@ -129,6 +129,49 @@ def test_two_jobs_on_the_same_folds_get_the_corrected_test(seeded: Seeded) -> No
         assert test["p_value"] == pytest.approx(2 * stats.t.sf(abs(t), j - 1))
 
 
+def test_the_difference_carries_the_quick_interval_by_hand(seeded: Seeded) -> None:
+    """/v1/compare's interval on the mean difference equals a hand computation with scipy's t.
+
+    Source: Nadeau & Bengio (2003), Machine Learning 52:239-281, the corrected resampled t:
+    se = sqrt((1/J + n_test/n_train) * s^2) over the J per-fold differences, df = J - 1,
+    bounds mean -/+ t_{df}(0.5 + level/2) * se; the default level is 0.9, as for an estimate.
+    """
+    a, b = seeded.jobs["A"], seeded.jobs["B"]
+    body = _compare(seeded, seeded.lab, f"{a['id']},{b['id']}").json()
+    checked = 0
+    for row in body["metrics"]:
+        metric = row["metric"]
+        left = np.array([f["scores"][metric] for f in a["result"]["outer"]])
+        right = np.array([f["scores"][metric] for f in b["result"]["outer"]])
+        d = left - right
+        j, ratio = 6, 50 / 100  # 2 repeats x 3 folds of iris; 50 test rows, 100 training rows
+        se = math.sqrt((1 / j + ratio) * d.var(ddof=1))
+        half = stats.t.ppf(0.95, j - 1) * se
+        interval = row["interval"]
+        assert set(interval) == {"method", "level", "lower", "upper", "se", "df", "source"}
+        assert (interval["method"], interval["level"], interval["df"]) == ("quick", 0.9, j - 1)
+        assert "Nadeau & Bengio 2003" in interval["source"]
+        assert interval["se"] == pytest.approx(se, rel=1e-12, abs=1e-15)
+        assert interval["lower"] == pytest.approx(d.mean() - half, rel=1e-12, abs=1e-15)
+        assert interval["upper"] == pytest.approx(d.mean() + half, rel=1e-12, abs=1e-15)
+        checked += d.var(ddof=1) > 0
+    assert checked >= 1  # at least one metric whose differences vary, so the width is tested
+
+
+def test_different_folds_get_welch_s_interval(seeded: Seeded) -> None:
+    """Different folds: Welch's interval, equal to scipy's ttest_ind confidence interval."""
+    a, c = seeded.jobs["A"], seeded.jobs["C"]
+    body = _compare(seeded, seeded.lab, f"{a['id']},{c['id']}").json()
+    for row in body["metrics"]:
+        left = [f["scores"][row["metric"]] for f in a["result"]["outer"]]
+        right = [f["scores"][row["metric"]] for f in c["result"]["outer"]]
+        # Reference: scipy.stats.ttest_ind(equal_var=False).confidence_interval (Welch 1947)
+        reference = stats.ttest_ind(left, right, equal_var=False).confidence_interval(0.9)
+        assert row["interval"]["method"] == "welch"
+        assert row["interval"]["lower"] == pytest.approx(float(reference.low))
+        assert row["interval"]["upper"] == pytest.approx(float(reference.high))
+
+
 def test_a_job_compared_with_itself_gives_p_one(seeded: Seeded) -> None:
     a = seeded.jobs["A"]["id"]
     body = _compare(seeded, seeded.lab, f"{a},{a}").json()
@@ -136,6 +179,7 @@ def test_a_job_compared_with_itself_gives_p_one(seeded: Seeded) -> None:
     for row in body["metrics"]:
         assert row["differences"] == [0.0] * 6
         assert row["test"]["t"] == 0.0 and row["test"]["p_value"] == 1.0
+        assert row["interval"]["lower"] == row["interval"]["upper"] == 0.0
 
 
 def test_different_folds_get_the_weaker_welch_statement(seeded: Seeded) -> None:

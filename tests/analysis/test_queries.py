@@ -139,6 +139,7 @@ def test_history_lists_jobs_oldest_first_with_estimates_and_refreshes(seeded: Se
         result = by_id[point["job_id"]]["result"]
         estimate = result["estimate"][result["pick_by"]]
         assert (point["mean"], point["se"]) == (estimate["mean"], estimate["se"])
+        assert point["interval"] == estimate["interval"] and point["interval"]["method"] == "quick"
         assert point["final_pick"]["candidate_key"] == result["final_pick"]["candidate_key"]
     assert [p["schedule_id"] for p in body["jobs"]].count(SCHEDULE_ID) == 1
     refreshes = _sql(seeded, "SELECT id FROM refresh WHERE dataset_hash = :h", h=iris)

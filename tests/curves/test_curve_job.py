@@ -8,6 +8,7 @@ from typing import Any
 
 import numpy as np
 import pytest
+from scipy import stats
 from sqlalchemy import select
 
 from service.config import load_settings
@@ -92,6 +93,36 @@ def test_error_is_one_minus_accuracy_and_does_not_rise_with_more_data(finished: 
     # and on this table more data does help the linear model: about 0.98 accuracy at 100 %
     # (docs/references.md, a loose sanity range of 0.93-0.99 for breast cancer)
     assert 0.01 <= errors[-1] <= 0.07, errors
+
+
+def test_each_point_carries_its_interval_on_the_score_and_on_the_error(finished: Any) -> None:
+    """Every size: the quick interval by hand, and the error's bounds mapped by 1 - score.
+
+    Source: Nadeau & Bengio (2003), Machine Learning 52:239-281, corrected resampled t:
+    se = sqrt((1/J + n_test/n_train) * s^2), df = J - 1, mean -/+ t_{df}(0.95) * se at level 0.9,
+    n_test/n_train from the size's own (subsampled) folds; accuracy bounds cut to [0, 1].
+    """
+    settings, result, _ = finished
+    children = {j.id: j for j in _jobs(settings)}
+    for point in result["points"]:
+        child = children[point["job_id"]].result
+        assert child is not None
+        outer = child["outer"]
+        values = np.array(point["estimate"]["values"])
+        ratio = sum(r["n_test"] for r in outer) / sum(r["n_train"] for r in outer)
+        se = np.sqrt((1 / len(values) + ratio) * values.var(ddof=1))
+        half = stats.t.ppf(0.95, len(values) - 1) * se
+        score = point["estimate"]["interval"]
+        assert score == child["estimate"]["accuracy"]["interval"]
+        assert (score["method"], score["level"], score["df"]) == ("quick", 0.9, len(values) - 1)
+        assert score["se"] == pytest.approx(se)
+        assert score["lower"] == pytest.approx(max(0.0, values.mean() - half))
+        assert score["upper"] == pytest.approx(min(1.0, values.mean() + half))
+        error = point["error"]["interval"]
+        assert error["lower"] == pytest.approx(1 - score["upper"])
+        assert error["upper"] == pytest.approx(1 - score["lower"])
+        assert error["lower"] <= point["error"]["mean"] <= error["upper"]
+        assert (error["method"], error["level"], error["se"]) == ("quick", 0.9, score["se"])
 
 
 def test_the_full_size_child_equals_an_ordinary_selection(finished: Any, tmp_path: Path) -> None:

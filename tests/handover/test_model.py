@@ -107,6 +107,14 @@ def test_the_model_card_says_what_the_result_says(handover: Handover) -> None:
     ):
         assert heading in text
     assert result["final_pick"]["model_sha256"] in text
+    # each metric's row carries its interval as result v1 holds it (quick, level 0.9)
+    for metric, row in result["estimate"].items():
+        band = row["interval"]
+        assert (
+            f"| {metric} | {row['mean']:.4f} | {band['lower']:.4f} to {band['upper']:.4f} (90%) |"
+            in text
+        )
+    assert "corrected resampled t (Nadeau & Bengio 2003" in text
 
 
 @pytest.mark.parametrize("route", ROUTES)

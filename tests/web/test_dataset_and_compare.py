@@ -18,7 +18,7 @@ from service.store.models import JobCandidate
 
 from .conftest import IRIS_JOB
 from .live import LiveServer
-from .pages import check_page, marks, sign_in, watch_console
+from .pages import check_page, sign_in, watch_console
 
 
 @pytest.fixture(scope="module")
@@ -94,6 +94,11 @@ def test_dataset_page_names_the_table_and_draws_comparable_jobs_apart(
     assert log_range_job not in [p["job"] for p in together]
     for job_id in (iris_job, second_job, repeat_job, log_range_job):
         assert page.locator(f'a[href="/reports/jobs/{job_id}"]').count() == 1
+        # the jobs table shows each estimate's interval (pick_by) as result v1 holds it
+        result = server.job(owner_token, job_id)["result"]
+        band = result["estimate"][result["pick_by"]]["interval"]
+        cell = page.locator(f'td[data-field="interval"][data-job="{job_id}"]').inner_text()
+        assert cell == f"{band['lower']:.4f} to {band['upper']:.4f}"
     # time labels: a short date over the time, and no two labels of a chart overlap
     boxes = page.eval_on_selector_all(
         "figure[data-group] svg",
@@ -119,7 +124,13 @@ def test_a_log_range_is_drawn_on_a_log_axis(
     page = browser.new_page()
     sign_in(page, server.base_url, owner_token, f"/reports/jobs/{log_range_job}")
     assert page.locator('[data-kind="log-axis"]').count() == 1
-    ticks = [float(t["value"]) for t in marks(page, "x-tick") if t.get("value")]
+    # only the log-scale chart's ticks: the fold strip above it has x ticks of its own (its axis
+    # can end at 1, a power of ten, when the estimate's interval reaches it)
+    ticks = page.eval_on_selector(
+        'svg:has([data-kind="log-axis"])',
+        """s => Array.from(s.querySelectorAll('[data-kind="x-tick"]'))
+                    .map(e => +e.dataset.value)""",
+    )
     curve_ticks = [t for t in ticks if t > 0 and math.log10(t) == round(math.log10(t))]
     assert curve_ticks[0] <= 0.001 and curve_ticks[-1] >= 100
     drawn = server.job(owner_token, log_range_job)["result"]["pick_frequency"]
@@ -157,6 +168,19 @@ def test_comparison_page_shows_the_corrected_t_test(
         p = 2 * stats.t.sf(abs(t), len(d) - 1)
         assert shown_t == f"{t:.4g}"
         assert section.locator('[data-field="p"]').inner_text() == f"p = {p:.4g}"
+    # The interval on the mean difference, same source: mean -/+ t_{J-1}(0.95) * se at level 0.9
+    se = math.sqrt((1 / len(d) + ratio) * d.var(ddof=1))
+    half = stats.t.ppf(0.95, len(d) - 1) * se
+    line = section.locator('[data-field="interval"]')
+    assert line.locator('[data-field="method"]').inner_text() == (
+        "90% interval, corrected resampled t — no extra fits"
+    )
+    assert line.locator('[data-field="lower"]').inner_text() == f"{d.mean() - half:+.4f}"
+    assert line.locator('[data-field="upper"]').inner_text() == f"{d.mean() + half:+.4f}"
+    band = section.locator('svg [data-kind="interval"]')
+    assert band.count() == 1
+    assert float(band.get_attribute("data-lower") or "nan") == pytest.approx(d.mean() - half)
+    assert float(band.get_attribute("data-upper") or "nan") == pytest.approx(d.mean() + half)
     # a job compared with itself: every difference is zero, p = 1
     page.goto(f"{server.base_url}/reports/compare?jobs={iris_job},{iris_job}")
     assert page.locator('section:has(h2:text-is("accuracy")) [data-field="p"]').inner_text() == (

@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import copy
+import re
+import uuid
 from pathlib import Path
 from typing import Any
 
@@ -12,7 +15,8 @@ from sklearn.model_selection import GridSearchCV, StratifiedKFold
 from sklearn.neighbors import KNeighborsClassifier
 from sqlalchemy import func, select
 
-from service.store.models import FoldScore, JobCandidate, JobFold
+from service.cv.intervals import QUICK_COVERAGE
+from service.store.models import FoldScore, Job, JobCandidate, JobFold
 
 from .conftest import KNN_GRID
 from .live import LiveServer
@@ -167,3 +171,84 @@ def test_estimate_optimism_gap_and_cautions_are_shown(
     for caution in result["cautions"]:
         assert caution in text
     assert "Before this model decides about people" not in text  # iris has no such column
+
+
+def test_interval_is_drawn_named_and_equal_to_the_result(
+    job_page: Any, server: LiveServer, owner_token: str, iris_job: str
+) -> None:
+    """The quick interval's bounds as in result v1, its method in words, a bracket on the strip.
+
+    The bracket's ends must sit where the strip's own x ticks put those values (linear axis).
+    """
+    interval = server.job(owner_token, iris_job)["result"]["estimate"]["accuracy"]["interval"]
+    assert interval["method"] == "quick" and interval["level"] == 0.9
+    line = job_page.locator('[data-field="interval"]')
+    assert line.locator('[data-field="lower"]').inner_text() == f"{interval['lower']:.4f}"
+    assert line.locator('[data-field="upper"]').inner_text() == f"{interval['upper']:.4f}"
+    text = line.inner_text()
+    assert "90% interval, corrected resampled t — no extra fits" in text
+    assert QUICK_COVERAGE in text
+    cells = job_page.eval_on_selector_all(
+        '[data-field="interval-cell"]', "els => els.map(e => e.textContent)"
+    )
+    assert cells[0] == f"{interval['lower']:.4f} to {interval['upper']:.4f} (90%)"
+    caption = job_page.locator("caption").first.inner_text()
+    assert "descriptive, not a confidence interval" in caption
+    drawn = marks(job_page, "interval")
+    assert len(drawn) == 1
+    assert float(drawn[0]["lower"]) == interval["lower"]
+    assert float(drawn[0]["upper"]) == interval["upper"]
+    geometry = job_page.eval_on_selector(
+        'svg:has([data-kind="interval"])',
+        """s => ({d: s.querySelector('[data-kind="interval"]').getAttribute('d'),
+                  stroke: s.querySelector('[data-kind="interval"]').getAttribute('stroke'),
+                  spread: s.querySelector('[data-kind="spread"]').getAttribute('fill'),
+                  ticks: Array.from(s.querySelectorAll('[data-kind="x-tick"]'))
+                              .map(e => [+e.dataset.value, +e.getAttribute('x')])})""",
+    )
+    assert geometry["stroke"] != geometry["spread"]  # not the descriptive band's colour
+    (v0, p0), (v1, p1) = geometry["ticks"][0], geometry["ticks"][-1]
+    at = [float(n) for n in re.findall(r"[MH]([\d.]+)", geometry["d"])]
+    for value, pixel in zip((interval["lower"], interval["upper"]), at, strict=True):
+        assert abs(p0 + (value - v0) / (v1 - v0) * (p1 - p0) - pixel) <= 0.2
+
+
+def test_a_result_from_before_intervals_says_so_and_draws_no_bracket(
+    browser: Any, server: LiveServer, owner_token: str, iris_job: str
+) -> None:
+    """A result stored by an earlier version (no interval key) gets a sentence, not a number.
+
+    The row is the iris job's own, written back under a new id with every interval removed, as
+    results stored before intervals existed look.
+    """
+    with server.sessions.begin() as session:
+        source = session.get_one(Job, iris_job)
+        result = copy.deepcopy(source.result)
+        assert result is not None
+        for row in result["estimate"].values():
+            del row["interval"]
+        old = Job(
+            id=uuid.uuid4().hex,
+            dataset_hash=source.dataset_hash,
+            status=source.status,
+            stage=source.stage,
+            request=source.request,
+            result=result,
+            team=source.team,
+            kind=source.kind,
+            finished_at=source.finished_at,
+        )
+        session.add(old)
+        old_id = old.id
+    page = browser.new_page()
+    errors = watch_console(page)
+    sign_in(page, server.base_url, owner_token, f"/reports/jobs/{old_id}")
+    line = page.locator('[data-field="interval"]').inner_text()
+    assert line.startswith("No interval: this result was computed before intervals existed")
+    assert marks(page, "interval") == []
+    assert len(marks(page, "outer-score")) == len(result["outer"])
+    cells = page.eval_on_selector_all(
+        '[data-field="interval-cell"]', "els => els.map(e => e.textContent)"
+    )
+    assert cells == ["not computed (earlier version)"] * len(result["estimate"])
+    assert errors == []

@@ -35,5 +35,16 @@ def test_learning_curve_page_draws_one_point_per_size(
     assert min(ticks) >= 0.0
     lows = [p["error"]["mean"] - p["error"]["std"] for p in result["points"]]
     assert float(band[0]["low"]) == max(0.0, min(lows))
+    # each size's interval on the error, as the curve's result holds it (its bounds mapped from
+    # the score's by 1 - accuracy: tests/curves/test_curve_job.py checks that by hand)
+    shown = page.eval_on_selector_all(
+        '[data-field="error-interval"]', "els => els.map(e => e.textContent)"
+    )
+    ordered = sorted(result["points"], key=lambda p: p["size"])
+    assert shown == [
+        f"{p['error']['interval']['lower']:.4f} to {p['error']['interval']['upper']:.4f}"
+        for p in ordered
+    ]
+    assert "90% interval, corrected resampled t — no extra fits" in page.inner_text("main")
     check_page(page, "learning-curve", output_dir)
     assert errors == []

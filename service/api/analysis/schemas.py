@@ -25,6 +25,21 @@ class TestPublic(BaseModel):
     test_train_ratio: float | None = Field(description="n_test / n_train, the correction term.")
 
 
+class IntervalPublic(BaseModel):
+    """An interval on the mean difference, in the shape of result v1's estimate interval."""
+
+    method: str = Field(
+        description="quick (corrected resampled t over the paired folds) or welch (different "
+        "folds)."
+    )
+    level: float
+    lower: float
+    upper: float
+    se: float
+    df: float
+    source: str
+
+
 class MetricComparisonPublic(BaseModel):
     """Both jobs' outer values for one metric, their per-fold differences and the test."""
 
@@ -34,6 +49,10 @@ class MetricComparisonPublic(BaseModel):
     left_mean: float
     right_mean: float
     differences: list[float] | None = Field(description="Per fold; null when the folds differ.")
+    interval: IntervalPublic | None = Field(
+        description="On the mean difference, first job minus second; null when neither job's "
+        "values vary across different folds."
+    )
     test: TestPublic
 
 
@@ -70,6 +89,7 @@ def comparison_public(comparison: Comparison) -> ComparisonPublic:
                 left_mean=item.left_mean,
                 right_mean=item.right_mean,
                 differences=item.differences,
+                interval=IntervalPublic(**test.interval) if test.interval else None,
                 test=TestPublic(
                     test=test.test,
                     mean_difference=test.mean_difference,
@@ -105,6 +125,11 @@ class HistoryJob(BaseModel):
     pick_by: str | None
     mean: float | None = Field(description="Outer estimate of pick_by: mean over outer folds.")
     se: float | None = Field(description="Its standard error (descriptive; see the caveats).")
+    interval: dict[str, Any] | None = Field(
+        default=None,
+        description="The estimate's interval, as estimate[pick_by].interval in result v1 (null "
+        "when it has none).",
+    )
     final_pick: dict[str, Any] | None
 
 

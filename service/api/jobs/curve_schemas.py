@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Literal
+from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field
 
@@ -18,6 +18,11 @@ class Spread(_Open):
     std: float
     se: float
     values: list[float]
+    interval: dict[str, Any] | None = Field(
+        default=None,
+        description="The size's interval, as estimate[metric].interval in result v1; on the "
+        "error, its bounds mapped by error_formula (null when the size's job had none).",
+    )
 
 
 class CurvePoint(_Open):

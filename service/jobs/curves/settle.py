@@ -40,9 +40,24 @@ def error_formula(metric: str) -> str:
     return f"-{metric}" if metric.startswith("neg_") else f"1 - {metric}"
 
 
-def _as_error(metric: str, values: list[float]) -> dict[str, Any]:
-    errors = [-v if metric.startswith("neg_") else 1.0 - v for v in values]
-    return describe_values(errors)
+def _as_error(metric: str, estimate: dict[str, Any]) -> dict[str, Any]:
+    """The estimate as an error, its interval carried over by the same decreasing map.
+
+    Both error formulas (-score, 1 - score) reverse the order, so the score's upper bound gives
+    the error's lower bound; the se and df are unchanged (the map has slope -1).
+    """
+    negated = metric.startswith("neg_")
+    errors = [-v if negated else 1.0 - v for v in estimate["values"]]
+    out = describe_values(errors)
+    band = estimate.get("interval")  # null when the size's job could not serve one
+    if band is not None:
+        low, high = (
+            (-band["upper"], -band["lower"]) if negated else (1 - band["upper"], 1 - band["lower"])
+        )
+        out["interval"] = {**band, "lower": low, "upper": high}
+    else:
+        out["interval"] = None
+    return out
 
 
 def curve_result(parent: Job, children: list[Job]) -> dict[str, Any]:
@@ -53,7 +68,6 @@ def curve_result(parent: Job, children: list[Job]) -> dict[str, Any]:
     for child in children:
         result = child.result or {}
         outer = result["outer"]
-        values = result["estimate"][metric]["values"]
         points.append(
             {
                 "size": float(child.request.get("train_fraction", 1.0)),
@@ -61,7 +75,7 @@ def curve_result(parent: Job, children: list[Job]) -> dict[str, Any]:
                 "n_train_mean": sum(row["n_train"] for row in outer) / len(outer),
                 "n_test_mean": sum(row["n_test"] for row in outer) / len(outer),
                 "estimate": result["estimate"][metric],
-                "error": _as_error(metric, values),
+                "error": _as_error(metric, result["estimate"][metric]),
             }
         )
     return {

@@ -106,6 +106,34 @@ def _fmt(value: Any) -> str:
     return f"{value:.4f}" if isinstance(value, float) else str(value)
 
 
+def _interval(found: dict[str, Any] | None) -> str:
+    """'0.9123 to 0.9567 (90%)', or why there is none."""
+    if not found:
+        return "none"
+    return f"{found['lower']:.4f} to {found['upper']:.4f} ({found['level'] * 100:g}%)"
+
+
+def _metric_lines(estimate: dict[str, Any]) -> list[str]:
+    """The Metrics table, one row a metric with its interval, and which interval it is."""
+    lines = ["| metric | mean | interval | std | SE |", "| --- | --- | --- | --- | --- |"]
+    for metric, row in estimate.items():
+        lines.append(
+            f"| {metric} | {_fmt(row['mean'])} | {_interval(row.get('interval'))} | "
+            f"{_fmt(row['std'])} | {_fmt(row['se'])} |"
+        )
+    source = next((r["interval"]["source"] for r in estimate.values() if r.get("interval")), None)
+    lines += [
+        "",
+        "Quote the interval; std and SE are descriptive. "
+        + (
+            f"Interval: {source}."
+            if source
+            else "No metric has an interval (see the ethical considerations for why)."
+        ),
+    ]
+    return lines
+
+
 def card_markdown(card: dict[str, Any]) -> str:
     """The card as Markdown, in the same sections and order."""
     details = card["model_details"]
@@ -129,11 +157,8 @@ def card_markdown(card: dict[str, Any]) -> str:
         *[f"- `{c['name']}` ({c['kind']})" for c in card["inputs"]],
         "",
         "## Metrics (nested cross-validation estimate)",
-        "| metric | mean | std | SE |",
-        "| --- | --- | --- | --- |",
+        *_metric_lines(card["metrics"]["estimate"]),
     ]
-    for metric, row in card["metrics"]["estimate"].items():
-        lines.append(f"| {metric} | {_fmt(row['mean'])} | {_fmt(row['std'])} | {_fmt(row['se'])} |")
     data = card["evaluation_data"]
     analyses = card["quantitative_analyses"]
     lines += [
