@@ -13,7 +13,6 @@ import threading
 from concurrent.futures import Future, ProcessPoolExecutor
 from typing import Any
 
-from sqlalchemy import select
 from threadpoolctl import threadpool_limits
 
 from service.config import Settings
@@ -22,13 +21,11 @@ from service.jobs.audits.audit import run_audit
 from service.jobs.execution.execute import UnitReport, worker_name
 from service.jobs.execution.reconcile import reconcile
 from service.jobs.execution.work import run_and_advance
-from service.jobs.lifecycle import release_claims
+from service.jobs.lifecycle import queued_units_of_live_jobs, release_claims
 from service.notify.delivery import deliver_due
 from service.processes import die_with_parent, stop_pool
 from service.schedules.tick import tick_schedules
 from service.store.db import make_engine, make_session_factory
-from service.store.models import Job, WorkUnit
-from service.store.statuses import LIVE_JOB, UnitStatus
 
 log = logging.getLogger(__name__)
 _child: dict[str, Any] = {}
@@ -105,13 +102,8 @@ class LocalPool:
 
     def _queued(self) -> list[int]:
         with self._sessions() as session:
-            ids = session.scalars(
-                select(WorkUnit.id)
-                .join(Job, Job.id == WorkUnit.job_id)
-                .where(WorkUnit.status == UnitStatus.QUEUED, Job.status.in_(LIVE_JOB))
-                .order_by(WorkUnit.id)
-            )
-            return [i for i in ids if i not in self._inflight]
+            ids = queued_units_of_live_jobs(session)
+        return [i for i in ids if i not in self._inflight]
 
     def _loop(self) -> None:
         while not self._stop.is_set():

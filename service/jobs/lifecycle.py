@@ -47,6 +47,18 @@ def queued_unit_ids(session: Session, job_id: str) -> list[int]:
     )
 
 
+def queued_units_of_live_jobs(session: Session) -> list[int]:
+    """Every queued unit of a queued or running job, oldest first: what a local pool hands out."""
+    return list(
+        session.scalars(
+            select(WorkUnit.id)
+            .join(Job, Job.id == WorkUnit.job_id)
+            .where(WorkUnit.status == UnitStatus.QUEUED, Job.status.in_(LIVE_JOB))
+            .order_by(WorkUnit.id)
+        )
+    )
+
+
 def units_not_done(session: Session, job_id: str) -> int:
     """How many of the job's units are not done (queued, running, failed or cancelled)."""
     count = session.scalar(
