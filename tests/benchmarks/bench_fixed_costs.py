@@ -20,15 +20,15 @@ from __future__ import annotations
 
 import argparse
 import json
-import os
 import shutil
 import statistics
-import subprocess
 import sys
 import tempfile
-import time
 from pathlib import Path
 from typing import Any
+
+from whole_process import clean_env, foldwise_command
+from whole_process import timed as timed_run
 
 TOLERANCE = 1e-9
 STORE_GOAL_SECONDS = 1.5
@@ -123,28 +123,8 @@ def build_task(folder: Path) -> tuple[Path, Path]:
     return csv, job_path
 
 
-def _env(home: Path | None = None) -> dict[str, str]:
-    # the embedded default: no configured database, broker or data roots
-    env = {k: v for k, v in os.environ.items() if not k.startswith("FOLDWISE_")}
-    if home is not None:
-        env["FOLDWISE_HOME"] = str(home)
-    return env
-
-
-def _foldwise() -> list[str]:
-    script = Path(sys.executable).with_name("foldwise")
-    return [str(script)] if script.exists() else [sys.executable, "-m", "service.cli.main"]
-
-
 def _timed(command: list[str], *, env: dict[str, str], cwd: Path) -> tuple[float, str]:
-    started = time.perf_counter()
-    done = subprocess.run(
-        command, env=env, cwd=cwd, capture_output=True, text=True, timeout=RUN_TIMEOUT_SECONDS
-    )
-    seconds = time.perf_counter() - started
-    if done.returncode != 0:
-        sys.exit(f"{' '.join(command)} exited {done.returncode}:\n{done.stderr[-3000:]}")
-    return seconds, done.stdout
+    return timed_run(command, env=env, cwd=cwd, timeout=RUN_TIMEOUT_SECONDS)
 
 
 def same_work(result: dict[str, Any], reference: dict[str, Any]) -> list[str]:
@@ -166,19 +146,19 @@ def same_work(result: dict[str, Any], reference: dict[str, Any]) -> list[str]:
 def one_round(folder: Path, csv: Path, job: Path, index: int) -> dict[str, float]:
     """Every measurement once; the first run and the reference swap order on odd rounds."""
     home = folder / "homes" / f"r{index}"
-    select = [*_foldwise(), "select", str(job), "--json"]
+    select = [*foldwise_command(), "select", str(job), "--json"]
     seconds: dict[str, float] = {}
     outputs: dict[str, Any] = {}
-    seconds["help"], _ = _timed([*_foldwise(), "--help"], env=_env(home), cwd=folder)
+    seconds["help"], _ = _timed([*foldwise_command(), "--help"], env=clean_env(home), cwd=folder)
     order = ["first", "reference"] if index % 2 == 0 else ["reference", "first"]
     for side in order:
         if side == "first":
-            seconds[side], out = _timed(select, env=_env(home), cwd=folder)
+            seconds[side], out = _timed(select, env=clean_env(home), cwd=folder)
         else:
             command = [sys.executable, str(folder / "reference.py"), str(job), str(csv)]
-            seconds[side], out = _timed(command, env=_env(), cwd=folder)
+            seconds[side], out = _timed(command, env=clean_env(), cwd=folder)
         outputs[side] = json.loads(out)
-    seconds["stored"], out = _timed(select, env=_env(home), cwd=folder)
+    seconds["stored"], out = _timed(select, env=clean_env(home), cwd=folder)
     outputs["stored"] = json.loads(out)
     problems = same_work(outputs["first"], outputs["reference"])
     if outputs["stored"]["outer"] != outputs["first"]["outer"]:

@@ -25,6 +25,9 @@ import time
 from pathlib import Path
 from typing import Any
 
+from whole_process import clean_env, foldwise_command
+from whole_process import timed as timed_run
+
 TOLERANCE = 1e-9
 GOAL = 1.10
 # a run that takes longer than this is stuck, not slow
@@ -165,35 +168,15 @@ def build_task(folder: Path, rows: int) -> tuple[Path, Path]:
     return csv, job_path
 
 
-def _clean_env(home: Path | None = None) -> dict[str, str]:
-    # the embedded default on both sides: no configured database, broker or data roots
-    env = {k: v for k, v in os.environ.items() if not k.startswith("FOLDWISE_")}
-    if home is not None:
-        env["FOLDWISE_HOME"] = str(home)
-    return env
-
-
-def _foldwise_command() -> list[str]:
-    script = Path(sys.executable).with_name("foldwise")
-    return [str(script)] if script.exists() else [sys.executable, "-m", "service.cli.main"]
-
-
 def _timed(command: list[str], *, env: dict[str, str], cwd: Path) -> tuple[float, str]:
-    started = time.perf_counter()
-    done = subprocess.run(
-        command, env=env, cwd=cwd, capture_output=True, text=True, timeout=RUN_TIMEOUT_SECONDS
-    )
-    seconds = time.perf_counter() - started
-    if done.returncode != 0:
-        sys.exit(f"{' '.join(command)} exited {done.returncode}:\n{done.stderr[-3000:]}")
-    return seconds, done.stdout
+    return timed_run(command, env=env, cwd=cwd, timeout=RUN_TIMEOUT_SECONDS)
 
 
 def run_foldwise(folder: Path, job: Path, workers: int, tag: str) -> tuple[float, dict[str, Any]]:
     """One whole `foldwise select` process on a fresh home (so it migrates a new store)."""
     home = folder / "homes" / tag
-    command = [*_foldwise_command(), "select", str(job), "--json", "--workers", str(workers)]
-    seconds, out = _timed(command, env=_clean_env(home), cwd=folder)
+    command = [*foldwise_command(), "select", str(job), "--json", "--workers", str(workers)]
+    seconds, out = _timed(command, env=clean_env(home), cwd=folder)
     return seconds, json.loads(out)
 
 
@@ -204,7 +187,7 @@ def run_reference(
     model = folder / "reference_models" / f"{tag}.pkl"
     model.parent.mkdir(parents=True, exist_ok=True)
     command = [sys.executable, str(folder / "reference_select.py"), str(job), str(csv)]
-    seconds, out = _timed([*command, str(n_jobs), str(model)], env=_clean_env(), cwd=folder)
+    seconds, out = _timed([*command, str(n_jobs), str(model)], env=clean_env(), cwd=folder)
     return seconds, json.loads(out)
 
 
@@ -442,7 +425,7 @@ def main() -> int:
                 }
 
         probe_cmd = [sys.executable, str(Path(__file__).resolve()), "--probe-store", str(job)]
-        _, probe_out = _timed(probe_cmd, env=_clean_env(folder / "homes" / "probe"), cwd=folder)
+        _, probe_out = _timed(probe_cmd, env=clean_env(folder / "homes" / "probe"), cwd=folder)
         probe = json.loads(probe_out)
 
         print("\nversions: " + ", ".join(f"{k} {v}" for k, v in _versions().items()))
