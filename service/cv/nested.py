@@ -11,6 +11,7 @@ from dataclasses import dataclass
 from typing import Any
 
 from service.cv.halving import full_grid_work, halving_picks
+from service.cv.intervals import attach_intervals
 from service.cv.plan import SelectionPlan
 from service.cv.scopes import FINAL_SCOPE
 from service.cv.selection import Pick, ScoreBook, assemble, pick
@@ -62,7 +63,15 @@ def run_nested(
             progress(done, total)
     picks = {scope: pick(plan, scope, book) for scope in plan.scopes}
     model, refits = _refit(plan, book, picks, len(first), total, progress)
-    return NestedOutcome(assemble(plan, book, picks), model, fits + refits)
+    return NestedOutcome(_with_intervals(plan, assemble(plan, book, picks)), model, fits + refits)
+
+
+def _with_intervals(plan: SelectionPlan, result: dict[str, Any]) -> dict[str, Any]:
+    # the estimate carries its interval exactly as a stored job's does; the sentences about an
+    # interval that cannot be served are cautions, which the caller gathers (the stored path:
+    # service/jobs/execution/result.py)
+    attach_intervals(plan.spec, result)
+    return result
 
 
 def _refit(
@@ -93,7 +102,7 @@ def _run_halving(plan: SelectionPlan, progress: Callable[[int, int], None] | Non
     searched = halving_picks(plan, (lambda done: progress(done, total)) if progress else None)
     book: ScoreBook = {}
     model, refits = _refit(plan, book, searched.picks, len(plan.scopes), total, progress)
-    result = assemble(plan, book, searched.picks)
+    result = _with_intervals(plan, assemble(plan, book, searched.picks))
     search = plan.spec.search
     grid_fits, grid_rows = full_grid_work(plan)
     result["search"] = {

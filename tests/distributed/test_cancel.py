@@ -14,9 +14,10 @@ from .stack import Stack, running_units, wait_until
 
 
 def _slower_request() -> dict[str, Any]:
-    # bigger forests: one inner fit takes about a second, so a unit spans several cancel checks
+    # bigger forests: one inner fit takes seconds (fits got cheaper once a fold's preprocessing
+    # was shared), so a unit spans several cancel checks and is caught mid-way
     request = slow_request()
-    request["families"][0]["fixed"]["n_estimators"] = 500
+    request["families"][0]["fixed"]["n_estimators"] = 2000
     return request
 
 

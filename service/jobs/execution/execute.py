@@ -208,8 +208,10 @@ def run_claimed(
     except UnitCancelled:
         if beat.lost():  # the claim is gone: another copy may be running it, write nothing
             return UnitReport(unit_id, job_id, LOST)
+        beat.stop()
         return UnitReport(unit_id, job_id, _finish(sessions, unit_id, token, UnitStatus.CANCELLED))
     except NonFiniteScore as exc:  # its sentence is the whole story: no traceback to read
+        beat.stop()
         return UnitReport(
             unit_id, job_id, _finish(sessions, unit_id, token, UnitStatus.FAILED, str(exc))
         )
@@ -217,9 +219,13 @@ def run_claimed(
         if beat.lost():  # e.g. the store went away while loading the plan: not a failed fit
             return UnitReport(unit_id, job_id, LOST)
         error = traceback.format_exc()
+        beat.stop()
         return UnitReport(
             unit_id, job_id, _finish(sessions, unit_id, token, UnitStatus.FAILED, error)
         )
+    if beat.lost():  # given up or taken over during the last fit: write nothing
+        return UnitReport(unit_id, job_id, LOST, outcome.fits)
+    beat.stop()
     try:
         last = record_claimed(sessions, unit_id, token, outcome, loaded, settings, worker)
     except lifecycle.ClaimLost:

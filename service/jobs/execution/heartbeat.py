@@ -80,7 +80,17 @@ class Heartbeat:
         value: BaseException | None,
         traceback: TracebackType | None,
     ) -> None:
+        self.stop()
+
+    def stop(self) -> None:
+        """No more renewals: called once the fits are over, before the unit's ending is written.
+
+        The lease still has most of its length to run, and that write is fenced on the claim,
+        so stopping first only keeps a renewal from racing the write and reading the ended unit
+        as a claim taken over.
+        """
         self._stop.set()
         # a renewal in flight is a short UPDATE; one stuck on a dead connection is abandoned
         # (daemon thread) rather than holding up the worker, and its UPDATE matches no ended unit
-        self._thread.join(timeout=self.every)
+        if self._thread.is_alive() and self._thread is not threading.current_thread():
+            self._thread.join(timeout=self.every)
