@@ -3,9 +3,6 @@
 from __future__ import annotations
 
 import json
-import os
-import subprocess
-import sys
 from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import Any
@@ -16,7 +13,7 @@ import redis
 from service.config import load_settings
 from service.jobs.local.driver import run_embedded
 
-from .stack import REPO, Stack
+from .stack import REPO, Stack, deploy, start_workers_and_beat
 
 REDIS_HOST, REDIS_PORT = "127.0.0.1", 6379
 # Hard limit 12 s → soft 10 s, visibility timeout 72 s (service.config derives them); the lease
@@ -63,15 +60,7 @@ def stack(tmp_path: Path, postgresql_url: str, redis_url: str) -> Iterator[Stack
         "FOLDWISE_RECONCILE_SECONDS": RECONCILE_SECONDS,
         "FOLDWISE_REPUBLISH_AFTER": REPUBLISH_AFTER,
     }
-    # the deploy step, exactly as an operator runs it
-    subprocess.run(
-        [sys.executable, "-m", "service.cli.main", "db", "upgrade"],
-        cwd=REPO,
-        env={**os.environ, **env},
-        check=True,
-        capture_output=True,
-    )
-    deployment = Stack(env, home)
+    deployment = deploy(env, home)
     try:
         yield deployment
     finally:
@@ -81,12 +70,7 @@ def stack(tmp_path: Path, postgresql_url: str, redis_url: str) -> Iterator[Stack
 @pytest.fixture
 def running_stack(stack: Stack) -> Stack:
     """Two workers (one pool process each) and one beat, all ready."""
-    workers = [stack.start_worker("w1"), stack.start_worker("w2")]
-    beat = stack.start_beat()
-    for worker in workers:
-        stack.wait_ready(worker, "ready.")
-    stack.wait_ready(beat, "beat: Starting")
-    return stack
+    return start_workers_and_beat(stack)
 
 
 _REFERENCE: dict[str, dict[str, Any]] = {}

@@ -220,3 +220,25 @@ def wait_until(condition: Any, timeout: float, what: str, stack: Stack) -> Any:
             return value
         time.sleep(0.1)
     raise AssertionError(f"not within {timeout}s: {what}\n{stack.logs()}")
+
+
+def deploy(env: dict[str, str], home: Path) -> Stack:
+    """The deploy step, exactly as an operator runs it (`db upgrade`), then the stack's handle."""
+    subprocess.run(
+        [sys.executable, "-m", "service.cli.main", "db", "upgrade"],
+        cwd=REPO,
+        env={**os.environ, **env},
+        check=True,
+        capture_output=True,
+    )
+    return Stack(env, home)
+
+
+def start_workers_and_beat(stack: Stack) -> Stack:
+    """Two workers (one pool process each) and one beat, started and waited for until ready."""
+    workers = [stack.start_worker("w1"), stack.start_worker("w2")]
+    beat = stack.start_beat()
+    for worker in workers:
+        stack.wait_ready(worker, "ready.")
+    stack.wait_ready(beat, "beat: Starting")
+    return stack

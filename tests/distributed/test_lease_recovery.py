@@ -10,9 +10,6 @@ once.
 
 from __future__ import annotations
 
-import os
-import subprocess
-import sys
 import time
 from collections.abc import Iterator
 from datetime import timedelta
@@ -25,7 +22,7 @@ from sqlalchemy import func, select
 from service.store.models import FoldScore, JobCandidate, WorkUnit
 
 from .requests import expected_scores, small_request
-from .stack import REPO, Stack, running_units, wait_until
+from .stack import Stack, deploy, running_units, start_workers_and_beat, wait_until
 
 # the issue's promise: a dead worker's unit runs again within 90 s of the kill (issue 10)
 RECOVERY_BOUND_SECONDS = 90
@@ -55,20 +52,9 @@ def stack_at_defaults(tmp_path: Path, postgresql_url: str, redis_url: str) -> It
         "FOLDWISE_DATABASE_URL": postgresql_url,
         "FOLDWISE_BROKER_URL": redis_url,
     }
-    subprocess.run(
-        [sys.executable, "-m", "service.cli.main", "db", "upgrade"],
-        cwd=REPO,
-        env={**os.environ, **env},
-        check=True,
-        capture_output=True,
-    )
-    stack = Stack(env, tmp_path / "home")
+    stack = deploy(env, tmp_path / "home")
     try:
-        workers = [stack.start_worker("w1"), stack.start_worker("w2")]
-        beat = stack.start_beat()
-        for worker in workers:
-            stack.wait_ready(worker, "ready.")
-        stack.wait_ready(beat, "beat: Starting")
+        start_workers_and_beat(stack)
         yield stack
     finally:
         stack.stop()
