@@ -68,15 +68,19 @@ class Stack:
         self.sessions = make_session_factory(self.engine)
 
     # processes ---------------------------------------------------------------------------
-    def start(self, name: str, *arguments: str) -> Process:
-        """Start `python -m service.cli.main ARGUMENTS` in its own process group."""
+    def start(self, name: str, *arguments: str, home: Path | None = None) -> Process:
+        """Start `python -m service.cli.main ARGUMENTS` in its own process group; `home`, if
+        given, is its own FOLDWISE_HOME (a host that shares no folder with the others)."""
         log = self.home / "logs" / f"{name}.log"
         log.parent.mkdir(parents=True, exist_ok=True)
+        env = self.process_env()
+        if home is not None:
+            env["FOLDWISE_HOME"] = str(home)
         with log.open("wb") as out:
             popen = subprocess.Popen(
                 [sys.executable, "-m", "service.cli.main", *arguments],
                 cwd=REPO,
-                env=self.process_env(),
+                env=env,
                 stdout=out,
                 stderr=subprocess.STDOUT,
                 start_new_session=True,
@@ -89,9 +93,10 @@ class Stack:
         """This process's environment with the deployment's variables on top."""
         return {**os.environ, **self.env}
 
-    def start_worker(self, name: str) -> Process:
-        """A worker with one pool process, named NAME@host."""
-        return self.start(name, "worker", "--concurrency", "1", "--name", f"{name}@%h")
+    def start_worker(self, name: str, home: Path | None = None) -> Process:
+        """A worker with one pool process, named NAME@host (on its own `home` if given)."""
+        arguments = ("worker", "--concurrency", "1", "--name", f"{name}@%h")
+        return self.start(name, *arguments, home=home)
 
     def start_beat(self) -> Process:
         """The one beat process, ticking the reconciler every FOLDWISE_RECONCILE_SECONDS."""
@@ -141,6 +146,19 @@ class Stack:
             dispatcher.publish(unit_ids)
         finally:
             dispatcher.close()
+
+    def token(self, team: str) -> str:
+        """A new submit-and-read token for `team`, made by the command an operator runs."""
+        command = ["token", "create", "--team", team, "--scopes", "submit,read"]
+        created = subprocess.run(
+            [sys.executable, "-m", "service.cli.main", *command],
+            cwd=REPO,
+            env=self.process_env(),
+            check=True,
+            capture_output=True,
+            text=True,
+        )
+        return created.stdout.strip()
 
     # broker ------------------------------------------------------------------------------
     def redis(self) -> redis.Redis:
