@@ -15,7 +15,7 @@ from service.analysis.compare import Comparison, compare_outer_scores, outer_sco
 from service.auth import Action, Principal, reaches_every_team
 from service.errors import BadInput, NotFound
 from service.jobs.queries.datasets import visible_dataset
-from service.jobs.queries.jobs import get_job, job_query
+from service.jobs.queries.jobs import SUMMARY_ONLY, get_job, job_query
 from service.store.models import FoldScore, Job, JobCandidate, JobFold
 from service.store.statuses import JobStatus
 
@@ -30,7 +30,8 @@ def dataset_jobs(
     visible_dataset(session, content_hash, principal)
     query = job_query(principal, dataset_hash=content_hash)
     total = session.scalar(select(func.count()).select_from(query.order_by(None).subquery()))
-    return list(session.scalars(query.limit(limit).offset(offset))), int(total or 0)
+    page = query.options(*SUMMARY_ONLY).limit(limit).offset(offset)
+    return list(session.scalars(page)), int(total or 0)
 
 
 def dataset_fold_score_query(

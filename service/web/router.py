@@ -16,7 +16,7 @@ from sqlalchemy import select
 from service.errors import NotFound
 from service.http.deps import SessionsDep
 from service.http.origin import cross_site_reason
-from service.jobs.queries.jobs import get_job, job_query
+from service.jobs.queries.jobs import SUMMARY_ONLY, get_job, job_query
 from service.store.models import Dataset
 from service.web import dataset_view, handover_view, views
 from service.web.compare_view import compare_page
@@ -184,7 +184,7 @@ def home(request: Request, sessions: SessionsDep) -> Response:
     if reader is None:
         return _to_sign_in(request)
     with sessions() as session:
-        jobs = list(session.scalars(job_query(reader.principal).limit(50)))
+        jobs = list(session.scalars(job_query(reader.principal).options(*SUMMARY_ONLY).limit(50)))
         hashes = {job.dataset_hash for job in jobs}
         origins = session.execute(
             select(Dataset.content_hash, Dataset.origin).where(Dataset.content_hash.in_(hashes))

@@ -323,7 +323,9 @@ def run(engine: Engine, busy: str, repeat: int) -> None:
             )
         ),
         "dataset history": with_session(lambda s: dataset_history(s, principal, busy)),
-        "GET /v1/jobs/{id}": with_session(lambda s: _public(get_job(s, newest, principal))),
+        "GET /v1/jobs/{id}": with_session(
+            lambda s: _public(get_job(s, newest, principal), s, principal)
+        ),
         "job report page context": with_session(
             lambda s: job_page(s, get_job(s, newest, principal))
         ),

@@ -7,7 +7,7 @@ from datetime import datetime
 from typing import Any
 
 from sqlalchemy import Select, func, select
-from sqlalchemy.orm import Session
+from sqlalchemy.orm import Session, defer
 
 from service.auth import Action, Principal, authorize, reaches_every_team
 from service.errors import not_visible
@@ -59,6 +59,12 @@ def foreign_job_ids(session: Session, principal: Principal, job_ids: set[str]) -
     return job_ids - mine
 
 
+# A listing shows ids, status, times and progress. The request and result documents are the
+# bulk of a job row (tens of kB of JSON each); decoding them for a page of 50 jobs took most
+# of the listing's time (tests/benchmarks/bench_store_scale.py), so listings leave them unloaded.
+SUMMARY_ONLY = (defer(Job.request), defer(Job.result), defer(Job.error))
+
+
 def job_query(
     principal: Principal,
     *,
@@ -100,7 +106,7 @@ def list_jobs(
     """A page of jobs and the total count."""
     query = job_query(principal, **filters)
     total = session.scalar(select(func.count()).select_from(query.order_by(None).subquery()))
-    jobs = list(session.scalars(query.limit(limit).offset(offset)))
+    jobs = list(session.scalars(query.options(*SUMMARY_ONLY).limit(limit).offset(offset)))
     return jobs, int(total or 0)
 
 
