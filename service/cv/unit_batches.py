@@ -48,9 +48,9 @@ _PER_ROW = {
     "LinearSVR": 10e-6,
     "KNeighborsRegressor": 10e-6,
     "DecisionTreeRegressor": 10e-6,
-    "MLPClassifier": 500e-6,
-    "MLPRegressor": 500e-6,
 }
+# a small neural network: seconds per row per epoch per hidden unit (from memory, as above)
+_NETWORK_PER_ROW_EPOCH_UNIT = 5e-8
 _PER_ROW_PER_TREE = {
     "RandomForestClassifier": (100, 3e-6),
     "ExtraTreesClassifier": (100, 2e-6),
@@ -91,6 +91,13 @@ def estimated_fit_seconds(estimator: str, params: Mapping[str, Any], rows: int) 
         return _FIT_FLOOR + rows * rows * _KERNEL_PER_ROW_SQUARED
     if estimator.startswith("HistGradientBoosting"):
         return _HIST_BOOSTING_FIT
+    if estimator.startswith("MLP"):
+        epochs = params.get("max_iter", 200)
+        epochs = epochs if isinstance(epochs, int) and epochs > 0 else 200
+        layers = params.get("hidden_layer_sizes", [100])
+        layers = layers if isinstance(layers, (list, tuple)) else [layers]
+        hidden = sum(size for size in layers if isinstance(size, int)) or 100
+        return _FIT_FLOOR + rows * epochs * hidden * _NETWORK_PER_ROW_EPOCH_UNIT
     return _FIT_FLOOR + rows * _PER_ROW.get(estimator, _UNKNOWN_PER_ROW)
 
 
