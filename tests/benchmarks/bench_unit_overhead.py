@@ -7,7 +7,9 @@ PostgreSQL, the worker already running. Per round:
 - wall: submission to the job's `succeeded` row;
 - fit time: the sum of the seconds each unit records (fitting and scoring its folds);
 - per-unit overhead = (wall - fit time) / stored units, and the same per message (a batch of
-  units claimed and recorded together is one message; service/cv/unit_batches.py).
+  units claimed and recorded together is one message; service/cv/unit_batches.py);
+- the part of it inside the messages, claim to record (the claim's and record's timestamps),
+  per unit, and the submission's own seconds (store, plan, publish), both inside the wall.
 
 Medians over rounds are printed with each round's figures. The machine is shared: read medians.
 Needs the local Redis and PostgreSQL. From the repository root:
@@ -61,6 +63,7 @@ def one_round(folder: Path, tag: str) -> dict[str, float]:
         stack.wait_ready(worker, "ready.")
         began = time.perf_counter()
         job_id = stack.submit(JOB)
+        submitted = time.perf_counter() - began
         while stack.job(job_id).status in ("queued", "running"):
             time.sleep(0.005)
         wall = time.perf_counter() - began
@@ -77,11 +80,21 @@ def one_round(folder: Path, tag: str) -> dict[str, float]:
                     WorkUnit.job_id == job_id
                 )
             )
+            # one claim per message: its units share started_at (the claim) and finished_at
+            # (the record), so claim-to-record spans add up to the time inside messages
+            spans = session.execute(
+                select(func.min(WorkUnit.started_at), func.max(WorkUnit.finished_at))
+                .where(WorkUnit.job_id == job_id)
+                .group_by(WorkUnit.claim_token)
+            ).all()
+        inside = sum((end - start).total_seconds() for start, end in spans)
         return {
             "wall": wall,
             "fit": float(fit or 0),
             "units": float(units or 0),
             "messages": float(messages or 0),
+            "submit": submitted,
+            "inside": inside,
         }
     finally:
         stack.stop()
@@ -98,6 +111,8 @@ def main() -> int:
         figures = one_round(folder, f"overhead-{round_}")
         figures["per_unit_ms"] = (figures["wall"] - figures["fit"]) / figures["units"] * 1000
         figures["per_message_ms"] = (figures["wall"] - figures["fit"]) / figures["messages"] * 1000
+        # claim, heartbeat, plan lookup, record: inside the messages, beyond the fits
+        figures["inside_ms"] = (figures["inside"] - figures["fit"]) / figures["units"] * 1000
         rounds.append(figures)
         print(
             f"round {round_ + 1}: wall {figures['wall']:.2f}s, fit {figures['fit']:.2f}s, "
@@ -111,7 +126,12 @@ def main() -> int:
 
     print(f"\nCelery, one worker, iris, {median('units'):.0f} units; medians of {args.rounds}:")
     print(f"  wall {median('wall'):.2f} s, fit time {median('fit'):.2f} s")
-    print(f"  messages (batches) {median('messages'):.0f}")
+    print(f"  messages (batches) {median('messages'):.0f}; submission {median('submit'):.2f} s")
+    print(
+        f"  inside the messages (claim to record) beyond the fits: "
+        f"{median('inside_ms'):.2f} ms a unit; the rest is submission, the broker, the first plan "
+        "in the worker, fan-in and the result"
+    )
     print(
         f"  per-unit overhead (wall - fit) / units: {median('per_unit_ms'):.2f} ms "
         f"(goal < {GOAL_MS:g}); per message {median('per_message_ms'):.1f} ms"
