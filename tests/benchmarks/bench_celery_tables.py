@@ -74,8 +74,9 @@ job = json.load(open(sys.argv[1], encoding="utf-8"))
 frame = pd.read_csv(sys.argv[2])
 n_jobs = int(sys.argv[3])
 y = frame.pop(job["target"]).to_numpy()
-text = [c for c in frame.columns if frame[c].dtype == object]
-numbers = [c for c in frame.columns if c not in text]
+numbers = [c for c in frame.columns if pd.api.types.is_numeric_dtype(frame[c])]
+text = [c for c in frame.columns if c not in numbers]
+frame[text] = frame[text].astype(object)
 parts = [("numeric", Pipeline([("impute", SimpleImputer(strategy="median")),
                                ("scale", StandardScaler())]), numbers)]
 if text:
