@@ -35,6 +35,8 @@ bench: $(STAMP)
 	$(BIN)/python tests/benchmarks/bench_select.py
 	$(BIN)/python tests/benchmarks/bench_fixed_costs.py
 	$(BIN)/python tests/benchmarks/bench_service.py
+	$(BIN)/python tests/benchmarks/bench_celery_tables.py
+	$(BIN)/python tests/benchmarks/bench_unit_overhead.py
 	$(BIN)/python tests/benchmarks/bench_reuse.py
 	$(BIN)/python tests/benchmarks/bench_refresh.py
 	$(BIN)/python tests/benchmarks/bench_engine_shared.py

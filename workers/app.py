@@ -2,10 +2,11 @@
 
 from __future__ import annotations
 
+import importlib
 from typing import Any
 
 from celery import Celery
-from celery.signals import worker_process_init
+from celery.signals import worker_init, worker_process_init
 from kombu import Exchange, Queue
 
 from service.config import Settings, load_settings
@@ -97,6 +98,25 @@ def make_celery(settings: Settings) -> Celery:
 
 
 _thread_limits: list[Any] = []  # held for the life of the process
+# What a unit's first run in a fresh process would otherwise import, seconds of it on a busy
+# machine: the estimator families and the model file's format (skops imports every estimator
+# for its trusted types, and the CLI imports it late on purpose). Imported once in the worker's
+# main process before its pool forks, so every child starts warm (as the local pool's fork
+# server preloads the same).
+WARM_MODULES = (
+    "sklearn.ensemble",
+    "sklearn.linear_model",
+    "sklearn.svm",
+    "sklearn.neighbors",
+    "sklearn.model_selection",
+    "skops.io",
+)
+
+
+@worker_init.connect
+def _warm_before_fork(**_: Any) -> None:
+    for name in WARM_MODULES:
+        importlib.import_module(name)
 
 
 @worker_process_init.connect

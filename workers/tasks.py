@@ -9,10 +9,11 @@ from typing import Any
 
 from celery import Task
 
-from service.dispatch import TASK_RECONCILE, TASK_RUN_AUDIT, TASK_RUN_UNIT
+from service.dispatch import TASK_RECONCILE, TASK_RUN_AUDIT, TASK_RUN_UNIT, TASK_RUN_UNITS
 from service.dispatch.celery_client import send_units
 from service.jobs.audits.audit import run_audit
 from service.jobs.execution.reconcile import reconcile
+from service.jobs.execution.run_batch import run_batch_and_advance
 from service.jobs.execution.work import run_and_advance
 from service.notify.delivery import deliver_due
 from service.schedules.tick import tick_schedules
@@ -46,6 +47,19 @@ def run_unit(self: Task, unit_id: int) -> str:
         "unit %s %s (%s fits), %s new units", unit_id, report.status, report.fits, len(new_units)
     )
     return str(report.status)
+
+
+@app.task(name=TASK_RUN_UNITS, bind=True)
+def run_units(self: Task, unit_ids: list[int]) -> str:
+    """Run a batch of units (one claim, one record) and publish whatever stage it completed."""
+    # as run_unit: the claim decides, so a redelivered batch runs only what nobody holds
+    report, new_units = run_batch_and_advance(
+        state.sessions(), unit_ids, settings=state.settings(), worker=worker_label(self)
+    )
+    publish(new_units)
+    endings = ", ".join(f"unit {unit_id} {status}" for unit_id, status in report.statuses.items())
+    log.info("%s (%s fits), %s new units", endings, report.fits, len(new_units))
+    return ",".join(f"{unit_id}:{status}" for unit_id, status in report.statuses.items())
 
 
 @app.task(name=TASK_RECONCILE)

@@ -5,12 +5,14 @@ from __future__ import annotations
 from typing import Any
 
 from celery import Celery
+from sqlalchemy import update
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
-from service.dispatch import TASK_RUN_AUDIT, TASK_RUN_UNIT, UNIT_QUEUE
-from service.dispatch.base import mark_published
-from service.store.db import make_engine, make_session_factory
+from service.dispatch import TASK_RUN_AUDIT, TASK_RUN_UNITS, UNIT_QUEUE
+from service.jobs.execution.batches import batch_unit_ids
+from service.store.db import make_engine, make_session_factory, utcnow
+from service.store.models import WorkUnit
 
 
 def celery_options(settings: Settings) -> dict[str, Any]:
@@ -31,18 +33,25 @@ def celery_options(settings: Settings) -> dict[str, Any]:
 
 
 def send_units(app: Celery, sessions: sessionmaker[Session], unit_ids: list[int]) -> None:
-    """Send one run_unit message per id, then record when (the reconciler reads that)."""
+    """Send the units as batches sized to their work, one run_units message each, and record
+    when, in one transaction (the reconciler reads `published_at`)."""
     if not unit_ids:
         return
-    # Celery turns a direct queue into kombu's anonymous exchange, so these land in the queue's
-    # list without the `_kombu.binding.*` key a broker flush deletes (kombu#1063).
-    for unit_id in unit_ids:
-        app.send_task(TASK_RUN_UNIT, args=[unit_id], queue=UNIT_QUEUE)
-    mark_published(sessions, unit_ids)
+    with sessions.begin() as session:
+        batches = batch_unit_ids(session, unit_ids)
+        # Celery turns a direct queue into kombu's anonymous exchange, so these land in the
+        # queue's list without the `_kombu.binding.*` key a broker flush deletes (kombu#1063).
+        for batch in batches:
+            app.send_task(TASK_RUN_UNITS, args=[batch], queue=UNIT_QUEUE)
+        # recorded after the sends: a crash before the commit leaves `published_at` empty,
+        # and the reconciler publishes again (a duplicate message is dropped by the claim)
+        session.execute(
+            update(WorkUnit).where(WorkUnit.id.in_(unit_ids)).values(published_at=utcnow())
+        )
 
 
 class CeleryDispatcher:
-    """Sends one `run_unit` message per unit id to the unit queue."""
+    """Sends the units as batches (one `run_units` message each) to the unit queue."""
 
     def __init__(self, settings: Settings) -> None:
         self.app = Celery("foldwise-publisher")

@@ -285,7 +285,7 @@ def probe_store(job_path: Path) -> dict[str, Any]:
     clock.wrap(execute, "_record", "_record")
     clock.wrap(execute, "_save_model", "_save_model")
     # the cancellation check asks the store at most once a second from inside fit_and_score
-    clock.wrap(execute._StopCheck, "__call__", "_cancel_requested")
+    clock.wrap(execute.StopCheck, "__call__", "_cancel_requested")
     job = json.loads(job_path.read_text(encoding="utf-8"))
     run_started = time.perf_counter()
     outcome = embedded.run_embedded(

@@ -78,7 +78,7 @@ def run_distributed(folder: Path, job: dict[str, Any], workers: int, tag: str) -
     try:
         started = [stack.start_worker(f"w{i + 1}") for i in range(workers)]
         for process in started:
-            stack.wait_ready(process, "ready.")
+            stack.wait_ready(process, "ready.", timeout=300)  # a busy shared machine
         began = time.perf_counter()
         job_id = stack.submit(job)
         while stack.job(job_id).status in ("queued", "running"):

@@ -14,6 +14,7 @@ import time
 import traceback
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import Session, sessionmaker
@@ -60,7 +61,7 @@ def worker_name() -> str:
     return f"{socket.gethostname()}:{os.getpid()}"
 
 
-class _StopCheck:
+class StopCheck:
     """Between fits: stop if the claim is lost, or (at most once per `every` s) the job stopped."""
 
     def __init__(
@@ -105,20 +106,17 @@ def _save_model(
     return digest, path, len(payload)
 
 
-def _record(
-    session: Session,
-    unit: WorkUnit,
-    outcome: UnitOutcome,
-    loaded: LoadedPlan,
-    settings: Settings,
-    worker: str,
-) -> None:
-    seed = unit_seed(loaded, unit.candidate_key)
-    rows = [
+def score_rows(
+    unit_id: int, job_id: str, outcome: UnitOutcome, loaded: LoadedPlan, worker: str
+) -> list[dict[str, Any]]:
+    """One fold-score row per fold and metric a unit scored, with its key and provenance."""
+    key = outcome.ref.candidate_key
+    seed = unit_seed(loaded, key)
+    return [
         {
             "dataset_hash": loaded.dataset_hash,
             "fold_fingerprint": fold["fingerprint"],
-            "candidate_key": unit.candidate_key,
+            "candidate_key": key,
             "metric": metric,
             "value": value,
             "fit_seconds": fold["fit_seconds"],
@@ -128,46 +126,71 @@ def _record(
             "seed": seed,
             "versions": loaded.plan.versions,
             "worker": worker,
-            "job_id": unit.job_id,
-            "unit_id": unit.id,
+            "job_id": job_id,
+            "unit_id": unit_id,
         }
         for fold in outcome.folds
         for metric, value in fold["scores"].items()
     ]
-    # a redelivered copy of a finished unit inserts nothing: the key already holds the score
-    insert_ignoring_duplicates(session, FoldScore, rows)
-    # the out-of-fold predictions, so a later request can add a metric without a refit
-    predictions = [
+
+
+def prediction_rows(job_id: str, outcome: UnitOutcome, loaded: LoadedPlan) -> list[dict[str, Any]]:
+    """The out-of-fold predictions of a unit, so a later request can add a metric without a
+    refit."""
+    return [
         {
             "dataset_hash": loaded.dataset_hash,
             "fold_fingerprint": fold["fingerprint"],
-            "candidate_key": unit.candidate_key,
+            "candidate_key": outcome.ref.candidate_key,
             "kind": fold["predictions"].kind,
             "classes": fold["predictions"].classes,
             "data": fold["predictions"].encode(),
-            "job_id": unit.job_id,
+            "job_id": job_id,
         }
         for fold in outcome.folds
         if "predictions" in fold
     ]
-    insert_ignoring_duplicates(session, FoldPrediction, predictions)
-    if outcome.model is not None:
-        digest, path, size = _save_model(session, outcome, settings)
-        final = pick(loaded.plan, FINAL_SCOPE, load_book(session, loaded))
-        insert_ignoring_duplicates(
-            session,
-            FinalModel,
-            [
-                {
-                    "job_id": unit.job_id,
-                    "candidate_key": final.candidate.key,
-                    "sha256": digest,
-                    "path": str(path),
-                    "size_bytes": size,
-                    "inner_mean": final.inner_mean,
-                }
-            ],
-        )
+
+
+def record_model(
+    session: Session, job_id: str, outcome: UnitOutcome, loaded: LoadedPlan, settings: Settings
+) -> None:
+    """Save a final refit's model file and its row (nothing for a unit without a model)."""
+    if outcome.model is None:
+        return
+    digest, path, size = _save_model(session, outcome, settings)
+    final = pick(loaded.plan, FINAL_SCOPE, load_book(session, loaded))
+    insert_ignoring_duplicates(
+        session,
+        FinalModel,
+        [
+            {
+                "job_id": job_id,
+                "candidate_key": final.candidate.key,
+                "sha256": digest,
+                "path": str(path),
+                "size_bytes": size,
+                "inner_mean": final.inner_mean,
+            }
+        ],
+    )
+
+
+def _record(
+    session: Session,
+    unit: WorkUnit,
+    outcome: UnitOutcome,
+    loaded: LoadedPlan,
+    settings: Settings,
+    worker: str,
+) -> None:
+    # a redelivered copy of a finished unit inserts nothing: the key already holds the score
+    rows = score_rows(unit.id, unit.job_id, outcome, loaded, worker)
+    insert_ignoring_duplicates(session, FoldScore, rows)
+    insert_ignoring_duplicates(
+        session, FoldPrediction, prediction_rows(unit.job_id, outcome, loaded)
+    )
+    record_model(session, unit.job_id, outcome, loaded, settings)
 
 
 def unit_seed(loaded: LoadedPlan, candidate_key: str) -> int | None:
@@ -213,7 +236,7 @@ def run_claimed(
     try:
         with sessions() as session:
             loaded = plan_for_job(session, job_id, settings)
-        outcome = fit_and_score(loaded.plan, ref, _StopCheck(sessions, job_id, beat))
+        outcome = fit_and_score(loaded.plan, ref, StopCheck(sessions, job_id, beat))
     except UnitCancelled:
         if beat.lost():  # the claim is gone: another copy may be running it, write nothing
             return UnitReport(unit_id, job_id, LOST)

@@ -53,12 +53,16 @@ class Heartbeat:
             self._lost.set()
         return self._lost.is_set()
 
+    def renew(self, session: Session) -> bool:
+        """One renewal of the claim's lease; False when it is no longer (all) this copy's."""
+        return lifecycle.renew_lease(session, self.unit_id, self.token, self.lease)
+
     def _run(self) -> None:
         while not self._stop.wait(self.every) and not self.lost():
             attempted = time.monotonic()
             try:
                 with self.sessions.begin() as session:
-                    held = lifecycle.renew_lease(session, self.unit_id, self.token, self.lease)
+                    held = self.renew(session)
             except Exception:  # the database is unreachable: try again on the next beat
                 log.warning("unit %s: lease renewal failed", self.unit_id, exc_info=True)
                 continue

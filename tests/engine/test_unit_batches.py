@@ -1,0 +1,87 @@
+"""Batches sized to the work (service/cv/unit_batches.py): fast units together, slow ones alone.
+
+The rule the batcher keeps is common practice for scheduling independent jobs: the longest
+first (Graham's longest-processing-time rule, SIAM J. Appl. Math. 17(2), 1969, from memory), and
+short ones packed so that no pack is long enough to become the tail.
+"""
+
+from __future__ import annotations
+
+from service.cv.unit_batches import (
+    BATCH_SECONDS,
+    BATCH_UNITS,
+    SLOW_UNIT_SECONDS,
+    SPREAD,
+    UnitWork,
+    batch_units,
+    estimated_fit_seconds,
+    unit_seconds,
+)
+
+
+def _works() -> list[UnitWork]:
+    # a job's inner units: 40 logistic regressions on 300 rows, 4 big forests on 3000 rows
+    fast = [UnitWork(i, f"lr{i % 10}", "LogisticRegression", {"C": 1.0}, 3, 300) for i in range(40)]
+    slow = [
+        UnitWork(100 + i, f"rf{i}", "RandomForestClassifier", {"n_estimators": 300}, 3, 3000)
+        for i in range(4)
+    ]
+    return fast[:20] + slow + fast[20:]
+
+
+def test_every_unit_lands_in_exactly_one_batch() -> None:
+    works = _works()
+    batches = batch_units(works)
+    flat = [unit_id for batch in batches for unit_id in batch]
+    assert sorted(flat) == sorted(w.unit_id for w in works)
+
+
+def test_slow_units_run_alone_and_first() -> None:
+    works = _works()
+    batches = batch_units(works)
+    slow = {w.unit_id for w in works if unit_seconds(w, {}) >= SLOW_UNIT_SECONDS}
+    assert slow == {100, 101, 102, 103}
+    assert batches[: len(slow)] == [[unit_id] for unit_id in sorted(slow)]
+    assert all(len(batch) == 1 for batch in batches if set(batch) & slow)
+
+
+def test_fast_units_share_batches_within_the_budget() -> None:
+    works = _works()
+    costs = {w.unit_id: unit_seconds(w, {}) for w in works}
+    budget = min(BATCH_SECONDS, sum(costs.values()) / SPREAD)
+    fast_batches = [batch for batch in batch_units(works) if batch[0] < 100]
+    # 40 fast units in far fewer messages, none over the budget or the unit cap
+    assert len(fast_batches) < 40 / 4
+    for batch in fast_batches:
+        assert len(batch) <= BATCH_UNITS
+        assert len(batch) == 1 or sum(costs[i] for i in batch) <= budget
+
+
+def test_a_small_job_spreads_over_several_batches() -> None:
+    # eight fast units: the budget is an eighth of the whole, so two workers both get work
+    works = [UnitWork(i, "k", "GaussianNB", {}, 3, 100) for i in range(8)]
+    assert len(batch_units(works)) >= 4
+
+
+def test_stored_fit_times_replace_the_family_guess() -> None:
+    # a candidate guessed fast whose stored fits took two seconds each runs alone
+    works = _works()
+    stored = {"lr3": 2.0}
+    batches = batch_units(works, stored)
+    of_lr3 = [
+        batch
+        for batch in batches
+        if any(works_by_id(works)[i].candidate_key == "lr3" for i in batch)
+    ]
+    assert of_lr3 and all(len(batch) == 1 for batch in of_lr3)
+
+
+def works_by_id(works: list[UnitWork]) -> dict[int, UnitWork]:
+    return {w.unit_id: w for w in works}
+
+
+def test_the_guess_grows_with_rows_and_trees() -> None:
+    assert estimated_fit_seconds("SVC", {}, 4000) > 4 * estimated_fit_seconds("SVC", {}, 1000)
+    few = estimated_fit_seconds("RandomForestClassifier", {"n_estimators": 10}, 1000)
+    many = estimated_fit_seconds("RandomForestClassifier", {"n_estimators": 500}, 1000)
+    assert many > 10 * few
