@@ -19,6 +19,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.auth import Principal
 from service.config import Settings
+from service.cv.scopes import INTERVAL_REPEAT_BASE
 from service.datasets.sources import DatasetSource, load_table
 from service.datasets.sql_source import SqlAccess
 from service.errors import BadInput
@@ -200,7 +201,12 @@ def _outer_folds(session: Session, job_id: str) -> list[str]:
     return list(
         session.scalars(
             select(JobFold.fingerprint)
-            .where(JobFold.job_id == job_id, JobFold.role == "outer")
+            .where(
+                JobFold.job_id == job_id,
+                JobFold.role == "outer",
+                # not a nested interval's procedure folds: the estimate does not average them
+                JobFold.repeat < INTERVAL_REPEAT_BASE,
+            )
             .order_by(JobFold.repeat, JobFold.fold_index)
         )
     )

@@ -45,7 +45,9 @@ def _job_fold_rows(job_id: str, prepared: PreparedJob) -> list[dict[str, Any]]:
     # fold's training part (by that fold's scope) for inner folds
     plan = prepared.plan
     rows = []
-    for outer in plan.outer:
+    # a nested interval's procedure folds are outer folds of their own (repeats from
+    # scopes.INTERVAL_REPEAT_BASE up), so their inner folds find their parent like any other
+    for outer in plan.outer + plan.interval_folds:
         rows.append(
             {
                 "job_id": job_id,
@@ -133,7 +135,7 @@ def create_job(
             for c in plan.candidates
         ],
     )
-    folds = list(plan.outer) + [f for group in plan.inner.values() for f in group]
+    folds = plan.outer + plan.interval_folds + [f for group in plan.inner.values() for f in group]
     insert_ignoring_duplicates(
         session, Fold, [_fold_row(f, table.content_hash, plan.n_rows, plan.versions) for f in folds]
     )
@@ -146,7 +148,7 @@ def create_job(
             status=JobStatus.QUEUED,
             stage="inner",
             request=prepared.request.model_dump(mode="json"),
-            units_total=len(first_units) + len(plan.outer) + 1,
+            units_total=len(first_units) + len(plan.scopes),  # and a refit per scope
             idempotency_key=idempotency_key,
             team=team,  # set before the flush: the idempotency key is unique per team
         )
