@@ -22,16 +22,13 @@ from sklearn.model_selection import KFold, StratifiedKFold
 
 from service.cv.errors import SpecError
 from service.cv.scopes import INTERVAL_REPEAT_BASE
-from service.cv.spec import SelectionSpec
+from service.cv.spec import DEFAULT_INTERVAL_REPETITIONS, SelectionSpec
 from service.cv.splits import Fold, SplitInputs, fold_fingerprint, split_rows
-
-# Repetitions when the request names none: the coverage study's setting (README, "interval").
-DEFAULT_REPETITIONS = 3
 
 
 def repetitions_of(spec: SelectionSpec) -> int:
     """How many partitions the nested interval draws for `spec`."""
-    return spec.interval.repetitions or DEFAULT_REPETITIONS
+    return spec.interval.repetitions or DEFAULT_INTERVAL_REPETITIONS
 
 
 def interval_seed(spec: SelectionSpec) -> int:
