@@ -241,6 +241,7 @@ def finish_refreshes(sessions: sessionmaker[Session]) -> list[int]:
                     new_folds=_outer_folds(session, job.id),
                     old_folds=_outer_folds(session, previous.id) if previous else [],
                     threshold=schedule.threshold,
+                    degraded_on=schedule.degraded_on,
                 )
                 status, error = refresh_status(comparison), None
             moved: CursorResult[Any] = session.execute(  # type: ignore[assignment]
