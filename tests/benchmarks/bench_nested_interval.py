@@ -179,6 +179,13 @@ def main() -> None:
                     f"embedded {name} on {workers}: {cells[(name, workers)][0]:.1f} s", flush=True
                 )
         through_celery = celery_runs(bodies, folder) if args.celery else {}
+    alone_end, pair_end, machine_end = capacity()
+    print(
+        f"capacity at the end: {alone_end:.2f} s alone, {pair_end:.2f} s the pair: "
+        f"{machine_end:.2f}x"
+    )
+    alone, pair = (alone + alone_end) / 2, (pair + pair_end) / 2
+    machine = (machine + machine_end) / 2
     print(
         f"\nmid setting: n = {N_ROWS}, 3 candidates, outer 5 x inner 5, nested R = "
         f"{args.repetitions}; medians of {args.runs} run(s); empty store each run\n"
