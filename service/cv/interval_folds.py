@@ -107,3 +107,14 @@ def build_interval_folds(
                     ) from None
                 folds.append(fold)
     return folds, inner
+
+
+def shared_with_outer(outer: list[Fold], interval_folds: list[Fold]) -> set[str]:
+    """Scopes of procedure folds that are one of the job's own outer folds (same rows, same
+    fingerprint): their search and refit are the job's, so no unit of their own runs.
+
+    With the outer seed, repetition 0 draws the job's own partition, so its K procedures fitted
+    without one part are the job's outer folds: R · K · K procedures make R · K · K - K units.
+    """
+    own = {fold.fingerprint for fold in outer}
+    return {fold.scope for fold in interval_folds if fold.fingerprint in own}

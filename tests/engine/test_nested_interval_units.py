@@ -102,9 +102,13 @@ def test_the_stored_interval_equals_the_engine_alone_driver(runs: dict[str, Any]
     # roc_auc is not a mean of per-row losses: no number that looks like an interval
     assert runs["nested"]["estimate"]["roc_auc_ovr"]["interval"] is None
     assert any("No nested interval for roc_auc_ovr" in c for c in runs["nested"]["cautions"])
-    # the procedures' fits are the driver's, computed here or taken from the store
+    # the procedures' fits are the driver's, computed here, taken from the store, or shared
+    # with the job's own outer folds: repetition 0 draws the outer partition (same seed), so its
+    # K = 3 procedures fitted without one part are the outer folds, 2 x 3 + 1 fits each
     interval = runs["nested"]["work"]["by_purpose"]["interval"]
-    assert interval["fits"] + interval["fits_reused"] == reference.fits == INTERVAL_FITS
+    assert interval["fits_shared"] == 3 * (2 * 3 + 1)
+    found = interval["fits"] + interval["fits_reused"] + interval["fits_shared"]
+    assert found == reference.fits == INTERVAL_FITS
 
 
 def test_a_request_differing_only_in_interval_reuses_every_estimate_fit(

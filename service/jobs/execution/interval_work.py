@@ -13,9 +13,10 @@ from typing import Any
 from sqlalchemy import select, tuple_
 from sqlalchemy.orm import Session
 
+from service.cv.interval_folds import shared_with_outer
 from service.cv.nested_interval_units import MissingPredictions, PredictionBook, nested_entries
 from service.cv.predictions import StoredPredictions
-from service.cv.scopes import is_interval_repeat
+from service.cv.scopes import FINAL_SCOPE, is_interval_repeat
 from service.cv.selection import Pick
 from service.jobs.execution.plans import LoadedPlan
 from service.store.models import FoldPrediction, Job, WorkUnit
@@ -63,7 +64,9 @@ def work_by_purpose(session: Session, job: Job, loaded: LoadedPlan) -> dict[str,
     """Units and fits for the estimate and for the interval, computed and reused.
 
     A reused unit made no fit here; `fits_reused` counts the fits it would have made, so a
-    request that differs only in `interval` shows every fit of its estimate reused.
+    request that differs only in `interval` shows every fit of its estimate reused. The
+    interval's `fits_shared` are those of its procedures that are the job's own outer folds,
+    made (and counted) for the estimate.
     """
     plan = loaded.plan
     purposes = {
@@ -75,6 +78,9 @@ def work_by_purpose(session: Session, job: Job, loaded: LoadedPlan) -> dict[str,
             WorkUnit.kind, WorkUnit.scope, WorkUnit.outer_repeat, WorkUnit.reused, WorkUnit.fits
         ).where(WorkUnit.job_id == job.id, WorkUnit.status == UnitStatus.DONE)
     )
+    shared = shared_with_outer(plan.outer, plan.interval_folds)
+    per_search = len(plan.inner[FINAL_SCOPE]) * len(plan.candidates) + 1
+    purposes["interval"]["fits_shared"] = len(shared) * per_search
     for kind, scope, repeat, reused, fits in units:
         counts = purposes["interval" if is_interval_repeat(repeat) else "estimate"]
         counts["units"] += 1

@@ -10,6 +10,7 @@ from sqlalchemy import insert
 from sqlalchemy.orm import Session
 
 from service.config import Settings
+from service.cv.interval_folds import shared_with_outer
 from service.cv.scopes import FINAL_SCOPE, parse_outer_scope
 from service.cv.splits import Fold as PlanFold
 from service.cv.units import inner_units
@@ -140,7 +141,9 @@ def create_job(
         session, Fold, [_fold_row(f, table.content_hash, plan.n_rows, plan.versions) for f in folds]
     )
     job_id = uuid.uuid4().hex
-    first_units = inner_units(plan)
+    # a procedure fold that is one of the job's outer folds shares their units (interval_folds)
+    shared = shared_with_outer(plan.outer, plan.interval_folds)
+    first_units = [u for u in inner_units(plan) if u.scope not in shared]
     session.add(
         Job(
             id=job_id,
@@ -148,7 +151,7 @@ def create_job(
             status=JobStatus.QUEUED,
             stage="inner",
             request=prepared.request.model_dump(mode="json"),
-            units_total=len(first_units) + len(plan.scopes),  # and a refit per scope
+            units_total=len(first_units) + len(plan.scopes) - len(shared),  # a refit per scope
             idempotency_key=idempotency_key,
             team=team,  # set before the flush: the idempotency key is unique per team
         )
