@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from service.cv.intervals import QUICK_COVERAGE, interval_words
+from service.cv.intervals import NESTED_COVERAGE, QUICK_COVERAGE, interval_words
 
 README = Path(__file__).resolve().parent.parent / "README.md"
 
@@ -13,6 +13,7 @@ def test_readme_quotes_the_coverage_constant() -> None:
     """One figure, one place: the README's wording equals service.cv.intervals.QUICK_COVERAGE."""
     text = " ".join(README.read_text(encoding="utf-8").split())
     assert QUICK_COVERAGE in text
+    assert NESTED_COVERAGE in text
 
 
 def test_interval_words_name_level_and_method() -> None:

@@ -13,6 +13,7 @@ from sqlalchemy.orm import Session
 
 from service.analysis.compare import Comparison, compare_outer_scores, outer_scores_from_result
 from service.auth import Action, Principal, reaches_every_team
+from service.cv.scopes import INTERVAL_REPEAT_BASE
 from service.errors import BadInput, NotFound
 from service.jobs.queries.datasets import visible_dataset
 from service.jobs.queries.jobs import SUMMARY_ONLY, get_job, job_query
@@ -94,7 +95,12 @@ def outer_fingerprints(session: Session, job_id: str) -> list[str]:
     return list(
         session.scalars(
             select(JobFold.fingerprint)
-            .where(JobFold.job_id == job_id, JobFold.role == "outer")
+            .where(
+                JobFold.job_id == job_id,
+                JobFold.role == "outer",
+                # not a nested interval's procedure folds: the estimate does not average them
+                JobFold.repeat < INTERVAL_REPEAT_BASE,
+            )
             .order_by(JobFold.repeat, JobFold.fold_index)
         )
     )

@@ -25,6 +25,7 @@ QUICK_SOURCE = "corrected resampled t (Nadeau & Bengio 2003; Bouckaert & Frank 2
 QUICK_WORDS = "corrected resampled t — no extra fits"
 METHOD_WORDS = {
     "quick": QUICK_WORDS,
+    "nested": "nested cross-validation (Bates, Hastie & Tibshirani 2024) — extra fits",
     # /v1/compare on two jobs with different outer folds (service/analysis/compare.py)
     "welch": "Welch t over two independent sets of outer folds (weaker: they share rows)",
 }
@@ -33,6 +34,10 @@ METHOD_WORDS = {
 QUICK_COVERAGE = (
     "measured coverage at level 0.9: 0.925 ± 0.042 (classification) and 0.975 ± 0.025 "
     "(regression), n = 100 and 300, tests/benchmarks/bench_coverage.py"
+)
+NESTED_COVERAGE = (
+    "measured coverage at level 0.9: 0.900 ± 0.055 (classification) and 0.933 ± 0.046 "
+    "(regression), n = 100, R = 3, tests/benchmarks/bench_coverage.py"
 )
 
 # The range a metric's score can take; an interval is cut to it, since the truth lies inside
@@ -130,13 +135,23 @@ def check_interval(spec: SelectionSpec) -> None:
             "'nested' assesses a selection on all rows, not on a train_fraction share; "
             "use 'quick' for a learning-curve size.",
         )
-    # The arithmetic is in service/cv/nested_interval.py; its fits (R·K·(K-1) whole selections)
-    # do not yet run as work units, and running them in one process would bypass reuse,
-    # cancellation and progress, so the request is refused rather than silently downgraded.
-    raise SpecError(
-        "interval.method",
-        "'nested' is not yet available in this version; use 'quick' (the default) for now.",
-    )
+    if spec.outer.k < 3:
+        raise SpecError(
+            "interval.method",
+            "'nested' needs outer.k of at least 3 (it fits on all parts but two); raise outer.k "
+            "or use 'quick'.",
+        )
+    if spec.outer.repeats > 1:
+        raise SpecError(
+            "interval.method",
+            "'nested' draws its own repetitions of the outer partition; set "
+            "interval.repetitions instead of outer.repeats, or use 'quick'.",
+        )
+    if spec.weights:
+        raise SpecError(
+            "interval.method",
+            "'nested' serves unweighted per-row losses only; remove weights or use 'quick'.",
+        )
 
 
 def _quick(
@@ -160,14 +175,21 @@ def _quick(
     }
 
 
-def attach_intervals(spec: SelectionSpec, result: dict[str, Any]) -> list[str]:
+def attach_intervals(
+    spec: SelectionSpec,
+    result: dict[str, Any],
+    nested: dict[str, dict[str, Any] | None] | None = None,
+) -> list[str]:
     """Set `result["estimate"][metric]["interval"]` for every metric; returns the cautions.
 
-    `result` is the engine's assembled result (outer rows and estimate). A metric the method
+    `result` is the engine's assembled result (outer rows and estimate); `nested` the entries
+    service/cv/nested_interval_units.py computed for a `nested` request. A metric the method
     cannot serve gets None and one sentence saying why, never a number that is not an interval.
     """
-    if spec.interval.method != "quick":  # check_interval refuses the others before any fit
-        raise ValueError(f"no interval method {spec.interval.method!r} in this version")
+    if spec.interval.method == "nested":
+        if nested is None:
+            raise ValueError("a nested interval needs its entries computed at fan-in")
+        return _attach_nested(result, nested)
     level = spec.interval.level
     outer = result["outer"]
     n_train = [row["n_train"] for row in outer]
@@ -196,3 +218,18 @@ def attach_intervals(spec: SelectionSpec, result: dict[str, Any]) -> list[str]:
             "data will score the same."
         )
     return cautions
+
+
+def _attach_nested(result: dict[str, Any], nested: dict[str, dict[str, Any] | None]) -> list[str]:
+    unserved = []
+    for metric, estimate in result["estimate"].items():
+        estimate["interval"] = nested.get(metric)
+        if estimate["interval"] is None:
+            unserved.append(metric)
+    if not unserved:
+        return []
+    return [
+        f"No nested interval for {', '.join(unserved)}: the nested interval needs a score that "
+        "is a mean of per-row losses (accuracy, neg_mean_squared_error, "
+        "neg_mean_absolute_error); read the quick interval of another job for these."
+    ]

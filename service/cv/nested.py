@@ -12,6 +12,7 @@ from typing import Any
 
 from service.cv.halving import full_grid_work, halving_picks
 from service.cv.intervals import attach_intervals
+from service.cv.nested_interval_units import nested_entries
 from service.cv.plan import SelectionPlan
 from service.cv.scopes import FINAL_SCOPE
 from service.cv.selection import Pick, ScoreBook, assemble, pick
@@ -53,7 +54,7 @@ def run_nested(
         return _run_halving(plan, progress)
     book: ScoreBook = {}
     first = inner_units(plan)
-    total = len(first) + len(plan.outer) + 1
+    total = len(first) + len(plan.scopes)  # a refit per outer and procedure fold, and the final
     fits = 0
     for done, ref in enumerate(first, 1):
         outcome = fit_and_score(plan, ref)
@@ -62,15 +63,25 @@ def run_nested(
         if progress:
             progress(done, total)
     picks = {scope: pick(plan, scope, book) for scope in plan.scopes}
-    model, refits = _refit(plan, book, picks, len(first), total, progress)
-    return NestedOutcome(_with_intervals(plan, assemble(plan, book, picks)), model, fits + refits)
+    kept: dict[tuple[str, str], Any] = {}
+    model, refits = _refit(plan, book, picks, len(first), total, progress, kept)
+    result = _with_intervals(plan, assemble(plan, book, picks), picks, kept)
+    return NestedOutcome(result, model, fits + refits)
 
 
-def _with_intervals(plan: SelectionPlan, result: dict[str, Any]) -> dict[str, Any]:
+def _with_intervals(
+    plan: SelectionPlan,
+    result: dict[str, Any],
+    picks: dict[str, Pick] | None = None,
+    predictions: dict[tuple[str, str], Any] | None = None,
+) -> dict[str, Any]:
     # the estimate carries its interval exactly as a stored job's does; the sentences about an
     # interval that cannot be served are cautions, which the caller gathers (the stored path:
     # service/jobs/execution/result.py)
-    attach_intervals(plan.spec, result)
+    nested = None
+    if plan.spec.interval.method == "nested" and picks is not None and predictions is not None:
+        nested = nested_entries(plan, picks, predictions)
+    attach_intervals(plan.spec, result, nested)
     return result
 
 
@@ -81,13 +92,17 @@ def _refit(
     done_before: int,
     total: int,
     progress: Callable[[int, int], None] | None,
+    kept: dict[tuple[str, str], Any] | None = None,
 ) -> tuple[Any, int]:
-    """The second phase: refit the picks, scoring each outer one on its test part."""
+    """The second phase: refit the picks, scoring each outer one on its test part (its
+    predictions go to `kept`, by fold fingerprint and candidate key, if given)."""
     model: Any = None
     fits = 0
     for done, ref in enumerate(refit_units(picks), done_before + 1):
         outcome = fit_and_score(plan, ref)
         record(book, outcome)
+        if kept is not None:
+            kept |= {(f["fingerprint"], ref.candidate_key): f["predictions"] for f in outcome.folds}
         fits += outcome.fits
         model = outcome.model or model
         if progress:

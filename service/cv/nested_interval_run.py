@@ -1,25 +1,26 @@
-"""The nested interval run in one process: a reference driver, not yet called by the service.
+"""The nested interval run in one process: the reference the service's work units must equal.
 
 Bates, Hastie & Tibshirani (2024, Algorithm 1) assess a procedure; for a selection job the
 procedure is the job's whole inner search, pick and refit, because that is what produced the
 model handed over. This driver runs it R · K · (K - 1) + R · K times on the rows the algorithm
-names and hands the per-row losses to nested_interval.py. The service will run the same fits as
-work units (reuse, cancellation, progress); until then the request is refused (intervals.py) and
-this driver serves the coverage study (tests/benchmarks/bench_coverage.py) and the later check
-that the work units agree with it.
+names, each time fitting whole pipelines afresh and calling predict(), and hands the per-row
+losses to nested_interval.py. The service runs the same procedures as stored work units
+(service/cv/interval_folds.py, nested_interval_units.py) on the same partitions; its interval
+must equal this one (tests/engine/test_nested_interval_units.py), and the coverage study
+(tests/benchmarks/bench_coverage.py) uses this driver.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
 import numpy.typing as npt
-from sklearn.model_selection import KFold, StratifiedKFold
 
+from service.cv.interval_folds import partitions, procedure_training_rows
 from service.cv.metrics import make_scorer_set
 from service.cv.nested_interval import NestedInterval, OuterFoldLosses, nested_interval
+from service.cv.nested_interval_units import ROW_LOSSES
 from service.cv.plan import SelectionPlan
 from service.cv.preprocess import build_pipeline
 from service.cv.selection import best_position
@@ -27,26 +28,6 @@ from service.cv.splits import split_rows
 from service.cv.weights import fit_model
 
 Floats = npt.NDArray[np.float64]
-
-
-def _zero_one(y: npt.NDArray[np.generic], predicted: npt.NDArray[np.generic]) -> Floats:
-    return np.asarray(y != predicted, dtype="float64")
-
-
-def _squared(y: npt.NDArray[np.generic], predicted: npt.NDArray[np.generic]) -> Floats:
-    return np.asarray((np.asarray(y, dtype="float64") - predicted) ** 2, dtype="float64")
-
-
-def _absolute(y: npt.NDArray[np.generic], predicted: npt.NDArray[np.generic]) -> Floats:
-    return np.abs(np.asarray(y, dtype="float64") - np.asarray(predicted, dtype="float64"))
-
-
-# the metrics this driver serves: per-row loss from predict(), and score = sign * loss + offset
-ROW_LOSSES: dict[str, tuple[Callable[..., Floats], float, float]] = {
-    "accuracy": (_zero_one, -1.0, 1.0),
-    "neg_mean_squared_error": (_squared, -1.0, 0.0),
-    "neg_mean_absolute_error": (_absolute, -1.0, 0.0),
-}
 
 
 @dataclass(frozen=True)
@@ -96,27 +77,21 @@ def run_nested_interval(plan: SelectionPlan, repetitions: int, seed: int) -> Sco
     if metric not in ROW_LOSSES or plan.weights is not None:
         raise ValueError(f"the in-process nested interval serves {sorted(ROW_LOSSES)} unweighted")
     k = spec.outer.k
-    rows = np.arange(plan.n_rows)
-    stratified = spec.outer.method == "stratified_kfold"
     reps: list[list[OuterFoldLosses]] = []
     plain: list[Floats] = []  # every outer per-row loss of every repetition: the plain CV
     fits = 0
-    for r in range(repetitions):
-        splitter = (StratifiedKFold if stratified else KFold)(
-            k, shuffle=True, random_state=seed + r
-        )
-        parts = [test for _, test in splitter.split(rows, plan.y)]
+    for parts in partitions(spec, plan.y, repetitions, seed):
         folds = []
         for out in range(k):
             held_out = []
             for j in range(k):  # CV over the other K - 1 folds, fitted on the other K - 2
                 if j == out:
                     continue
-                train = np.concatenate([parts[i] for i in range(k) if i not in (out, j)])
+                train = procedure_training_rows(parts, out, j)
                 losses, used = _procedure_losses(plan, train, parts[j])
                 held_out.append(losses)
                 fits += used
-            train = np.concatenate([parts[i] for i in range(k) if i != out])
+            train = procedure_training_rows(parts, out, out)
             outer, used = _procedure_losses(plan, train, parts[out])
             fits += used
             folds.append(OuterFoldLosses(float(np.concatenate(held_out).mean()), outer))

@@ -13,6 +13,7 @@ from service.cv.candidates import Candidate, enumerate_candidates
 from service.cv.columns import apply_column_types, order_values
 from service.cv.errors import SpecError
 from service.cv.halving_schedule import check_first_rounds, check_halving, refuse_as_units
+from service.cv.interval_folds import build_interval_folds
 from service.cv.intervals import check_interval
 from service.cv.metrics import check_metrics
 from service.cv.preprocess import FeatureTable, check_preprocess, feature_table
@@ -51,6 +52,9 @@ class SelectionPlan:
     split_inputs: SplitInputs
     versions: dict[str, str] = field(default_factory=library_versions)
     weights: npt.NDArray[np.float64] | None = None  # one observation weight per row, if given
+    # a `nested` interval's procedure folds (service/cv/interval_folds.py): outer folds that
+    # the estimate does not average, their inner folds in `inner` beside the job's own
+    interval_folds: list[Fold] = field(default_factory=list)
 
     @property
     def n_rows(self) -> int:
@@ -59,12 +63,12 @@ class SelectionPlan:
 
     @property
     def scopes(self) -> list[str]:
-        """Outer fold scopes in (repeat, fold) order, then the final scope."""
-        return [f.scope for f in self.outer] + [FINAL_SCOPE]
+        """Outer fold scopes in (repeat, fold) order, the interval's procedure folds, then 'all'."""
+        return [f.scope for f in self.outer + self.interval_folds] + [FINAL_SCOPE]
 
     def outer_fold(self, scope: str) -> Fold:
         """The outer fold called `scope`."""
-        for fold in self.outer:
+        for fold in self.outer + self.interval_folds:
             if fold.scope == scope:
                 return fold
         raise KeyError(scope)
@@ -219,4 +223,8 @@ def build_plan(
     searches = {fold.scope: (fold.train, inner[fold.scope]) for fold in outer}
     searches[FINAL_SCOPE] = (all_rows, inner[FINAL_SCOPE])
     check_first_rounds(spec, y, searches, len(candidates))
-    return SelectionPlan(spec, candidates, table, y, outer, inner, inputs, versions, weights)
+    interval_folds, interval_inner = build_interval_folds(spec, inputs, n_rows=n, versions=tag)
+    inner |= interval_inner
+    return SelectionPlan(
+        spec, candidates, table, y, outer, inner, inputs, versions, weights, interval_folds
+    )

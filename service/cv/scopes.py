@@ -25,3 +25,15 @@ def parse_outer_scope(scope: str) -> tuple[int, int]:
     if match is None:
         raise ValueError(f"{scope!r} is not an outer fold scope like 'r0f2'")
     return int(match[1]), int(match[2])
+
+
+# The nested interval's procedure folds (service/cv/interval_folds.py) run as outer folds of
+# their own, numbered from here so they never meet a job's own outer repeats (at most
+# spec.MAX_REPEATS): repeat BASE + r·K + o, fold j is repetition r's procedure fitted without
+# parts o and j (j = o: without part o alone), scored on part j.
+INTERVAL_REPEAT_BASE = 1000
+
+
+def is_interval_repeat(repeat: int | None) -> bool:
+    """True for the repeat number of a nested interval's procedure fold."""
+    return repeat is not None and repeat >= INTERVAL_REPEAT_BASE

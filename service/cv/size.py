@@ -14,7 +14,7 @@ from __future__ import annotations
 import math
 
 from service.cv.errors import SpecError
-from service.cv.spec import FamilySpec, SelectionSpec, SplitSpec
+from service.cv.spec import DEFAULT_INTERVAL_REPETITIONS, FamilySpec, SelectionSpec, SplitSpec
 
 # A job fans out to outer k x inner k x candidates fits; past this many candidates a request is
 # almost surely a mistake (or a denial of service) and is refused before anything is stored.
@@ -56,7 +56,16 @@ def fold_count(plan: SplitSpec) -> int:
 def job_fits(spec: SelectionSpec, candidates: int) -> int:
     """Fits of one selection with `candidates` candidates (see the module docstring)."""
     search = fold_count(spec.inner) * candidates + 1
-    return fold_count(spec.outer) * search + search
+    return fold_count(spec.outer) * search + search + interval_fits(spec, candidates)
+
+
+def interval_fits(spec: SelectionSpec, candidates: int) -> int:
+    """A `nested` interval's fits: R · K · K whole selections (service/cv/interval_folds.py)."""
+    if spec.interval.method != "nested":
+        return 0
+    repetitions = spec.interval.repetitions or DEFAULT_INTERVAL_REPETITIONS
+    search = fold_count(spec.inner) * candidates + 1
+    return repetitions * spec.outer.k * spec.outer.k * search
 
 
 def _largest_factor(spec: SelectionSpec, candidates: int) -> str:
@@ -79,12 +88,16 @@ def check_job_size(spec: SelectionSpec, *, max_fits: int, sizes: int = 1) -> int
     fits = job_fits(spec, candidates) * sizes
     if fits > max_fits:
         field = _largest_factor(spec, candidates)
+        if 2 * interval_fits(spec, candidates) > fits:  # the interval is most of the work
+            field = "interval.repetitions"
         per_size = f" ({sizes} sizes of a learning curve)" if sizes > 1 else ""
         what = (
             "the search space (fewer grid values or draws) or the folds"
             if field == "families"
             else f"{field} or the search space"
         )
+        if field == "interval.repetitions":
+            what = "interval.repetitions, or use the quick interval"
         raise SpecError(
             field,
             f"this request needs {fits:,} fits{per_size}; a job may have at most "

@@ -24,6 +24,8 @@ MAX_FEATURES = 100_000
 MAX_NAME = 1_000  # characters of a column, estimator or metric name
 # repetitions of the nested interval: each costs K·(K-1) whole selections (Bates et al. 2024)
 MAX_INTERVAL_REPETITIONS = 100
+# when a nested request names none: the coverage study's setting (README, "interval")
+DEFAULT_INTERVAL_REPETITIONS = 3
 Name = Annotated[str, Field(min_length=1, max_length=MAX_NAME)]
 
 

@@ -59,6 +59,27 @@ def welch_t(new: Sequence[float], old: Sequence[float]) -> tuple[float, float, f
     return t, df, float(2 * stats.t.sf(abs(t), df))
 
 
+def judged_value(
+    result: dict[str, Any], metric: str, mean: float, degraded_on: str
+) -> tuple[str, float]:
+    """What is held against the threshold: ("estimate", mean) or ("interval_upper", bound).
+
+    Every metric here is a score where higher is better (scikit-learn's convention: a loss
+    such as the squared error is reported negated, neg_mean_squared_error). The interval's
+    bound on the better side is therefore always its upper bound; for a negated loss that is
+    minus the loss's lower bound, the smallest loss the interval allows. So `degraded` on the
+    interval fires only when even the most favourable reading is below the threshold. A job
+    whose estimate carries no interval (a time-ordered split, an unserved metric) is judged on
+    its estimate, and `judged_on` says so.
+    """
+    if degraded_on != "interval":
+        return "estimate", mean
+    interval = (result.get("estimate", {}).get(metric) or {}).get("interval")
+    if not interval:
+        return "estimate", mean
+    return "interval_upper", float(interval["upper"])
+
+
 def _finite(value: float) -> float | None:
     # JSON columns refuse NaN and infinity (docs/store.md): an undefined statistic is null
     return value if math.isfinite(value) else None
@@ -71,17 +92,22 @@ def compare_results(
     new_folds: list[str],
     old_folds: list[str],
     threshold: float | None,
+    degraded_on: str = "estimate",
 ) -> dict[str, Any]:
     """The comparison a refresh stores: pick change, estimate shift with its test, threshold."""
     metric = new["pick_by"]
     values = [float(f["scores"][metric]) for f in new["outer"]]
     mean = sum(values) / len(values)
+    judged_on, judged = judged_value(new, metric, mean, degraded_on)
     out: dict[str, Any] = {
         "metric": metric,
         "pick": new["final_pick"]["candidate_key"],
         "mean": mean,
         "threshold": threshold,
-        "below_threshold": threshold is not None and mean < threshold,
+        "degraded_on": degraded_on,
+        "judged_on": judged_on,
+        "judged_value": judged,
+        "below_threshold": threshold is not None and judged < threshold,
     }
     if old is None or old.get("pick_by") != metric:
         out.update(previous=None, pick_changed=False, test=None, moved=False)

@@ -4,9 +4,16 @@ from __future__ import annotations
 
 import uuid
 from pathlib import Path
-from typing import Any
+from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field, ValidationError, field_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Field,
+    ValidationError,
+    field_validator,
+    model_validator,
+)
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
@@ -32,6 +39,9 @@ class ScheduleRequest(BaseModel):
     cron: str = Field(min_length=1, max_length=100)
     timezone: str = Field(default="UTC", min_length=1, max_length=64)
     threshold: float | None = Field(default=None, allow_inf_nan=False)
+    # "estimate": degraded when the estimate is below the threshold; "interval": only when the
+    # interval's better bound is, i.e. when the job is confidently below (compare.py)
+    degraded_on: Literal["estimate", "interval"] = "estimate"
     webhook: str | None = Field(default=None, min_length=1, max_length=2000)
 
     @field_validator("source")
@@ -42,6 +52,15 @@ class ScheduleRequest(BaseModel):
                 "a bundled sample never changes; give a {'path': ...} or {'sql': ...} source"
             )
         return source
+
+    @model_validator(mode="after")
+    def _judged_against_something(self) -> ScheduleRequest:
+        if self.degraded_on == "interval" and self.threshold is None:
+            raise ValueError(
+                "degraded_on: 'interval' holds the interval's bound against the threshold; "
+                "give a threshold too"
+            )
+        return self
 
 
 def base_dir(settings: Settings) -> Path:
@@ -111,6 +130,7 @@ def create_schedule(
         cron=cron.text,
         timezone=request.timezone,
         threshold=request.threshold,
+        degraded_on=request.degraded_on,
         webhook_url=webhook,
         next_due_at=next_after(cron, utcnow(), tz),
     )

@@ -19,6 +19,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.auth import Principal
 from service.config import Settings
+from service.cv.scopes import INTERVAL_REPEAT_BASE
 from service.datasets.sources import DatasetSource, load_table
 from service.datasets.sql_source import SqlAccess
 from service.errors import BadInput
@@ -200,7 +201,12 @@ def _outer_folds(session: Session, job_id: str) -> list[str]:
     return list(
         session.scalars(
             select(JobFold.fingerprint)
-            .where(JobFold.job_id == job_id, JobFold.role == "outer")
+            .where(
+                JobFold.job_id == job_id,
+                JobFold.role == "outer",
+                # not a nested interval's procedure folds: the estimate does not average them
+                JobFold.repeat < INTERVAL_REPEAT_BASE,
+            )
             .order_by(JobFold.repeat, JobFold.fold_index)
         )
     )
@@ -235,6 +241,7 @@ def finish_refreshes(sessions: sessionmaker[Session]) -> list[int]:
                     new_folds=_outer_folds(session, job.id),
                     old_folds=_outer_folds(session, previous.id) if previous else [],
                     threshold=schedule.threshold,
+                    degraded_on=schedule.degraded_on,
                 )
                 status, error = refresh_status(comparison), None
             moved: CursorResult[Any] = session.execute(  # type: ignore[assignment]

@@ -60,6 +60,11 @@ class Schedule(Base):
     timezone: Mapped[str] = mapped_column(String(64), default="UTC", server_default="UTC")
     # the refresh is "degraded" when the pick_by estimate falls below this
     threshold: Mapped[float | None]
+    # what is held against the threshold: the estimate, or the interval's bound on the better
+    # side (service/schedules/compare.py, docs/schedules.md)
+    degraded_on: Mapped[str] = mapped_column(
+        String(16), default="estimate", server_default="estimate"
+    )
     webhook_url: Mapped[str | None] = mapped_column(String(2000))
     active: Mapped[bool] = mapped_column(Boolean, default=True, server_default=true())
     next_due_at: Mapped[datetime | None] = mapped_column(index=True)

@@ -8,6 +8,7 @@ from typing import Any
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
+from service.cv.scopes import INTERVAL_REPEAT_BASE
 from service.store.models import Candidate, FoldScore, Job, JobCandidate, JobFold
 
 INNER_ROLES = ("inner", "final_inner")
@@ -66,6 +67,9 @@ def inner_cells(session: Session, job: Job, metric: str) -> list[InnerCell]:
         .where(
             JobFold.job_id == job.id,
             JobFold.role.in_(INNER_ROLES),
+            # not the inner folds of a nested interval's procedures: the page draws the job's
+            # own searches (service/cv/interval_folds.py)
+            JobFold.parent_repeat.is_(None) | (JobFold.parent_repeat < INTERVAL_REPEAT_BASE),
             FoldScore.metric == metric,
             FoldScore.candidate_key.in_(keys),
         )

@@ -8,7 +8,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.cv.cautions import PEOPLE_PREFIX
-from service.cv.intervals import QUICK_COVERAGE, interval_words
+from service.cv.intervals import NESTED_COVERAGE, QUICK_COVERAGE, interval_words
 from service.store.models import Job
 from service.store.statuses import LIVE_JOB, JobStatus
 from service.web import job_state, svg, svg_grid, validation_curves
@@ -142,7 +142,8 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
         band = pick.get("interval")  # results from before intervals have no key at all
         context["interval_words"] = interval_words(band) if band else None
         context["interval_predates"] = "interval" not in pick
-        context["coverage"] = QUICK_COVERAGE if band and band["method"] == "quick" else None
+        coverage = {"quick": QUICK_COVERAGE, "nested": NESTED_COVERAGE}
+        context["coverage"] = coverage.get(band["method"]) if band else None
         context["strip"] = svg.estimate_strip(
             pick["values"],
             pick["mean"],

@@ -108,9 +108,30 @@ CASES: list[tuple[str, Edit, str]] = [
         "interval.method",
     ),
     (
-        "interval nested not yet available",
-        _set("interval", {"method": "nested"}),
+        "interval nested with two outer folds",
+        lambda r: _set("interval", {"method": "nested"})(_set("outer.k", 2)(r)),
         "interval.method",
+    ),
+    (
+        "interval nested on a time-ordered split",
+        lambda r: _set("interval", {"method": "nested"})(
+            _set("outer", {"method": "time_series", "k": 3, "order_by": "sepal length (cm)"})(r)
+        ),
+        "interval.method",
+    ),
+    (
+        "interval nested on a learning curve",
+        lambda r: _set("interval", {"method": "nested"})(
+            _set("sizes", [0.5, 1.0])(_set("kind", "learning_curve")(r))
+        ),
+        "interval.method",
+    ),
+    (
+        "interval nested past the fits cap",
+        lambda r: _set("interval", {"method": "nested", "repetitions": 100})(
+            _set(f"{FAMILY}.grid", {"C": [0.01 * (i + 1) for i in range(300)]})(r)
+        ),
+        "interval.repetitions",
     ),
     # the body as a whole
     ("unknown top-level field", _set("colour", "red"), "colour"),

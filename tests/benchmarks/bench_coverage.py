@@ -18,12 +18,20 @@ Methods:
 - fold mean +- z*se: the band the issue measured (mean of the outer fold scores +- 1.645 * their
   standard error at level 0.9), printed as the naive baseline;
 - nested (Bates, Hastie & Tibshirani 2024, Algorithm 1) with `--nested R` repetitions: the
-  in-process reference driver (service/cv/nested_interval_run.py), the job's whole search, pick
-  and refit as the procedure; its fits are R * K * K selections on top of the plain job's. Off by
-  default (0): the service refuses `nested` until its fits run as work units.
+  in-process reference driver (service/cv/nested_interval_run.py, which the service's stored
+  work units equal to 1e-12: tests/engine/test_nested_interval_units.py), the job's whole search,
+  pick and refit as the procedure; its fits are R * K * K selections on top of the plain job's.
+  Off unless asked for (`--nested R`).
 
-Run from the repository root (short default, a few minutes on two shared cores):
-`.venv/bin/python tests/benchmarks/bench_coverage.py [--tables 40] [--rows 100,300] [--nested R]`
+Search spaces (`--space`): `small`, three candidates (the settings the README quotes), or
+`large`, nine: the issue's logistic regression C x 5 and k-nearest neighbours k x 4 (Ridge alpha x
+5 and k-nearest neighbours for regression).
+
+Run from the repository root. `--quick` is a smoke run (10 tables, n = 100, 5,000 fresh rows,
+about a minute); the full study is n = 100, 300 and 1,000 and both spaces, hours on two shared
+cores, so run the cells you need:
+`.venv/bin/python tests/benchmarks/bench_coverage.py [--quick] [--tables 40] [--rows 100,300,1000]
+[--space small|large] [--nested R]`
 """
 
 from __future__ import annotations
@@ -60,6 +68,22 @@ FAMILIES = {
     ],
     "regression": [{"estimator": "Ridge", "grid": {"alpha": [0.1, 10.0, 1000.0]}}],
 }
+LARGE_FAMILIES = {
+    # the issue's nine-candidate search, and its regression counterpart
+    "classification": [
+        {
+            "estimator": "LogisticRegression",
+            "fixed": {"max_iter": 1000},
+            "grid": {"C": [0.01, 0.1, 1, 10, 100]},
+        },
+        {"estimator": "KNeighborsClassifier", "grid": {"n_neighbors": [1, 5, 15, 45]}},
+    ],
+    "regression": [
+        {"estimator": "Ridge", "grid": {"alpha": [0.1, 1.0, 10.0, 100.0, 1000.0]}},
+        {"estimator": "KNeighborsRegressor", "grid": {"n_neighbors": [1, 5, 15, 45]}},
+    ],
+}
+SPACES = {"small": FAMILIES, "large": LARGE_FAMILIES}
 METRIC = {"classification": "accuracy", "regression": "neg_mean_squared_error"}
 
 
@@ -84,14 +108,16 @@ def frame_of(X: np.ndarray, y: np.ndarray) -> pd.DataFrame:
     return frame
 
 
-def spec_for(task: str, level: float, seed: int, outer_repeats: int) -> SelectionSpec:
-    """The job: the small search, outer 5-fold (seeded, optionally repeated), inner 5-fold."""
+def spec_for(
+    task: str, level: float, seed: int, outer_repeats: int, space: str = "small"
+) -> SelectionSpec:
+    """The job: the search space, outer 5-fold (seeded, optionally repeated), inner 5-fold."""
     method = "stratified_kfold" if task == "classification" else "kfold"
     return SelectionSpec.model_validate(
         {
             "target": "target",
             "task": task,
-            "families": FAMILIES[task],
+            "families": SPACES[space][task],
             "outer": {"method": method, "k": 5, "repeats": outer_repeats, "seed": seed},
             "inner": {"method": method, "k": 5, "seed": seed + 1},
             "metrics": [METRIC[task]],
@@ -132,7 +158,9 @@ def one_table(task: str, n: int, table: int, args: argparse.Namespace, into: Set
     rows = rng.choice(POPULATION, size=n + args.fresh, replace=False)
     train, fresh = rows[:n], rows[n:]
     frame = frame_of(X[train], y[train])
-    spec = spec_for(task, args.level, seed=table, outer_repeats=args.outer_repeats)
+    spec = spec_for(
+        task, args.level, seed=table, outer_repeats=args.outer_repeats, space=args.space
+    )
     kinds = {column: "numeric" for column in frame.columns}
     plan = build_plan(spec, frame, kinds)
     outcome = run_nested(plan)
@@ -185,17 +213,26 @@ def report(task: str, n: int, setting: Setting, args: argparse.Namespace) -> lis
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--tables", type=int, default=40)
-    parser.add_argument("--rows", default="100,300", help="table sizes, comma-separated")
+    parser.add_argument("--rows", default="100,300,1000", help="table sizes, comma-separated")
+    parser.add_argument("--space", choices=sorted(SPACES), default="small")
+    parser.add_argument("--quick", action="store_true", help="10 tables, n = 100, 5,000 fresh")
     parser.add_argument("--tasks", default="classification,regression")
     parser.add_argument("--level", type=float, default=0.9)
     parser.add_argument("--fresh", type=int, default=20_000, help="fresh rows for the truth")
     parser.add_argument("--outer-repeats", type=int, default=1)
     parser.add_argument("--nested", type=int, default=0, help="repetitions R (0: not run)")
     args = parser.parse_args()
+    if args.quick:
+        args.tables, args.rows, args.fresh = 10, "100", 5_000
     sizes = [int(v) for v in args.rows.split(",")]
+    candidates = sum(
+        len(next(iter(f.get("grid", {"": [0]}).values())))
+        for f in SPACES[args.space]["classification"]
+    )
     header = [
         f"Coverage at level {args.level}: {args.tables} tables per setting, outer 5-fold x "
-        f"{args.outer_repeats} repeat(s), inner 5-fold, 3 candidates; truth = handed-over model "
+        f"{args.outer_repeats} repeat(s), inner 5-fold, {candidates} candidates ({args.space} "
+        f"space); truth = handed-over model "
         f"on {args.fresh} fresh rows. Coverage +- Monte-Carlo SE; fits relative to the plain job.",
         "",
         "| task | n | method | coverage | mean width | fits / plain | point - truth | tables |",

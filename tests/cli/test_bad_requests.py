@@ -354,10 +354,26 @@ CASES = [
         contains=("group_kfold",),
     ),
     Case(
-        "interval-nested-not-yet-available",
+        "interval-nested-with-two-outer-folds",
         "interval.method",
-        top(interval={"method": "nested", "level": 0.8}),
-        contains=("not yet available", "'quick'"),
+        lambda r: (r.update(interval={"method": "nested"}), r["outer"].update(k=2)),
+        contains=("outer.k", "'quick'"),
+    ),
+    Case(
+        "interval-nested-on-a-learning-curve",
+        "interval.method",
+        top(kind="learning_curve", sizes=[0.5, 1.0], interval={"method": "nested"}),
+        contains=("learning curve", "'quick'"),
+    ),
+    # 100 repetitions x 3 x 3 procedures x (2 inner folds x 301 candidates + 1) = 542,700 fits
+    Case(
+        "interval-nested-past-the-fits-cap",
+        "interval.repetitions",
+        lambda r: (
+            r.update(interval={"method": "nested", "repetitions": 100}),
+            r["families"][0]["grid"].update(C=[0.01 * (i + 1) for i in range(299)]),
+        ),
+        contains=("at most 200,000", "interval.repetitions"),
     ),
 ]
 CASE_IDS = [c.id for c in CASES]

@@ -184,6 +184,8 @@ def test_job_webhook_is_signed_and_sent_when_the_job_ends(
         ({"source": {"sample": "iris"}}, "source", "never changes"),
         ({"template": {**TEMPLATE, "target": "nope"}}, "template.target", "nope"),
         ({"template": {**TEMPLATE, "dataset": "abc"}}, "template.dataset", "no dataset"),
+        ({"degraded_on": "lower"}, "degraded_on", "'interval'"),
+        ({"degraded_on": "interval"}, "degraded_on", "give a threshold"),
     ],
 )
 def test_bad_schedules_are_refused_and_nothing_is_stored(
@@ -233,3 +235,15 @@ def test_webhook_secret_without_a_key_exits_2_with_one_sentence(live: Server) ->
     assert done.returncode == 2 and done.stdout == ""
     assert done.stderr.startswith("error: FOLDWISE_SECRET_KEY: is not set")
     assert done.stderr.count("\n") == 1 and "Traceback" not in done.stderr
+
+
+def test_degraded_on_is_stored_and_shown(live: Server, client: httpx.Client) -> None:
+    body = {"source": {"path": "pumps.csv"}, "template": TEMPLATE, "cron": "0 3 * * *"}
+    plain = client.post("/v1/schedules", json=body)
+    assert plain.status_code == 201 and plain.json()["degraded_on"] == "estimate"
+    created = client.post(
+        "/v1/schedules", json={**body, "threshold": 0.6, "degraded_on": "interval"}
+    )
+    assert created.status_code == 201, created.text
+    shown = client.get(f"/v1/schedules/{created.json()['id']}").json()
+    assert (shown["degraded_on"], shown["threshold"]) == ("interval", 0.6)

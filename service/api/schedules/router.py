@@ -46,6 +46,7 @@ def _public(schedule: Schedule) -> SchedulePublic:
         cron=schedule.cron,
         timezone=schedule.timezone,
         threshold=schedule.threshold,
+        degraded_on=schedule.degraded_on,
         webhook=schedule.webhook_url,
         active=schedule.active,
         next_due_at=schedule.next_due_at,

@@ -30,6 +30,11 @@ class SchedulePublic(BaseModel):
     cron: str
     timezone: str
     threshold: float | None
+    degraded_on: Literal["estimate", "interval"] = Field(
+        description="What `degraded` holds against the threshold: the estimate, or the "
+        "interval's bound on the better side (the upper bound of a score; foldwise's losses are "
+        "negated, so for them it is the smallest plausible loss)."
+    )
     webhook: str | None
     active: bool
     next_due_at: datetime | None = Field(description="UTC.")

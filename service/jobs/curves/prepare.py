@@ -98,6 +98,14 @@ def prepare_curve(
     if "sizes" not in data:
         raise BadInput("sizes", f"a learning curve needs sizes, {_EXAMPLE}.")
     sizes = check_sizes(data["sizes"])
+    if parse_job_request(_child_body(data, 1.0)).spec().interval.method == "nested":
+        # a size below 1 fits on a share of each outer training part, which is not the
+        # procedure the nested interval assesses (service/cv/intervals.check_interval)
+        raise BadInput(
+            "interval.method",
+            "'nested' is not served on a learning curve's sizes; use 'quick' (the default) "
+            "for a curve.",
+        )
     # every size is a whole selection: the job's fits cap holds for all of them together
     check_request_size(parse_job_request(_child_body(data, 1.0)), settings, sizes=len(sizes))
     # planned once at full size first, so a problem of the request itself keeps its own field

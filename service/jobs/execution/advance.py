@@ -13,6 +13,7 @@ from sqlalchemy import CursorResult, insert, update
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
+from service.cv.interval_folds import shared_with_outer
 from service.cv.nested import refit_units
 from service.cv.selection import pick
 from service.jobs import lifecycle
@@ -65,7 +66,12 @@ def advance_job(sessions: sessionmaker[Session], job_id: str, settings: Settings
             )
             for fold in loaded.plan.outer
         )
-        rows = [unit_row(job_id, r.kind, r.scope, r.candidate_key) for r in refit_units(picks)]
+        shared = shared_with_outer(loaded.plan.outer, loaded.plan.interval_folds)
+        rows = [
+            unit_row(job_id, r.kind, r.scope, r.candidate_key)
+            for r in refit_units(picks)
+            if r.scope not in shared  # the job's own outer refit serves it (interval_folds)
+        ]
         ids = list(session.scalars(insert(WorkUnit).returning(WorkUnit.id), rows))
         if job.request.get("reuse", True) and reuse_stored(session, job_id, loaded):
             ids = lifecycle.queued_unit_ids(session, job_id)

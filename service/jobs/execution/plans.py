@@ -42,8 +42,8 @@ def remember(job_id: str, loaded: LoadedPlan) -> None:
 
 
 def fold_fingerprints(plan: SelectionPlan) -> set[str]:
-    """Every fold fingerprint of a plan, outer and inner."""
-    prints = {f.fingerprint for f in plan.outer}
+    """Every fold fingerprint of a plan, outer (with a nested interval's) and inner."""
+    prints = {f.fingerprint for f in plan.outer + plan.interval_folds}
     prints |= {f.fingerprint for folds in plan.inner.values() for f in folds}
     return prints
 

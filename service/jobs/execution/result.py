@@ -16,6 +16,7 @@ from service.cv.intervals import attach_intervals
 from service.cv.selection import Pick as EnginePick
 from service.cv.selection import ScoreBook, assemble
 from service.cv.slices import slice_estimates
+from service.jobs.execution.interval_work import nested_from_store, work_by_purpose
 from service.jobs.execution.plans import LoadedPlan
 from service.jobs.handover.outer_predictions import NotReady, all_outer
 from service.store.db import utcnow
@@ -88,7 +89,12 @@ def build_result(
     result["work"]["outer_computed_by"] = computing_jobs(session, loaded, result)
     result["versions"] = versions()
     result["cautions"] = find_cautions(loaded.plan, loaded.frame, loaded.kinds)
-    result["cautions"] += attach_intervals(loaded.plan.spec, result)  # estimate[m]["interval"]
+    result["work"]["by_purpose"] = work_by_purpose(session, job, loaded)
+    nested = None
+    if loaded.plan.spec.interval.method == "nested":  # from the procedure folds' predictions
+        nested, unserved = nested_from_store(session, loaded, picks)
+        result["cautions"] += unserved
+    result["cautions"] += attach_intervals(loaded.plan.spec, result, nested)
     # every candidate evaluated, drawn range values as drawn, in the order that breaks ties
     result["candidates"] = [c.public() for c in loaded.plan.candidates]
     spec = loaded.plan.spec

@@ -10,6 +10,7 @@ from sqlalchemy import insert
 from sqlalchemy.orm import Session
 
 from service.config import Settings
+from service.cv.interval_folds import shared_with_outer
 from service.cv.scopes import FINAL_SCOPE, parse_outer_scope
 from service.cv.splits import Fold as PlanFold
 from service.cv.units import inner_units
@@ -45,7 +46,9 @@ def _job_fold_rows(job_id: str, prepared: PreparedJob) -> list[dict[str, Any]]:
     # fold's training part (by that fold's scope) for inner folds
     plan = prepared.plan
     rows = []
-    for outer in plan.outer:
+    # a nested interval's procedure folds are outer folds of their own (repeats from
+    # scopes.INTERVAL_REPEAT_BASE up), so their inner folds find their parent like any other
+    for outer in plan.outer + plan.interval_folds:
         rows.append(
             {
                 "job_id": job_id,
@@ -133,12 +136,14 @@ def create_job(
             for c in plan.candidates
         ],
     )
-    folds = list(plan.outer) + [f for group in plan.inner.values() for f in group]
+    folds = plan.outer + plan.interval_folds + [f for group in plan.inner.values() for f in group]
     insert_ignoring_duplicates(
         session, Fold, [_fold_row(f, table.content_hash, plan.n_rows, plan.versions) for f in folds]
     )
     job_id = uuid.uuid4().hex
-    first_units = inner_units(plan)
+    # a procedure fold that is one of the job's outer folds shares their units (interval_folds)
+    shared = shared_with_outer(plan.outer, plan.interval_folds)
+    first_units = [u for u in inner_units(plan) if u.scope not in shared]
     session.add(
         Job(
             id=job_id,
@@ -146,7 +151,7 @@ def create_job(
             status=JobStatus.QUEUED,
             stage="inner",
             request=prepared.request.model_dump(mode="json"),
-            units_total=len(first_units) + len(plan.outer) + 1,
+            units_total=len(first_units) + len(plan.scopes) - len(shared),  # a refit per scope
             idempotency_key=idempotency_key,
             team=team,  # set before the flush: the idempotency key is unique per team
         )

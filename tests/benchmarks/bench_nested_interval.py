@@ -1,0 +1,214 @@
+"""Performance of the `nested` interval against the plain job, on 1 and 2 workers (issue 11).
+
+The coverage study's mid setting (tests/benchmarks/bench_coverage.py): a classification table of
+300 rows drawn from its fixed population, three candidates, outer 5 x inner 5, and the nested
+interval with R repetitions. Each run starts on an empty store (nothing reused) and is timed
+from submission to result:
+- embedded: `run_embedded` on the local process pool, 1 and 2 workers;
+- Celery (`--celery`): real `foldwise worker` processes (one pool process each) on Redis and a
+  fresh PostgreSQL database, 1 and then 2 workers.
+The machine's own parallel capacity is measured in the same run: one CPU-bound function alone,
+then two copies at once in two processes; capacity = 2 x (time alone) / (time of the pair).
+The 1 -> 2 worker speed-up is printed as a share of that capacity (goal: at least 90%).
+
+Run from the repository root:
+`PYTHONPATH=. .venv/bin/python tests/benchmarks/bench_nested_interval.py [--repetitions 3]
+[--runs 1] [--celery]`
+"""
+
+from __future__ import annotations
+
+import argparse
+import multiprocessing
+import statistics
+import sys
+import tempfile
+import time
+import uuid
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+from threadpoolctl import threadpool_limits
+
+REPO = Path(__file__).resolve().parents[2]
+sys.path.insert(0, str(REPO))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+
+from bench_coverage import FAMILIES, frame_of, population  # noqa: E402
+
+from service.config import load_settings  # noqa: E402
+from service.jobs.local.driver import run_embedded  # noqa: E402
+
+N_ROWS = 300
+
+
+def _spin(n: int) -> float:
+    """A CPU-bound function of pure Python (no BLAS, no I/O)."""
+    total = 0.0
+    for i in range(n):
+        total += (i % 7) * 0.5
+    return total
+
+
+def capacity(n: int = 6_000_000) -> tuple[float, float, float]:
+    """(seconds alone, seconds of two copies at once, capacity = 2 x alone / pair)."""
+    context = multiprocessing.get_context("fork")
+    with context.Pool(1) as one:
+        started = time.perf_counter()
+        one.apply(_spin, (n,))
+        alone = time.perf_counter() - started
+    with context.Pool(2) as two:
+        two.map(_spin, [1000, 1000])  # both processes up before the clock starts
+        started = time.perf_counter()
+        two.map(_spin, [n, n], chunksize=1)
+        pair = time.perf_counter() - started
+    return alone, pair, 2 * alone / pair
+
+
+def request(table: Path, repetitions: int | None) -> dict[str, Any]:
+    """The mid setting's job, plain or with the nested interval."""
+    body: dict[str, Any] = {
+        "dataset": {"path": str(table)},
+        "target": "target",
+        "task": "classification",
+        "families": FAMILIES["classification"],
+        "outer": {"method": "stratified_kfold", "k": 5, "seed": 0},
+        "inner": {"method": "stratified_kfold", "k": 5, "seed": 1},
+        "metrics": ["accuracy"],
+        "reuse": False,
+    }
+    if repetitions:
+        body["interval"] = {"method": "nested", "repetitions": repetitions}
+    return body
+
+
+def write_table(folder: Path) -> Path:
+    """One table of the mid setting as a CSV."""
+    X, y = population("classification")
+    rows = np.random.default_rng(7).choice(len(y), size=N_ROWS, replace=False)
+    path = folder / "mid.csv"
+    frame_of(X[rows], y[rows]).to_csv(path, index=False)
+    return path
+
+
+def embedded(body: dict[str, Any], workers: int, folder: Path) -> tuple[float, int]:
+    """(wall seconds, fits) of one embedded run on a fresh store."""
+    settings = load_settings({"FOLDWISE_HOME": str(folder / uuid.uuid4().hex)})
+    started = time.perf_counter()
+    result = run_embedded(body, settings=settings, workers=workers, base_dir=folder).result
+    return time.perf_counter() - started, int(result["work"]["fits"])
+
+
+def celery_runs(bodies: dict[str, dict[str, Any]], folder: Path) -> dict[tuple[str, int], float]:
+    """Wall seconds of each body on 1, then 2 real Celery workers (fresh database each)."""
+    # imported here: only --celery needs PostgreSQL, Redis and the test stack
+    import psycopg
+    import redis
+
+    from tests.distributed.stack import deploy
+
+    admin_dsn = "host=127.0.0.1 port=5432 user=postgres dbname=postgres"
+    broker = redis.Redis("127.0.0.1", 6379, db=0)
+    number = next(
+        n for n in range(1, 16) if broker.set(f"foldwise-test:redis-db:{n}", "1", nx=True, ex=1800)
+    )
+    seconds: dict[tuple[str, int], float] = {}
+    try:
+        for workers in (1, 2):
+            for name, body in bodies.items():
+                database = f"foldwise_bench_{uuid.uuid4().hex[:12]}"
+                with psycopg.connect(admin_dsn, autocommit=True) as admin:
+                    admin.execute(f'CREATE DATABASE "{database}"')
+                home = folder / uuid.uuid4().hex
+                env = {
+                    "FOLDWISE_HOME": str(home),
+                    "FOLDWISE_DATABASE_URL": f"postgresql+psycopg://postgres@127.0.0.1/{database}",
+                    "FOLDWISE_BROKER_URL": f"redis://127.0.0.1:6379/{number}",
+                    "FOLDWISE_DATA_ROOTS": str(folder),
+                }
+                stack = deploy(env, home)
+                try:
+                    started = [stack.start_worker(f"w{i}") for i in range(workers)]
+                    for process in started:
+                        stack.wait_ready(process, "ready.")
+                    began = time.perf_counter()
+                    job_id = stack.submit(body)
+                    stack.wait_finished(job_id, 3600)
+                    seconds[(name, workers)] = time.perf_counter() - began
+                finally:
+                    stack.stop()
+                    redis.Redis("127.0.0.1", 6379, db=number).flushdb()
+                    with psycopg.connect(admin_dsn, autocommit=True) as admin:
+                        admin.execute(f'DROP DATABASE IF EXISTS "{database}" WITH (FORCE)')
+    finally:
+        broker.delete(f"foldwise-test:redis-db:{number}")
+    return seconds
+
+
+def median_of(runs: int, once: Callable[[], tuple[float, int]]) -> tuple[float, int]:
+    """The median wall time of `runs` runs, and the fits of the last."""
+    found = [once() for _ in range(runs)]
+    return statistics.median(s for s, _ in found), found[-1][1]
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--repetitions", type=int, default=3)
+    parser.add_argument("--runs", type=int, default=1, help="runs per cell (median)")
+    parser.add_argument("--celery", action="store_true", help="also through Celery workers")
+    args = parser.parse_args()
+    alone, pair, machine = capacity()
+    print(
+        f"capacity: one CPU-bound function {alone:.2f} s alone, two at once {pair:.2f} s: "
+        f"{machine:.2f}x",
+        flush=True,
+    )
+    with tempfile.TemporaryDirectory() as temporary, threadpool_limits(1):
+        folder = Path(temporary)
+        table = write_table(folder)
+        bodies = {"plain": request(table, None), "nested": request(table, args.repetitions)}
+        cells: dict[tuple[str, int], tuple[float, int]] = {}
+        for name, body in bodies.items():
+            for workers in (1, 2):
+                cells[(name, workers)] = median_of(
+                    args.runs, lambda b=body, w=workers: embedded(b, w, folder)
+                )
+                print(
+                    f"embedded {name} on {workers}: {cells[(name, workers)][0]:.1f} s", flush=True
+                )
+        through_celery = celery_runs(bodies, folder) if args.celery else {}
+    alone_end, pair_end, machine_end = capacity()
+    print(
+        f"capacity at the end: {alone_end:.2f} s alone, {pair_end:.2f} s the pair: "
+        f"{machine_end:.2f}x"
+    )
+    alone, pair = (alone + alone_end) / 2, (pair + pair_end) / 2
+    machine = (machine + machine_end) / 2
+    print(
+        f"\nmid setting: n = {N_ROWS}, 3 candidates, outer 5 x inner 5, nested R = "
+        f"{args.repetitions}; medians of {args.runs} run(s); empty store each run\n"
+    )
+    print("| job | fits | path | 1 worker (s) | 2 workers (s) | speed-up | share of capacity |")
+    print("|---|---|---|---|---|---|---|")
+    for name in bodies:
+        rows = [("embedded pool", cells[(name, 1)][0], cells[(name, 2)][0])]
+        if through_celery:
+            rows.append(("Celery", through_celery[(name, 1)], through_celery[(name, 2)]))
+        for path, one, two in rows:
+            speedup = one / two
+            print(
+                f"| {name} | {cells[(name, 1)][1]} | {path} | {one:.1f} | {two:.1f} | "
+                f"{speedup:.2f}x | {speedup / machine:.0%} |"
+            )
+    plain, nested = cells[("plain", 1)], cells[("nested", 1)]
+    print(
+        f"\nnested / plain on 1 worker: {nested[1] / plain[1]:.1f}x the fits, "
+        f"{nested[0] / plain[0]:.1f}x the wall time; machine capacity {machine:.2f}x "
+        f"(alone {alone:.2f} s, pair {pair:.2f} s)"
+    )
+
+
+if __name__ == "__main__":
+    main()
