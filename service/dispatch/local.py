@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import logging
 import multiprocessing
+import os
 import socket
 import threading
 from concurrent.futures import Future, ProcessPoolExecutor
@@ -16,14 +17,15 @@ from typing import Any
 from threadpoolctl import threadpool_limits
 
 from service.config import Settings
-from service.dispatch.base import mark_published
+from service.dispatch.base import mark_audits_published, mark_published
+from service.jobs import lifecycle
 from service.jobs.audits.audit import run_audit
 from service.jobs.execution.execute import UnitReport, worker_name
-from service.jobs.execution.reconcile import reconcile
+from service.jobs.execution.reconcile import Waiting, reconcile
 from service.jobs.execution.work import run_and_advance
 from service.jobs.lifecycle import queued_units_of_live_jobs, release_claims
 from service.notify.delivery import deliver_due
-from service.processes import die_with_parent, stop_pool
+from service.processes import die_with, die_with_parent, pid_alive, stop_pool
 from service.schedules.tick import tick_schedules
 from service.store.db import make_engine, make_session_factory
 
@@ -33,10 +35,11 @@ _child: dict[str, Any] = {}
 SHUTDOWN_GRACE = 2.0
 
 
-def _child_start(settings: Settings) -> None:
-    # a fresh process (forkserver): its own engine, one BLAS thread per process; it dies with
-    # the fork server, which dies with the API process
+def _child_start(settings: Settings, server: int) -> None:
+    # a fresh process (forkserver): its own engine, one BLAS thread per process. Its parent is
+    # the fork server, which outlives a killed API process: it watches the API process itself
     die_with_parent()
+    die_with(server)
     _child["limits"] = threadpool_limits(1)
     _child["sessions"] = make_session_factory(make_engine(settings.database_url))
     _child["settings"] = settings
@@ -58,6 +61,7 @@ class LocalPool:
 
     def __init__(self, settings: Settings, workers: int = 2, poll_seconds: float = 1.0) -> None:
         self.settings = settings
+        self.workers = workers
         self.poll_seconds = poll_seconds
         self._engine = make_engine(settings.database_url)
         self._sessions = make_session_factory(self._engine)
@@ -73,9 +77,11 @@ class LocalPool:
             ]
         )
         self._pool = ProcessPoolExecutor(
-            workers, mp_context=context, initializer=_child_start, initargs=(settings,)
+            workers, mp_context=context, initializer=_child_start, initargs=(settings, os.getpid())
         )
+        self._take_back_from_the_dead()
         self._inflight: set[int] = set()
+        self._audits: set[str] = set()  # audits handed to a pool process, not yet ended
         self._lock = threading.Lock()
         self._wake = threading.Event()
         self._stop = threading.Event()
@@ -90,6 +96,30 @@ class LocalPool:
         for _ in range(workers):  # start the processes now rather than on the first unit
             self._pool.submit(int)
 
+    def _take_back_from_the_dead(self) -> None:
+        """Units held by pool processes of this machine that no longer exist run again now.
+
+        A server killed with its pool (kill -9, an OOM kill) leaves its units `running` under
+        leases nobody renews. On this machine we can tell a dead holder from a silent one: its
+        pid is gone. Their leases end now rather than up to FOLDWISE_UNIT_LEASE later. A holder
+        whose pid is in use (another server on this store, or a reused pid) keeps its lease.
+        """
+        prefix = f"{socket.gethostname()}:"
+        try:
+            with self._sessions.begin() as session:
+                dead = [
+                    worker
+                    for worker in lifecycle.running_holders(session, prefix)
+                    if worker.removeprefix(prefix).isdigit()
+                    and not pid_alive(int(worker.removeprefix(prefix)))
+                ]
+                lifecycle.expire_leases(session, dead)
+        except Exception:  # the leases still lapse, and the reconciler takes the units then
+            log.exception("could not take back the units of dead pool processes")
+            return
+        if dead:
+            log.warning("taking back the units of pool processes that died: %s", dead)
+
     def publish(self, unit_ids: list[int]) -> None:
         """Record the hand-over and wake the poller: the units are already queued in the store."""
         mark_published(self._sessions, unit_ids)
@@ -97,8 +127,16 @@ class LocalPool:
 
     def publish_audit(self, audit_id: str) -> None:
         """Recompute the audit on a pool process (fits stay out of the API process)."""
+        mark_audits_published(self._sessions, [audit_id])
+        with self._lock:
+            self._hand_audit(audit_id)
+
+    def _hand_audit(self, audit_id: str) -> None:
+        if audit_id in self._audits:
+            return
+        self._audits.add(audit_id)
         future = self._pool.submit(_child_audit, audit_id)
-        future.add_done_callback(_log_crash(f"audit {audit_id}"))
+        future.add_done_callback(self._audit_ended(audit_id))
 
     def _queued(self) -> list[int]:
         with self._sessions() as session:
@@ -108,11 +146,20 @@ class LocalPool:
     def _loop(self) -> None:
         while not self._stop.is_set():
             try:
-                # leases that ran out and stalled jobs, as the Celery beat tick would do
-                lost = reconcile(self._sessions, self.settings).republish
+                # leases that ran out, stalled jobs, audits nobody runs (a server killed before
+                # it ran them), as the Celery beat tick does; this pool is their only broker
                 with self._lock:
-                    for unit_id in dict.fromkeys(self._queued() + lost):
-                        if self._stop.is_set():
+                    held = Waiting(set(self._inflight), set(self._audits))
+                found = reconcile(self._sessions, self.settings, held)
+                with self._lock:
+                    for audit_id in found.audits:
+                        if not self._stop.is_set():
+                            self._hand_audit(audit_id)
+                    # units whose holder died first, then the queue in id order; and no more
+                    # than the pool has processes: a unit handed over waits in the pool's own
+                    # queue, where a lease that lapses later could not overtake it
+                    for unit_id in dict.fromkeys(found.republish + self._queued()):
+                        if self._stop.is_set() or len(self._inflight) >= self.workers:
                             break
                         if unit_id in self._inflight:
                             continue
@@ -134,6 +181,15 @@ class LocalPool:
                 deliver_due(self._sessions, self.settings)
             except Exception:  # keep serving: the next tick retries from the store
                 log.exception("local schedule or delivery tick failed")
+
+    def _audit_ended(self, audit_id: str) -> Any:
+        def done(future: Future[str]) -> None:
+            with self._lock:
+                self._audits.discard(audit_id)
+            if not self._stop.is_set() and future.exception() is not None:
+                log.error("audit %s crashed its process: %s", audit_id, future.exception())
+
+        return done
 
     def _finished(self, unit_id: int) -> Any:
         def done(future: Future[UnitReport]) -> None:
@@ -175,11 +231,3 @@ class LocalPool:
                 release_claims(session, workers)
         except Exception:  # their leases still run out, and the reconciler re-queues them
             log.exception("could not hand back the units of the stopped pool processes")
-
-
-def _log_crash(what: str) -> Any:
-    def done(future: Future[str]) -> None:
-        if future.exception() is not None:
-            log.error("%s crashed its process: %s", what, future.exception())
-
-    return done
