@@ -14,6 +14,7 @@ import signal
 import subprocess
 import sys
 import time
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -68,15 +69,25 @@ class Stack:
         self.sessions = make_session_factory(self.engine)
 
     # processes ---------------------------------------------------------------------------
-    def start(self, name: str, *arguments: str) -> Process:
-        """Start `python -m service.cli.main ARGUMENTS` in its own process group."""
+    def start(
+        self,
+        name: str,
+        *arguments: str,
+        launcher: Sequence[str] = (),
+        env: Mapping[str, str] | None = None,
+    ) -> Process:
+        """Start `python -m service.cli.main ARGUMENTS` in its own process group.
+
+        `launcher` goes before the command (e.g. `ip netns exec HOST`, which execs, so the pid
+        and group stay the program's); `env` overrides the deployment's variables for it.
+        """
         log = self.home / "logs" / f"{name}.log"
         log.parent.mkdir(parents=True, exist_ok=True)
-        with log.open("wb") as out:
+        with log.open("ab") as out:
             popen = subprocess.Popen(
-                [sys.executable, "-m", "service.cli.main", *arguments],
+                [*launcher, sys.executable, "-m", "service.cli.main", *arguments],
                 cwd=REPO,
-                env=self.process_env(),
+                env={**self.process_env(), **(env or {})},
                 stdout=out,
                 stderr=subprocess.STDOUT,
                 start_new_session=True,
@@ -220,6 +231,20 @@ def wait_until(condition: Any, timeout: float, what: str, stack: Stack) -> Any:
             return value
         time.sleep(0.1)
     raise AssertionError(f"not within {timeout}s: {what}\n{stack.logs()}")
+
+
+def create_token(stack: Stack, team: str) -> str:
+    """A bearer token for `team` (submit and read), made as an operator does (`token create`)."""
+    created = subprocess.run(
+        [sys.executable, "-m", "service.cli.main", "token", "create", "--team", team,
+         "--scopes", "submit,read"],
+        cwd=REPO,
+        env=stack.process_env(),
+        check=True,
+        capture_output=True,
+        text=True,
+    )  # fmt: skip
+    return created.stdout.strip()
 
 
 def deploy(env: dict[str, str], home: Path) -> Stack:

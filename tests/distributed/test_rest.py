@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-import subprocess
-import sys
 import time
 from collections.abc import Callable
 from typing import Any
@@ -15,29 +13,7 @@ from service.cli.local_server import answers_healthz, free_port
 from service.store.models import WorkUnit
 
 from .requests import small_request
-from .stack import REPO, Stack, comparable, wait_until
-
-
-def _token(stack: Stack) -> str:
-    created = subprocess.run(
-        [
-            sys.executable,
-            "-m",
-            "service.cli.main",
-            "token",
-            "create",
-            "--team",
-            "rest-e2e",
-            "--scopes",
-            "submit,read",
-        ],
-        cwd=REPO,
-        env=stack.process_env(),
-        check=True,
-        capture_output=True,
-        text=True,
-    )
-    return created.stdout.strip()
+from .stack import Stack, comparable, create_token, wait_until
 
 
 def test_a_job_submitted_over_rest_finishes_on_the_workers_like_the_embedded_run(
@@ -48,7 +24,7 @@ def test_a_job_submitted_over_rest_finishes_on_the_workers_like_the_embedded_run
     base = f"http://127.0.0.1:{port}"
     stack.start("api", "serve", "--host", "127.0.0.1", "--port", str(port))
     wait_until(lambda: answers_healthz(base), 60, "the API answering /healthz", stack)
-    headers = {"Authorization": f"Bearer {_token(stack)}"}
+    headers = {"Authorization": f"Bearer {create_token(stack, 'rest-e2e')}"}
     request = small_request()
 
     with httpx.Client(base_url=base, headers=headers, timeout=30) as client:

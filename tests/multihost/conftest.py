@@ -1,0 +1,73 @@
+"""The hosts and servers one test module shares, and each test's fresh deployment on them.
+
+Namespaces and veth links need root (CI runs as root); like PostgreSQL in tests/conftest.py,
+their absence fails the tests rather than skipping them, so a green run always means they ran.
+"""
+
+from __future__ import annotations
+
+import itertools
+import os
+import uuid
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+import pytest
+from distributed.stack import REPO
+
+from service.config import load_settings
+from service.jobs.local.driver import run_embedded
+
+from .deployment import WORKERS, Deployment, start_deployment
+from .jobs import fault_request
+from .netns import Topology
+from .servers import Servers, remove, start_servers
+
+# a host with no processes, the dead end of the server's misrouted broker traffic
+VOID = "void"
+_REDIS_DATABASES = itertools.count(1)
+
+
+@pytest.fixture(scope="module")
+def topology() -> Iterator[Topology]:
+    """The server host, two worker hosts and the dead end, linked; deleted after the module."""
+    if os.geteuid() != 0:
+        pytest.fail("the multi-host tests create network namespaces: run them as root (CI does)")
+    hosts = Topology(hosts=(*WORKERS, VOID))
+    hosts.build()
+    try:
+        yield hosts
+    finally:
+        hosts.teardown()
+
+
+@pytest.fixture(scope="module")
+def servers(topology: Topology) -> Iterator[Servers]:
+    """The server host's private PostgreSQL and Redis, for the module."""
+    running = start_servers(topology.server, topology.server_address(None))
+    try:
+        yield running
+    finally:
+        remove(running)
+
+
+@pytest.fixture(scope="module")
+def reference(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
+    """The embedded run's result of the fault tests' request (SQLite, one local process)."""
+    home = tmp_path_factory.mktemp("embedded")
+    settings = load_settings({"FOLDWISE_HOME": str(home)})
+    return run_embedded(fault_request(), settings=settings, workers=1, base_dir=REPO).result
+
+
+@pytest.fixture
+def deployment(topology: Topology, servers: Servers, tmp_path: Path) -> Iterator[Deployment]:
+    """A migrated database of its own, API and beat on the server host, a worker per host."""
+    servers.ensure_running()
+    redis_db = next(_REDIS_DATABASES) % 16
+    name = f"foldwise_{uuid.uuid4().hex[:12]}"
+    running = start_deployment(topology, servers, tmp_path, name, redis_db)
+    try:
+        yield running
+    finally:
+        running.stop()
