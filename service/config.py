@@ -72,15 +72,18 @@ class Settings:
     sql_connections: Mapping[str, SqlConnection] = field(default_factory=dict)
     sql_max_rows: int = 1_000_000
     sql_max_bytes: int = 200 * 1024 * 1024
+    # the most bytes this host keeps of tables and models copied from the store (the datasets
+    # and models folders together); the least recently used copies go first
+    cache_bytes: int = 10 * 1024 * 1024 * 1024
 
     @property
     def dataset_dir(self) -> Path:
-        """Content-addressed copies of every registered table (what workers load by hash)."""
+        """This host's copies of registered tables, by content hash (the store holds them all)."""
         return self.home / "datasets"
 
     @property
     def model_dir(self) -> Path:
-        """Final picks, refit on all rows, stored by their sha256."""
+        """This host's copies of final models, by sha256 (the store holds them all)."""
         return self.home / "models"
 
     @property
@@ -217,4 +220,5 @@ def load_settings(env: dict[str, str] | None = None) -> Settings:
         sql_connections=_sql_connections(env.get("FOLDWISE_SQL_CONNECTIONS")),
         sql_max_rows=int(_number(env, "FOLDWISE_SQL_MAX_ROWS", 1_000_000)),
         sql_max_bytes=int(_number(env, "FOLDWISE_SQL_MAX_MB", 200) * 1024 * 1024),
+        cache_bytes=int(_number(env, "FOLDWISE_CACHE_MB", 10 * 1024) * 1024 * 1024),
     )

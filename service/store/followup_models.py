@@ -11,6 +11,8 @@ from datetime import datetime
 from sqlalchemy import Boolean, CheckConstraint, ForeignKey, String, UniqueConstraint, true
 from sqlalchemy.orm import Mapped, mapped_column
 
+# loaded with this module so that importing it gives the one metadata with every table
+from service.store import blob_models as blob_models
 from service.store.models import Base, one_of
 from service.store.types import CreatedAt, Hash64, JsonDoc, LongText, Short
 

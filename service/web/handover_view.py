@@ -20,6 +20,7 @@ from service.config import Settings
 from service.cv.slices import OuterPredictions
 from service.jobs.execution.plans import PlanMismatch, plan_for_job
 from service.jobs.handover.outer_predictions import NotReady, all_outer
+from service.store.host_cache import CopyRefused
 from service.store.models import Job
 from service.store.statuses import JobStatus
 from service.web.handover_svg import scatter
@@ -111,7 +112,7 @@ def prediction_sections(session: Session, job: Job, settings: Settings) -> dict[
     try:
         loaded = plan_for_job(session, job.id, settings)
         parts = all_outer(session, loaded, job.result)
-    except (NotReady, PlanMismatch, FileNotFoundError) as exc:
+    except (NotReady, PlanMismatch, FileNotFoundError, CopyRefused) as exc:
         return {"unavailable": str(exc)}
     y = np.concatenate([loaded.plan.y[p.rows] for p in parts])
     section = (

@@ -73,21 +73,26 @@ class Stack:
         self,
         name: str,
         *arguments: str,
+        home: Path | None = None,
         launcher: Sequence[str] = (),
         env: Mapping[str, str] | None = None,
     ) -> Process:
         """Start `python -m service.cli.main ARGUMENTS` in its own process group.
 
-        `launcher` goes before the command (e.g. `ip netns exec HOST`, which execs, so the pid
-        and group stay the program's); `env` overrides the deployment's variables for it.
+        `home`, if given, is its own FOLDWISE_HOME (a host that shares no folder with the
+        others); `launcher` goes before the command (e.g. `ip netns exec HOST`, which execs, so
+        the pid and group stay the program's); `env` overrides the deployment's variables.
         """
         log = self.home / "logs" / f"{name}.log"
         log.parent.mkdir(parents=True, exist_ok=True)
+        process_env = {**self.process_env(), **(env or {})}
+        if home is not None:
+            process_env["FOLDWISE_HOME"] = str(home)
         with log.open("ab") as out:
             popen = subprocess.Popen(
                 [*launcher, sys.executable, "-m", "service.cli.main", *arguments],
                 cwd=REPO,
-                env={**self.process_env(), **(env or {})},
+                env=process_env,
                 stdout=out,
                 stderr=subprocess.STDOUT,
                 start_new_session=True,
@@ -100,9 +105,10 @@ class Stack:
         """This process's environment with the deployment's variables on top."""
         return {**os.environ, **self.env}
 
-    def start_worker(self, name: str) -> Process:
-        """A worker with one pool process, named NAME@host."""
-        return self.start(name, "worker", "--concurrency", "1", "--name", f"{name}@%h")
+    def start_worker(self, name: str, home: Path | None = None) -> Process:
+        """A worker with one pool process, named NAME@host (on its own `home` if given)."""
+        arguments = ("worker", "--concurrency", "1", "--name", f"{name}@%h")
+        return self.start(name, *arguments, home=home)
 
     def start_beat(self) -> Process:
         """The one beat process, ticking the reconciler every FOLDWISE_RECONCILE_SECONDS."""
@@ -152,6 +158,19 @@ class Stack:
             dispatcher.publish(unit_ids)
         finally:
             dispatcher.close()
+
+    def token(self, team: str) -> str:
+        """A new submit-and-read token for `team`, made by the command an operator runs."""
+        command = ["token", "create", "--team", team, "--scopes", "submit,read"]
+        created = subprocess.run(
+            [sys.executable, "-m", "service.cli.main", *command],
+            cwd=REPO,
+            env=self.process_env(),
+            check=True,
+            capture_output=True,
+            text=True,
+        )
+        return created.stdout.strip()
 
     # broker ------------------------------------------------------------------------------
     def redis(self) -> redis.Redis:
@@ -231,20 +250,6 @@ def wait_until(condition: Any, timeout: float, what: str, stack: Stack) -> Any:
             return value
         time.sleep(0.1)
     raise AssertionError(f"not within {timeout}s: {what}\n{stack.logs()}")
-
-
-def create_token(stack: Stack, team: str) -> str:
-    """A bearer token for `team` (submit and read), made as an operator does (`token create`)."""
-    created = subprocess.run(
-        [sys.executable, "-m", "service.cli.main", "token", "create", "--team", team,
-         "--scopes", "submit,read"],
-        cwd=REPO,
-        env=stack.process_env(),
-        check=True,
-        capture_output=True,
-        text=True,
-    )  # fmt: skip
-    return created.stdout.strip()
 
 
 def deploy(env: dict[str, str], home: Path) -> Stack:

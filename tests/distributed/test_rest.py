@@ -13,7 +13,7 @@ from service.cli.local_server import answers_healthz, free_port
 from service.store.models import WorkUnit
 
 from .requests import small_request
-from .stack import Stack, comparable, create_token, wait_until
+from .stack import Stack, comparable, wait_until
 
 
 def test_a_job_submitted_over_rest_finishes_on_the_workers_like_the_embedded_run(
@@ -24,7 +24,7 @@ def test_a_job_submitted_over_rest_finishes_on_the_workers_like_the_embedded_run
     base = f"http://127.0.0.1:{port}"
     stack.start("api", "serve", "--host", "127.0.0.1", "--port", str(port))
     wait_until(lambda: answers_healthz(base), 60, "the API answering /healthz", stack)
-    headers = {"Authorization": f"Bearer {create_token(stack, 'rest-e2e')}"}
+    headers = {"Authorization": f"Bearer {stack.token('rest-e2e')}"}
     request = small_request()
 
     with httpx.Client(base_url=base, headers=headers, timeout=30) as client:

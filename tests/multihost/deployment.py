@@ -17,7 +17,7 @@ from pathlib import Path
 import httpx
 import psycopg
 import redis
-from distributed.stack import Process, Stack, create_token, deploy, wait_until
+from distributed.stack import Process, Stack, deploy, wait_until
 
 from service.cli.local_server import answers_healthz
 
@@ -128,7 +128,7 @@ def start_deployment(
         for worker in workers:
             stack.wait_ready(worker, "ready.")
         stack.wait_ready(beat, "beat: Starting")
-        deployment.token = create_token(stack, "multihost")
+        deployment.token = stack.token("multihost")
     except BaseException:
         deployment.stop()
         raise

@@ -20,7 +20,7 @@ from service.datasets.sources import (
     load_table,
 )
 from service.datasets.sql_source import SqlAccess
-from service.datasets.store import read_table, save_table
+from service.datasets.store import keep_table, stored_frame
 from service.errors import BadInput, NotFound
 from service.jobs.queries.datasets import register_dataset, visible_dataset
 from service.store.db import insert_ignoring_duplicates
@@ -71,7 +71,7 @@ def load_source(source: DatasetSource, settings: Settings, *, team: str) -> Load
 
 def store_table(session: Session, table: LoadedTable, *, team: str, settings: Settings) -> bool:
     """Keep the table in the dataset store and let `team` see it; True if newly registered."""
-    save_table(table.frame, table.content_hash, settings.dataset_dir)
+    keep_table(session, table.frame, table.content_hash, settings)
     description = describe_table(table)
     insert_ignoring_duplicates(
         session,
@@ -144,13 +144,15 @@ def list_datasets(
     return list(page), int(total or 0)
 
 
-def column_summaries(dataset: Dataset, settings: Settings) -> list[dict[str, Any]]:
+def column_summaries(
+    session: Session, dataset: Dataset, settings: Settings
+) -> list[dict[str, Any]]:
     """Each column's kind, missing and distinct counts, and a hint on reading it otherwise."""
     columns = [dict(c) for c in dataset.columns]
     if all("missing" in c and "distinct" in c and "hint" in c for c in columns):
         return columns
     # Rows stored by a job submission carry kinds only; count from the stored table once asked.
-    frame = read_table(dataset.content_hash, settings.dataset_dir)
+    frame = stored_frame(session, dataset.content_hash, settings)
     for column in columns:
         values = frame[column["name"]]
         column["missing"] = int(values.isna().sum())

@@ -68,7 +68,8 @@ def _public(
         dataset.content_hash
     )
     columns = [
-        ColumnPublic.model_validate(c) for c in registration.column_summaries(dataset, settings)
+        ColumnPublic.model_validate(c)
+        for c in registration.column_summaries(session, dataset, settings)
     ]
     return DatasetPublic(**_summary(dataset, copy).model_dump(), columns=columns)
 

@@ -25,7 +25,9 @@ from service.jobs.execution.plans import plan_for_job
 from service.jobs.handover import model_file
 from service.jobs.handover.model_card import card_markdown, model_card
 from service.jobs.handover.outer_predictions import NotReady, require_result
+from service.jobs.handover.stored_model import model_path
 from service.jobs.queries import jobs as job_queries
+from service.store.host_cache import CopyRefused
 from service.store.models import FinalModel, Job
 
 router = APIRouter(prefix="/v1/jobs", tags=["handover"], route_class=StrictJsonRoute)
@@ -81,19 +83,24 @@ def _job(session: Any, job_id: str, principal: Any, what: str) -> tuple[Job, dic
         **_ANSWERS,
     },
 )
-def download_model(job_id: JobId, principal: ReaderDep, session: SessionDep) -> Response:
+def download_model(
+    job_id: JobId, principal: ReaderDep, session: SessionDep, settings: SettingsDep
+) -> Response:
     """The file the job stored, checked against its recorded sha256 before it is sent."""
     job, _ = _job(session, job_id, principal, "model")
     model = session.get_one(FinalModel, job.id)
-    path = FilePath(model.path)
-    if path.suffix != model_file.SUFFIX:
+    if FilePath(model.path).suffix != model_file.SUFFIX:
         raise ProblemError(
             409,
             f"job {job.id}'s model was saved before models were kept in skops' format; submit "
             "the job again to get a model that can be handed over.",
         )
-    if model_file.file_sha256(path) != model.sha256:  # a damaged file is never handed over
-        raise ProblemError(500, f"job {job.id}'s model file does not match its sha256.")
+    try:
+        # this host's copy, fetched from the store on a miss and checked against the sha256:
+        # a damaged file is never handed over
+        path = model_path(session, model, settings)
+    except CopyRefused as exc:
+        raise ProblemError(500, f"job {job.id}'s model cannot be handed over: {exc}") from None
     digest = base64.b64encode(bytes.fromhex(model.sha256)).decode()
     # streamed from disk: a forest's file can be large
     return FileResponse(
@@ -115,10 +122,12 @@ def download_model(job_id: JobId, principal: ReaderDep, session: SessionDep) -> 
     summary="The final pick's model card as JSON (Mitchell et al. 2019 sections)",
     responses=_ANSWERS,
 )
-def get_model_card(job_id: JobId, principal: ReaderDep, session: SessionDep) -> ModelCard:
+def get_model_card(
+    job_id: JobId, principal: ReaderDep, session: SessionDep, settings: SettingsDep
+) -> ModelCard:
     """Dataset, target, task, the pick, the nested estimate, gap, pick frequency, cautions."""
     job, _ = _job(session, job_id, principal, "model card")
-    return ModelCard.model_validate(model_card(session, job))
+    return ModelCard.model_validate(model_card(session, job, settings))
 
 
 @router.get(
@@ -134,12 +143,13 @@ def get_model_card(job_id: JobId, principal: ReaderDep, session: SessionDep) -> 
     },
 )
 def get_model_card_markdown(
-    job_id: JobId, principal: ReaderDep, session: SessionDep
+    job_id: JobId, principal: ReaderDep, session: SessionDep, settings: SettingsDep
 ) -> PlainTextResponse:
     """The same card as Markdown."""
     job, _ = _job(session, job_id, principal, "model card")
     return PlainTextResponse(
-        card_markdown(model_card(session, job)), media_type="text/markdown; charset=utf-8"
+        card_markdown(model_card(session, job, settings)),
+        media_type="text/markdown; charset=utf-8",
     )
 
 

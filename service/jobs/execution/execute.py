@@ -33,7 +33,9 @@ from service.jobs.execution.heartbeat import Heartbeat
 from service.jobs.execution.plans import LoadedPlan, plan_for_job
 from service.jobs.execution.scores import load_book
 from service.jobs.handover import model_file
+from service.store import blobs
 from service.store.db import insert_ignoring_duplicates
+from service.store.host_cache import CopyRefused, HostCache, evict
 from service.store.models import FinalModel, FoldPrediction, FoldScore, Job, WorkUnit
 from service.store.statuses import UnitStatus
 
@@ -83,16 +85,23 @@ class _StopCheck:
             return False
 
 
-def _save_model(outcome: UnitOutcome, settings: Settings) -> tuple[str, Path, int]:
+def _save_model(
+    session: Session, outcome: UnitOutcome, settings: Settings
+) -> tuple[str, Path, int]:
     # kept in skops' format only: the bytes a client downloads are the bytes hashed here
     payload = model_file.model_bytes(outcome.model)
     digest = model_file.sha256(payload)
-    settings.model_dir.mkdir(parents=True, exist_ok=True)
-    path = settings.model_dir / f"{digest}{model_file.SUFFIX}"
+    # into the store in the record transaction, so a host without this one's disk serves it
+    blobs.put_bytes(session, "model", digest, payload)
+    cache = HostCache.of(settings)
+    path = cache.path("model", digest)
     if not path.exists():
-        temporary = path.with_suffix(f".{os.getpid()}.tmp")
+        path.parent.mkdir(parents=True, exist_ok=True)
+        # a hidden temporary name, which the cache's sweep removes if this process dies here
+        temporary = path.parent / f".{digest}.{os.getpid()}.tmp"
         temporary.write_bytes(payload)
         os.replace(temporary, path)
+    evict(session, cache, keep=path)
     return digest, path, len(payload)
 
 
@@ -143,7 +152,7 @@ def _record(
     ]
     insert_ignoring_duplicates(session, FoldPrediction, predictions)
     if outcome.model is not None:
-        digest, path, size = _save_model(outcome, settings)
+        digest, path, size = _save_model(session, outcome, settings)
         final = pick(loaded.plan, FINAL_SCOPE, load_book(session, loaded))
         insert_ignoring_duplicates(
             session,
@@ -210,7 +219,7 @@ def run_claimed(
             return UnitReport(unit_id, job_id, LOST)
         beat.stop()
         return UnitReport(unit_id, job_id, _finish(sessions, unit_id, token, UnitStatus.CANCELLED))
-    except NonFiniteScore as exc:  # its sentence is the whole story: no traceback to read
+    except (NonFiniteScore, CopyRefused) as exc:  # the sentence is the whole story
         beat.stop()
         return UnitReport(
             unit_id, job_id, _finish(sessions, unit_id, token, UnitStatus.FAILED, str(exc))

@@ -11,7 +11,7 @@ from sqlalchemy.orm import Session
 
 from service.config import Settings
 from service.cv.plan import SelectionPlan, build_plan
-from service.datasets.store import read_table_cached
+from service.datasets.store import stored_frame_cached
 from service.jobs.intake.request import JobRequest
 from service.store.models import Dataset, Job, JobFold
 
@@ -55,7 +55,7 @@ def plan_for_job(session: Session, job_id: str, settings: Settings) -> LoadedPla
         return _CACHE[job_id]
     job = session.get_one(Job, job_id)
     dataset = session.scalars(select(Dataset).where(Dataset.content_hash == job.dataset_hash)).one()
-    frame = read_table_cached(job.dataset_hash, settings.dataset_dir)
+    frame = stored_frame_cached(session, job.dataset_hash, settings)
     kinds = {col["name"]: col["kind"] for col in dataset.columns}
     request = JobRequest.model_validate(job.request)
     plan = build_plan(request.spec(), frame, kinds)

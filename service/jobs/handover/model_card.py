@@ -14,8 +14,11 @@ from typing import Any
 from sqlalchemy import select
 from sqlalchemy.orm import Session
 
+from service.config import Settings
 from service.jobs.handover.model_file import MEDIA_TYPE, SUFFIX, untrusted_types_of
 from service.jobs.handover.outer_predictions import require_result
+from service.jobs.handover.stored_model import model_path
+from service.store.host_cache import CopyRefused
 from service.store.models import Dataset, FinalModel, Job
 
 
@@ -32,15 +35,18 @@ def _inputs(job: Job, dataset: Dataset, result: dict[str, Any]) -> list[dict[str
     return [{"name": n, "kind": kinds.get(n, "unknown")} for n in names]
 
 
-def _untrusted(path: str) -> list[str] | None:
-    """What skops would ask the loader to trust; None for a model kept in an older form."""
-    file = Path(path)
-    if file.suffix != SUFFIX or not file.is_file():
+def _untrusted(session: Session, model: FinalModel, settings: Settings) -> list[str] | None:
+    """What skops would ask the loader to trust; None for a model kept in an older form or
+    that this host cannot have intact (the model route says why)."""
+    if Path(model.path).suffix != SUFFIX:
         return None
-    return untrusted_types_of(file)
+    try:
+        return untrusted_types_of(model_path(session, model, settings))
+    except CopyRefused:
+        return None
 
 
-def model_card(session: Session, job: Job) -> dict[str, Any]:
+def model_card(session: Session, job: Job, settings: Settings) -> dict[str, Any]:
     """The card as a JSON document (NotReady unless the job succeeded)."""
     result = require_result(job, "model card")
     dataset = session.scalars(select(Dataset).where(Dataset.content_hash == job.dataset_hash)).one()
@@ -57,7 +63,7 @@ def model_card(session: Session, job: Job) -> dict[str, Any]:
             "format": MEDIA_TYPE,
             "model_sha256": final["model_sha256"],
             "size_bytes": model.size_bytes,
-            "untrusted_types": _untrusted(model.path),
+            "untrusted_types": _untrusted(session, model, settings),
             "fitted_at": job.finished_at.isoformat() if job.finished_at else None,
             "versions": result["versions"],
         },

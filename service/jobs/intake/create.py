@@ -13,7 +13,7 @@ from service.config import Settings
 from service.cv.scopes import FINAL_SCOPE, parse_outer_scope
 from service.cv.splits import Fold as PlanFold
 from service.cv.units import inner_units
-from service.datasets.store import save_table
+from service.datasets.store import keep_table
 from service.jobs.execution.plans import LoadedPlan
 from service.jobs.execution.reuse import reuse_stored
 from service.jobs.intake.prepare import PreparedJob
@@ -106,7 +106,7 @@ def create_job(
     dispatched (a crash in between leaves queued units that a reconciler can find).
     """
     table, plan = prepared.table, prepared.plan
-    save_table(table.frame, table.content_hash, settings.dataset_dir)
+    keep_table(session, table.frame, table.content_hash, settings)
     insert_ignoring_duplicates(
         session,
         Dataset,

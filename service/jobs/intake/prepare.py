@@ -15,7 +15,7 @@ from service.cv.plan import SelectionPlan, build_plan
 from service.cv.size import check_job_size
 from service.datasets.sources import LoadedTable, load_table
 from service.datasets.sql_source import SqlAccess
-from service.datasets.store import read_table
+from service.datasets.store import stored_frame
 from service.errors import BadInput
 from service.jobs.intake.request import JobRequest, parse_job_request
 from service.store.models import Dataset
@@ -40,7 +40,7 @@ def _registered(session: Session, content_hash: str, settings: Settings) -> Load
             f"no registered dataset has content hash {content_hash!r}; give a source object "
             'such as {"path": ...} instead, or check the hash.',
         )
-    frame = read_table(content_hash, settings.dataset_dir)
+    frame = stored_frame(session, content_hash, settings)
     kinds = {col["name"]: col["kind"] for col in dataset.columns}
     return LoadedTable(frame, kinds, content_hash, dict(dataset.origin))
 
