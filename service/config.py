@@ -59,7 +59,11 @@ class Settings:
     # before it must assume its claim is gone.
     lease_seconds: float = 40.0
     heartbeat_seconds: float = 10.0
-    reconcile_seconds: float = 30.0
+    # the reconcile tick asks the broker which queued units it still holds and publishes the
+    # lost ones at once, so a lost message waits at most one period (docs/reliability.md); the
+    # delay is the fallback when the broker cannot be asked (a message older than it is sent
+    # again: a copy too many is dropped by the claim)
+    reconcile_seconds: float = 20.0
     republish_after: float = 300.0
     # webhooks: URL prefixes the operator allows (none: no webhooks), and the key team secrets
     # derive from (unset: the server sends no webhooks at all)
@@ -209,7 +213,7 @@ def load_settings(env: dict[str, str] | None = None) -> Settings:
         unit_time_limit=int(_number(env, "FOLDWISE_UNIT_TIME_LIMIT", 3_000)),
         lease_seconds=lease,
         heartbeat_seconds=heartbeat,
-        reconcile_seconds=_number(env, "FOLDWISE_RECONCILE_SECONDS", 30),
+        reconcile_seconds=_number(env, "FOLDWISE_RECONCILE_SECONDS", 20),
         republish_after=_number(env, "FOLDWISE_REPUBLISH_AFTER", 300),
         webhook_allow=tuple(
             p.strip() for p in (env.get("FOLDWISE_WEBHOOK_ALLOW") or "").split(",") if p.strip()

@@ -10,7 +10,8 @@ from typing import Any
 from celery import Task
 
 from service.dispatch import TASK_RECONCILE, TASK_RUN_AUDIT, TASK_RUN_UNIT
-from service.dispatch.celery_client import send_units
+from service.dispatch.broker_queue import broker_waiting
+from service.dispatch.celery_client import send_audits, send_units
 from service.jobs.audits.audit import run_audit
 from service.jobs.execution.reconcile import reconcile
 from service.jobs.execution.work import run_and_advance
@@ -50,18 +51,24 @@ def run_unit(self: Task, unit_id: int) -> str:
 
 @app.task(name=TASK_RECONCILE)
 def reconcile_tick() -> dict[str, Any]:
-    """Publish again what the store says is unfinished and unowned; move stalled jobs on."""
-    found = reconcile(state.sessions(), state.settings())
+    """Publish again what the store says waits and the broker lost; move stalled jobs on."""
+    settings = state.settings()
+    # read before the store: a message sent in between only looks lost once (a harmless copy)
+    waiting = broker_waiting(settings.broker_url)
+    found = reconcile(state.sessions(), settings, waiting)
     publish(found.republish)
-    if found.republish or found.advanced or found.abandoned:
+    send_audits(app, state.sessions(), found.audits)
+    if found.republish or found.advanced or found.abandoned or found.audits:
         log.warning(
-            "reconcile: republished %s, advanced %s, gave up on %s",
+            "reconcile: republished units %s and audits %s, advanced %s, gave up on %s",
             found.republish,
+            found.audits,
             found.advanced,
             found.abandoned,
         )
     return {
         "republished": found.republish,
+        "audits": found.audits,
         "advanced": found.advanced,
         "abandoned": found.abandoned,
     }

@@ -9,6 +9,7 @@ from sqlalchemy import update
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.store.db import utcnow
+from service.store.followup_models import Audit
 from service.store.models import WorkUnit
 
 log = logging.getLogger(__name__)
@@ -35,6 +36,14 @@ def mark_published(sessions: sessionmaker[Session], unit_ids: list[int]) -> None
         session.execute(
             update(WorkUnit).where(WorkUnit.id.in_(unit_ids)).values(published_at=utcnow())
         )
+
+
+def mark_audits_published(sessions: sessionmaker[Session], audit_ids: list[str]) -> None:
+    """Record when audits were handed over (a queued audit never sent is sent by the reconciler)."""
+    if not audit_ids:
+        return
+    with sessions.begin() as session:
+        session.execute(update(Audit).where(Audit.id.in_(audit_ids)).values(published_at=utcnow()))
 
 
 def publish_after_commit(dispatcher: Dispatcher, unit_ids: list[int], job_id: str) -> None:

@@ -9,7 +9,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
 from service.dispatch import TASK_RUN_AUDIT, TASK_RUN_UNIT, UNIT_QUEUE
-from service.dispatch.base import mark_published
+from service.dispatch.base import mark_audits_published, mark_published
 from service.store.db import make_engine, make_session_factory
 
 
@@ -41,6 +41,13 @@ def send_units(app: Celery, sessions: sessionmaker[Session], unit_ids: list[int]
     mark_published(sessions, unit_ids)
 
 
+def send_audits(app: Celery, sessions: sessionmaker[Session], audit_ids: list[str]) -> None:
+    """Send one run_audit message per id, then record when (the reconciler reads that)."""
+    for audit_id in audit_ids:
+        app.send_task(TASK_RUN_AUDIT, args=[audit_id], queue=UNIT_QUEUE)
+    mark_audits_published(sessions, audit_ids)
+
+
 class CeleryDispatcher:
     """Sends one `run_unit` message per unit id to the unit queue."""
 
@@ -57,7 +64,7 @@ class CeleryDispatcher:
 
     def publish_audit(self, audit_id: str) -> None:
         """Send one run_audit message; the audit row's status says whether it ran."""
-        self.app.send_task(TASK_RUN_AUDIT, args=[audit_id], queue=UNIT_QUEUE)
+        send_audits(self.app, self._sessions, [audit_id])
 
     def close(self) -> None:
         """Close the broker connection pool and the store's."""

@@ -16,10 +16,10 @@ from typing import Any
 from threadpoolctl import threadpool_limits
 
 from service.config import Settings
-from service.dispatch.base import mark_published
+from service.dispatch.base import mark_audits_published, mark_published
 from service.jobs.audits.audit import run_audit
 from service.jobs.execution.execute import UnitReport, worker_name
-from service.jobs.execution.reconcile import reconcile
+from service.jobs.execution.reconcile import Waiting, reconcile
 from service.jobs.execution.work import run_and_advance
 from service.jobs.lifecycle import queued_units_of_live_jobs, release_claims
 from service.notify.delivery import deliver_due
@@ -76,6 +76,7 @@ class LocalPool:
             workers, mp_context=context, initializer=_child_start, initargs=(settings,)
         )
         self._inflight: set[int] = set()
+        self._audits: set[str] = set()  # audits handed to a pool process, not yet ended
         self._lock = threading.Lock()
         self._wake = threading.Event()
         self._stop = threading.Event()
@@ -97,8 +98,16 @@ class LocalPool:
 
     def publish_audit(self, audit_id: str) -> None:
         """Recompute the audit on a pool process (fits stay out of the API process)."""
+        mark_audits_published(self._sessions, [audit_id])
+        with self._lock:
+            self._hand_audit(audit_id)
+
+    def _hand_audit(self, audit_id: str) -> None:
+        if audit_id in self._audits:
+            return
+        self._audits.add(audit_id)
         future = self._pool.submit(_child_audit, audit_id)
-        future.add_done_callback(_log_crash(f"audit {audit_id}"))
+        future.add_done_callback(self._audit_ended(audit_id))
 
     def _queued(self) -> list[int]:
         with self._sessions() as session:
@@ -108,10 +117,16 @@ class LocalPool:
     def _loop(self) -> None:
         while not self._stop.is_set():
             try:
-                # leases that ran out and stalled jobs, as the Celery beat tick would do
-                lost = reconcile(self._sessions, self.settings).republish
+                # leases that ran out, stalled jobs, audits nobody runs (a server killed before
+                # it ran them), as the Celery beat tick does; this pool is their only broker
                 with self._lock:
-                    for unit_id in dict.fromkeys(self._queued() + lost):
+                    held = Waiting(set(self._inflight), set(self._audits))
+                found = reconcile(self._sessions, self.settings, held)
+                with self._lock:
+                    for audit_id in found.audits:
+                        if not self._stop.is_set():
+                            self._hand_audit(audit_id)
+                    for unit_id in dict.fromkeys(self._queued() + found.republish):
                         if self._stop.is_set():
                             break
                         if unit_id in self._inflight:
@@ -134,6 +149,15 @@ class LocalPool:
                 deliver_due(self._sessions, self.settings)
             except Exception:  # keep serving: the next tick retries from the store
                 log.exception("local schedule or delivery tick failed")
+
+    def _audit_ended(self, audit_id: str) -> Any:
+        def done(future: Future[str]) -> None:
+            with self._lock:
+                self._audits.discard(audit_id)
+            if not self._stop.is_set() and future.exception() is not None:
+                log.error("audit %s crashed its process: %s", audit_id, future.exception())
+
+        return done
 
     def _finished(self, unit_id: int) -> Any:
         def done(future: Future[UnitReport]) -> None:
@@ -175,11 +199,3 @@ class LocalPool:
                 release_claims(session, workers)
         except Exception:  # their leases still run out, and the reconciler re-queues them
             log.exception("could not hand back the units of the stopped pool processes")
-
-
-def _log_crash(what: str) -> Any:
-    def done(future: Future[str]) -> None:
-        if future.exception() is not None:
-            log.error("%s crashed its process: %s", what, future.exception())
-
-    return done

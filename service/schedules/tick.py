@@ -171,9 +171,12 @@ def tick_schedules(
     with sessions() as session:
         due = list(
             session.execute(
-                select(Schedule.id, Schedule.next_due_at).where(
-                    Schedule.active.is_(True), Schedule.next_due_at <= now
-                )
+                select(Schedule.id, Schedule.next_due_at)
+                .where(Schedule.active.is_(True), Schedule.next_due_at <= now)
+                # oldest due first, each in its own transaction: a tick that dies half-way
+                # leaves the rest due, and the next tick takes them (the unique key on
+                # (schedule, due time) keeps the ones done from being done twice)
+                .order_by(Schedule.next_due_at, Schedule.id)
             )
         )
     for schedule_id, due_at in due:

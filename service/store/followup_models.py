@@ -44,6 +44,8 @@ class Audit(Base):
     tolerance: Mapped[float]
     report: Mapped[JsonDoc | None]
     created_at: Mapped[CreatedAt]
+    # when its message was last sent (None: never); the reconciler sends a lost one again
+    published_at: Mapped[datetime | None]
     finished_at: Mapped[datetime | None]
 
 

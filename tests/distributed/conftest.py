@@ -16,13 +16,8 @@ from service.jobs.local.driver import run_embedded
 from .stack import REPO, Stack, deploy, start_workers_and_beat
 
 REDIS_HOST, REDIS_PORT = "127.0.0.1", 6379
-# The unit time limit stays at its default (the lease, 40 s renewed every 10 s, no longer depends
-# on it). Two settings are shortened, and only here: the reconcile period and the republish delay,
-# so that the flushed-broker and killed-worker tests heal within seconds rather than minutes; at
-# their defaults (30 s, 300 s) a flushed broker's queued units wait up to five minutes, which is
-# issue 10's to change. test_lease_recovery.py runs with none of these set.
-RECONCILE_SECONDS = "2"
-REPUBLISH_AFTER = "5"
+# Every time setting stays at its default (unit time limit, lease, heartbeat, reconcile period,
+# republish delay): the tests see what an operator gets.
 
 
 @pytest.fixture
@@ -57,8 +52,6 @@ def stack(tmp_path: Path, postgresql_url: str, redis_url: str) -> Iterator[Stack
         "FOLDWISE_HOME": str(home),
         "FOLDWISE_DATABASE_URL": postgresql_url,
         "FOLDWISE_BROKER_URL": redis_url,
-        "FOLDWISE_RECONCILE_SECONDS": RECONCILE_SECONDS,
-        "FOLDWISE_REPUBLISH_AFTER": REPUBLISH_AFTER,
     }
     deployment = deploy(env, home)
     try:

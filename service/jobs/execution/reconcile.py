@@ -1,14 +1,19 @@
 """The reconciler: the store is the truth, the broker only transport.
 
 A Redis without persistence loses its queues on restart, and a killed worker leaves a unit
-running under a lease nobody will renew. On every tick the reconciler finds units the store says
-are unfinished and whose message may be lost, and jobs whose last unit landed without anyone
+running under a lease nobody will renew. On every tick the reconciler finds units and audits the
+store says are waiting and whose message is lost, and jobs whose last unit landed without anyone
 moving them on.
+
+A message counts as lost when it was never sent (a crash between commit and publish), when the
+broker was asked and no longer holds it (`waiting`, read by the caller from the broker's queue
+or the local pool's hand-outs), or, when nobody could be asked, when it was sent more than
+FOLDWISE_REPUBLISH_AFTER seconds ago. A copy sent twice is harmless: the claim drops it.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import timedelta
 
 from sqlalchemy import and_, func, or_, select
@@ -20,17 +25,27 @@ from service.jobs.curves.settle import settle_live_curves
 from service.jobs.intake.start import start_if_settled
 from service.jobs.lifecycle import MAX_ATTEMPTS
 from service.store.db import utcnow
+from service.store.followup_models import Audit
 from service.store.models import Job, WorkUnit
 from service.store.statuses import LIVE_JOB, UnitStatus
 
 
 @dataclass(frozen=True)
+class Waiting:
+    """Unit ids and audit ids whose message still waits to be taken (read from the broker)."""
+
+    units: set[int] = field(default_factory=set)
+    audits: set[str] = field(default_factory=set)
+
+
+@dataclass(frozen=True)
 class Reconciled:
-    """What one tick found: units to publish again, jobs moved on, units given up on."""
+    """What one tick found: units and audits to publish again, jobs moved on, units given up on."""
 
     republish: list[int]
     advanced: list[str]
     abandoned: list[int]
+    audits: list[str] = field(default_factory=list)
 
 
 def _give_up(session: Session) -> list[int]:
@@ -60,30 +75,47 @@ def _give_up(session: Session) -> list[int]:
     return dead
 
 
-def _lost(session: Session, settings: Settings) -> list[int]:
+def _lost(session: Session, settings: Settings, waiting: Waiting | None) -> list[int]:
     now = utcnow()
-    stale = now - timedelta(seconds=settings.republish_after)
     live_jobs = select(Job.id).where(Job.status.in_(LIVE_JOB), Job.cancel_requested.is_(False))
-    return list(
-        session.scalars(
-            select(WorkUnit.id)
-            .where(
-                WorkUnit.job_id.in_(live_jobs),
-                or_(
-                    and_(
-                        WorkUnit.status == UnitStatus.QUEUED,
-                        or_(WorkUnit.published_at.is_(None), WorkUnit.published_at < stale),
-                    ),
-                    and_(
-                        WorkUnit.status == UnitStatus.RUNNING,
-                        WorkUnit.lease_until < now,
-                        WorkUnit.attempts < MAX_ATTEMPTS,
-                    ),
+    if waiting is None:  # nobody to ask: a message sent long enough ago counts as lost
+        stale = now - timedelta(seconds=settings.republish_after)
+        sent_and_gone = WorkUnit.published_at < stale
+    else:  # sent, and the broker no longer holds it
+        sent_and_gone = WorkUnit.published_at.is_not(None)
+    found = session.execute(
+        select(WorkUnit.id, WorkUnit.status)
+        .where(
+            WorkUnit.job_id.in_(live_jobs),
+            or_(
+                and_(
+                    WorkUnit.status == UnitStatus.QUEUED,
+                    or_(WorkUnit.published_at.is_(None), sent_and_gone),
                 ),
-            )
-            .order_by(WorkUnit.id)
+                and_(
+                    WorkUnit.status == UnitStatus.RUNNING,
+                    WorkUnit.lease_until < now,
+                    WorkUnit.attempts < MAX_ATTEMPTS,
+                ),
+            ),
         )
+        .order_by(WorkUnit.id)
     )
+    held = waiting.units if waiting is not None else set()
+    # a running unit whose lease lapsed is sent again even if a copy waits: that copy may be
+    # the dead holder's own, redelivered only once the broker's visibility timeout passes
+    return [
+        unit_id for unit_id, status in found if unit_id not in held or status == UnitStatus.RUNNING
+    ]
+
+
+def _lost_audits(session: Session, settings: Settings, waiting: Waiting | None) -> list[str]:
+    query = select(Audit.id).where(Audit.status == "queued").order_by(Audit.created_at, Audit.id)
+    if waiting is None:
+        stale = utcnow() - timedelta(seconds=settings.republish_after)
+        query = query.where(or_(Audit.published_at.is_(None), Audit.published_at < stale))
+        return list(session.scalars(query))
+    return [audit_id for audit_id in session.scalars(query) if audit_id not in waiting.audits]
 
 
 def _stalled(session: Session) -> list[str]:
@@ -106,8 +138,14 @@ def _stalled(session: Session) -> list[str]:
     )
 
 
-def reconcile(sessions: sessionmaker[Session], settings: Settings) -> Reconciled:
-    """One tick: give up on poison units, move stalled jobs on, list units to publish again."""
+def reconcile(
+    sessions: sessionmaker[Session], settings: Settings, waiting: Waiting | None = None
+) -> Reconciled:
+    """One tick: give up on poison units, move stalled jobs on, list what to publish again.
+
+    `waiting`: the units and audits whose message the broker still holds, read by the caller
+    just before; None when the broker cannot be asked.
+    """
     with sessions.begin() as session:
         abandoned = _give_up(session)
     with sessions() as session:
@@ -116,5 +154,6 @@ def reconcile(sessions: sessionmaker[Session], settings: Settings) -> Reconciled
         start_if_settled(sessions, job_id, settings)  # marks it running, then advance_job
     settle_live_curves(sessions)  # learning curves whose sizes ended without settling them
     with sessions() as session:
-        republish = _lost(session, settings)
-    return Reconciled(republish, stalled, abandoned)
+        republish = _lost(session, settings, waiting)
+        audits = _lost_audits(session, settings, waiting)
+    return Reconciled(republish, stalled, abandoned, audits)
