@@ -1,7 +1,7 @@
 """When an audit's message was last sent, so the reconciler can tell one never sent or lost.
 
 Revision ID: 0011
-Revises: 0007
+Revises: 0008
 Created: 2026-12-02
 """
 
