@@ -11,17 +11,13 @@ import os
 import uuid
 from collections.abc import Iterator
 from pathlib import Path
-from typing import Any
 
 import pytest
-from distributed.stack import REPO
-
-from service.config import load_settings
-from service.jobs.local.driver import run_embedded
 
 from .deployment import WORKERS, Deployment, start_deployment
 from .jobs import fault_request
 from .netns import Topology
+from .reference import Reference, start_reference
 from .servers import Servers, remove, start_servers
 
 # a host with no processes, the dead end of the server's misrouted broker traffic
@@ -53,11 +49,13 @@ def servers(topology: Topology) -> Iterator[Servers]:
 
 
 @pytest.fixture(scope="module")
-def reference(tmp_path_factory: pytest.TempPathFactory) -> dict[str, Any]:
-    """The embedded run's result of the fault tests' request (SQLite, one local process)."""
-    home = tmp_path_factory.mktemp("embedded")
-    settings = load_settings({"FOLDWISE_HOME": str(home)})
-    return run_embedded(fault_request(), settings=settings, workers=1, base_dir=REPO).result
+def reference(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Reference]:
+    """The embedded run of the fault tests' request, computing in the background from now."""
+    running = start_reference(fault_request(), tmp_path_factory.mktemp("embedded"))
+    try:
+        yield running
+    finally:
+        running.stop()
 
 
 @pytest.fixture

@@ -64,9 +64,13 @@ class Deployment:
         headers = {"Authorization": f"Bearer {self.token}"}
         return httpx.Client(base_url=self.api, headers=headers, timeout=timeout)
 
+    def worker_homes(self) -> dict[str, Path]:
+        """Each worker host's FOLDWISE_HOME: its own folder, shared with no other host."""
+        return {host: self.folder / f"{host}-home" for host in WORKERS}
+
     def worker_env(self, host: str) -> dict[str, str]:
         """A worker host's whole configuration: its own home and the server's addresses."""
-        home = self.folder / f"{host}-home"
+        home = self.worker_homes()[host]
         address = self.topology.server_address(host)
         return {"FOLDWISE_HOME": str(home), **addresses(address, self.database, self.redis_db)}
 

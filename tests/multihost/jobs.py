@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import time
 from typing import Any
 
@@ -12,6 +13,7 @@ from sqlalchemy import func, select
 from service.store.models import FoldScore, Job, JobCandidate, WorkUnit
 
 from .deployment import Deployment
+from .reference import Reference
 
 # recovery at default settings: a lapsed lease (40 s) or a lost message is found by the next
 # reconcile tick (every 30 s); the issue's bound for a dead worker is 90 s (issue 10)
@@ -109,7 +111,7 @@ def wait_for_claim_after(deployment: Deployment, job_id: str, before: int) -> fl
 
 
 def assert_complete(
-    deployment: Deployment, job_id: str, request: dict[str, Any], reference: dict[str, Any]
+    deployment: Deployment, job_id: str, request: dict[str, Any], reference: Reference
 ) -> Job:
     """The job succeeded like the embedded run, every score of its plan stored exactly once."""
     stack = deployment.stack
@@ -118,7 +120,12 @@ def assert_complete(
         answer = client.get(f"/v1/jobs/{job_id}")
     assert answer.status_code == 200, answer.text
     # the embedded run (SQLite, one local process) is the reference: same request, same numbers
-    assert comparable(answer.json()["result"]) == comparable(reference)
+    result = answer.json()["result"]
+    assert comparable(result) == comparable(reference.result())
+    # no shared folder: the worker hosts fetched the table through the store into their own
+    table = f"{result['dataset_hash']}.parquet"
+    fetched = [host for host, home in deployment.worker_homes().items() if any(home.rglob(table))]
+    assert fetched, "no worker host holds the table in its own FOLDWISE_HOME"
     with stack.sessions() as session:
         candidates = session.scalar(select(func.count()).where(JobCandidate.job_id == job_id))
         scores = session.scalar(select(func.count()).where(FoldScore.job_id == job_id))
@@ -144,6 +151,16 @@ def assert_complete(
     assert scores == expected_scores(request, int(candidates or 0))
     assert duplicated == []
     return job
+
+
+def republished_units(deployment: Deployment) -> set[int]:
+    """Every unit id a reconcile tick logged as published again, on any worker host."""
+    found: set[int] = set()
+    for process in deployment.stack.processes:
+        text = process.log.read_text(errors="replace") if process.log.exists() else ""
+        for listed in re.findall(r"reconcile: republished units \[([0-9, ]*)\]", text):
+            found |= {int(n) for n in listed.split(",") if n.strip()}
+    return found
 
 
 def scores_written_by(deployment: Deployment, unit_id: int) -> set[str]:

@@ -13,7 +13,6 @@ from __future__ import annotations
 
 import threading
 import time
-from typing import Any
 
 import httpx
 import pytest
@@ -31,12 +30,14 @@ from .jobs import (
     fault_request,
     fresh_claim,
     report_recovery,
+    republished_units,
     scores_written_by,
     submit,
     unit,
     wait_for_claim_after,
 )
 from .netns import misroute_broker, route_broker_again, set_link
+from .reference import Reference
 from .servers import REDIS_PORT
 
 pytestmark = [pytest.mark.multihost, pytest.mark.slow]
@@ -53,7 +54,7 @@ def _claimed_again_elsewhere(deployment: Deployment, victim: WorkUnit, host: str
 
 
 def test_a_partitioned_worker_host_is_replaced_and_records_nothing_when_it_returns(
-    deployment: Deployment, reference: dict[str, Any]
+    reference: Reference, deployment: Deployment
 ) -> None:
     request = fault_request()
     job_id = submit(deployment, request)
@@ -88,9 +89,7 @@ def test_a_partitioned_worker_host_is_replaced_and_records_nothing_when_it_retur
     assert recovery < RECOVERY_BOUND_SECONDS
 
 
-def test_a_worker_killed_mid_unit_is_replaced(
-    deployment: Deployment, reference: dict[str, Any]
-) -> None:
+def test_a_worker_killed_mid_unit_is_replaced(reference: Reference, deployment: Deployment) -> None:
     request = fault_request()
     job_id = submit(deployment, request)
     victim = fresh_claim(deployment, job_id, "w1")
@@ -105,7 +104,7 @@ def test_a_worker_killed_mid_unit_is_replaced(
 
 
 def test_a_postgresql_restart_mid_job_is_ridden_out(
-    deployment: Deployment, reference: dict[str, Any]
+    reference: Reference, deployment: Deployment
 ) -> None:
     request = fault_request()
     job_id = submit(deployment, request)
@@ -121,7 +120,7 @@ def test_a_postgresql_restart_mid_job_is_ridden_out(
 
 
 def test_a_redis_restart_mid_job_loses_the_queue_and_the_store_heals_it(
-    deployment: Deployment, reference: dict[str, Any]
+    reference: Reference, deployment: Deployment
 ) -> None:
     request = fault_request()
     job_id = submit(deployment, request)
@@ -137,7 +136,7 @@ def test_a_redis_restart_mid_job_loses_the_queue_and_the_store_heals_it(
 
 
 def test_the_api_killed_between_commit_and_publish_leaves_a_job_the_reconciler_publishes(
-    deployment: Deployment, reference: dict[str, Any]
+    reference: Reference, deployment: Deployment
 ) -> None:
     topology, stack = deployment.topology, deployment.stack
     request = fault_request()
@@ -177,4 +176,6 @@ def test_the_api_killed_between_commit_and_publish_leaves_a_job_the_reconciler_p
     recovered = wait_for_claim_after(deployment, job_id, 0)
     recovery = report_recovery("API killed", killed_at, recovered, "first unit claimed")
     assert_complete(deployment, job_id, request, reference)
+    # the units the API never published were sent by the reconciler, not by a retry of the API
+    assert {u.id for u in units} <= republished_units(deployment)
     assert recovery < RECOVERY_BOUND_SECONDS
