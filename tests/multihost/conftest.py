@@ -8,13 +8,12 @@ from __future__ import annotations
 
 import itertools
 import os
-import uuid
 from collections.abc import Iterator
 from pathlib import Path
 
 import pytest
 
-from .deployment import WORKERS, Deployment, start_deployment
+from .deployment import WORKERS, Deployment, Template, make_template, start_deployment
 from .jobs import fault_request
 from .netns import Topology
 from .reference import Reference, start_reference
@@ -58,13 +57,23 @@ def reference(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Reference]:
         running.stop()
 
 
+@pytest.fixture(scope="module")
+def template(
+    topology: Topology, servers: Servers, tmp_path_factory: pytest.TempPathFactory
+) -> Template:
+    """The migrated database, with a token, that each test's database copies."""
+    folder = tmp_path_factory.mktemp("template")
+    return make_template(topology, servers, folder, f"foldwise_template_{topology.run}")
+
+
 @pytest.fixture
-def deployment(topology: Topology, servers: Servers, tmp_path: Path) -> Iterator[Deployment]:
-    """A migrated database of its own, API and beat on the server host, a worker per host."""
+def deployment(
+    topology: Topology, servers: Servers, template: Template, tmp_path: Path
+) -> Iterator[Deployment]:
+    """A database of its own, API and beat on the server host, a worker on each worker host."""
     servers.ensure_running()
     redis_db = next(_REDIS_DATABASES) % 16
-    name = f"foldwise_{uuid.uuid4().hex[:12]}"
-    running = start_deployment(topology, servers, tmp_path, name, redis_db)
+    running = start_deployment(topology, servers, template, tmp_path, redis_db)
     try:
         yield running
     finally:

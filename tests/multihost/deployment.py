@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import contextlib
 import signal
+import uuid
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -36,10 +37,31 @@ def addresses(address: str, database: str, redis_db: int) -> dict[str, str]:
     }
 
 
-def create_database(servers: Servers, name: str) -> None:
-    """An empty database on the private PostgreSQL."""
+def create_database(servers: Servers, name: str, template: str | None = None) -> None:
+    """An empty database on the private PostgreSQL, or a copy of `template`."""
+    copy = f' TEMPLATE "{template}"' if template else ""
     with psycopg.connect(servers.admin_dsn(), autocommit=True) as admin:
-        admin.execute(f'CREATE DATABASE "{name}"')
+        admin.execute(f'CREATE DATABASE "{name}"{copy}')
+
+
+@dataclass(frozen=True)
+class Template:
+    """A database migrated once (`foldwise db upgrade`) with a token made in it (`token create`):
+    each test's database is a copy, so no test pays for the two commands again."""
+
+    database: str
+    token: str
+
+
+def make_template(topology: Topology, servers: Servers, folder: Path, name: str) -> Template:
+    """Create, migrate and stock the template database, then close every connection to it."""
+    create_database(servers, name)
+    env = {"FOLDWISE_HOME": str(folder), **addresses(topology.server_address(None), name, 0)}
+    stack = deploy(env, folder)
+    try:
+        return Template(name, stack.token("multihost"))
+    finally:
+        stack.engine.dispose()  # PostgreSQL copies a template only while nobody is connected
 
 
 @dataclass
@@ -113,18 +135,19 @@ class Deployment:
 
 
 def start_deployment(
-    topology: Topology, servers: Servers, folder: Path, database: str, redis_db: int
+    topology: Topology, servers: Servers, template: Template, folder: Path, redis_db: int
 ) -> Deployment:
-    """Migrate a new database, start beat, the API and both workers, and make a token."""
-    create_database(servers, database)
+    """A copy of the template database; beat, the API and both workers started and ready."""
+    database = f"foldwise_{uuid.uuid4().hex[:12]}"
+    create_database(servers, database, template.database)
     with servers_redis(servers, redis_db) as client:
         client.flushdb()
     env = {
         "FOLDWISE_HOME": str(folder / "server-home"),
         **addresses(topology.server_address(None), database, redis_db),
     }
-    stack = deploy(env, folder / "server-home")
-    deployment = Deployment(topology, servers, stack, folder, database, redis_db)
+    stack = Stack(env, folder / "server-home")
+    deployment = Deployment(topology, servers, stack, folder, database, redis_db, template.token)
     try:
         workers = [deployment.start_worker(host) for host in WORKERS]
         beat = stack.start("beat", "beat", launcher=in_namespace(topology.server))
@@ -132,7 +155,6 @@ def start_deployment(
         for worker in workers:
             stack.wait_ready(worker, "ready.")
         stack.wait_ready(beat, "beat: Starting")
-        deployment.token = stack.token("multihost")
     except BaseException:
         deployment.stop()
         raise

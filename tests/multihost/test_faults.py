@@ -63,6 +63,11 @@ def test_a_partitioned_worker_host_is_replaced_and_records_nothing_when_it_retur
     set_link(deployment.topology.server, link, up=False)
     cut_at = time.monotonic()
     try:
+        time.sleep(0.5)  # a record in flight at the cut has landed or never will
+        held = unit(deployment, victim.id)
+        assert held.status == "running" and held.attempts == victim.attempts, (
+            f"w1 recorded unit {victim.id} before the cut: its units are too short to cut mid-fit"
+        )
         _claimed_again_elsewhere(deployment, victim, "w1")
         recovery = report_recovery("partition", cut_at, time.monotonic(), "unit claimed on w2")
         # the link comes back only once the unit was re-run elsewhere: w1's copy is late
