@@ -61,10 +61,27 @@ def test_workers_without_the_api_folder_run_a_rest_job_like_the_embedded_run(
         sha256 = job["result"]["final_pick"]["model_sha256"]
         assert _files(stack.home, "*.skops") == []
         model = api.get(f"/v1/jobs/{job['id']}/model", timeout=60)
+        # an audit runs on a worker, which reads the table through its own folder and the store
+        started = api.post(f"/v1/jobs/{job['id']}/audit", json={"fraction": 0.25}, timeout=30)
+        assert started.status_code == 202, started.text
+        audit = wait_until(
+            lambda: (
+                (a := api.get(started.headers["location"], timeout=30).json())["status"]
+                in ("done", "failed")
+                and a
+            ),
+            120,
+            "the audit ending",
+            stack,
+        )
     assert model.status_code == 200, model.text
     assert hashlib.sha256(model.content).hexdigest() == sha256  # hashlib, not our own hashing
     assert model.headers["x-model-sha256"] == sha256
     assert _files(stack.home, "*.skops") == [f"{sha256}.skops"]  # now cached on the API host
+    # recomputed scores equal the stored ones bit for bit (same splits, seeds and versions)
+    assert audit["status"] == "done", audit
+    assert audit["report"]["identical"] > 0 and audit["report"]["differing"] == 0, audit
+    assert audit["report"]["missing"] == 0
     with stack.sessions() as session:
         runners = set(session.scalars(select(WorkUnit.worker).where(WorkUnit.job_id == job["id"])))
     assert {str(r).split("@", 1)[0] for r in runners} <= {"w1", "w2"}

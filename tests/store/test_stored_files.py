@@ -150,3 +150,31 @@ def test_concurrent_fetches_of_one_hash_on_one_host_make_one_good_file(
     # one inode: the file was renamed into place once, so it was downloaded once
     assert len({inode for inode, _ in seen}) == 1
     assert _leftovers(tmp_path) == []
+
+
+def test_a_copy_already_in_a_shared_folder_is_used_without_a_transfer(
+    engine: Engine, tmp_path: Path
+) -> None:
+    data = os.urandom(blobs.CHUNK_BYTES + 10)
+    key = _put(engine, data)
+    shared = _cache(tmp_path / "shared")
+    shared.path("model", key).parent.mkdir(parents=True)
+    shared.path("model", key).write_bytes(data)  # another host put it there
+    with make_session_factory(engine).begin() as session:  # a transfer now would be refused
+        session.execute(update(BlobChunk).where(BlobChunk.key == key).values(data=b"x"))
+    with make_session_factory(engine)() as session:
+        path = local_copy(session, shared, "model", key)
+    assert hashlib.sha256(path.read_bytes()).hexdigest() == key
+
+
+def test_a_damaged_copy_on_this_host_is_replaced_from_the_store(
+    engine: Engine, tmp_path: Path
+) -> None:
+    data = os.urandom(blobs.CHUNK_BYTES + 10)
+    key = _put(engine, data)
+    cache = _cache(tmp_path)
+    cache.path("model", key).parent.mkdir(parents=True)
+    cache.path("model", key).write_bytes(data[:-1])  # a short file left by a full disk
+    with make_session_factory(engine)() as session:
+        path = local_copy(session, cache, "model", key)
+    assert hashlib.sha256(path.read_bytes()).hexdigest() == key
