@@ -4,6 +4,10 @@ Whatever a request or a job sets off, stopping foldwise must stop its fits too: 
 down by terminating its processes (units stop mid-fit; their claims are released or their
 leases run out, and the store hands them out again), and each pool process asks the kernel
 to kill it if its parent dies without that (SIGKILL, an OOM kill).
+
+A pool process started through a fork server is the fork server's child, not the server's, and
+the fork server does not end with the server either (the pool processes it forked hold its
+"parent alive" pipe open): such a process watches the server's pid itself (`die_with`).
 """
 
 from __future__ import annotations
@@ -11,8 +15,11 @@ from __future__ import annotations
 import ctypes
 import ctypes.util
 import logging
+import os
+import select
 import signal
 import sys
+import threading
 import time
 from concurrent.futures import ProcessPoolExecutor
 
@@ -33,6 +40,36 @@ def die_with_parent() -> None:
         libc.prctl(_PR_SET_PDEATHSIG, signal.SIGKILL, 0, 0, 0)
     except OSError:  # no libc to ask: the parent's shutdown still stops the pool
         log.warning("could not ask the kernel to stop this process with its parent")
+
+
+def pid_alive(pid: int) -> bool:
+    """True if a process with this pid exists on this machine (perhaps not the one we mean)."""
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:  # someone else's process: alive
+        return True
+    return True
+
+
+def die_with(owner: int) -> None:
+    """In a pool process: be killed as soon as process `owner` (the server) ends, however."""
+    try:
+        # a pidfd turns readable when the process exits: no polling, no pid reuse (Linux 5.3+)
+        handle = os.pidfd_open(owner)
+    except ProcessLookupError:  # the owner is already gone: so are we
+        os.kill(os.getpid(), signal.SIGKILL)
+        return
+    except (AttributeError, OSError):  # no pidfd here: the owner's shutdown still stops us
+        log.warning("cannot watch process %s; this pool process may outlive it", owner)
+        return
+
+    def watch() -> None:
+        select.select([handle], [], [])
+        os.kill(os.getpid(), signal.SIGKILL)  # as the kernel's parent-death signal would
+
+    threading.Thread(target=watch, name="foldwise-owner-watch", daemon=True).start()
 
 
 def stop_pool(pool: ProcessPoolExecutor, *, grace: float = 2.0) -> list[int]:

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import logging
 import multiprocessing
+import os
 import socket
 import threading
 from concurrent.futures import Future, ProcessPoolExecutor
@@ -17,13 +18,14 @@ from threadpoolctl import threadpool_limits
 
 from service.config import Settings
 from service.dispatch.base import mark_audits_published, mark_published
+from service.jobs import lifecycle
 from service.jobs.audits.audit import run_audit
 from service.jobs.execution.execute import UnitReport, worker_name
 from service.jobs.execution.reconcile import Waiting, reconcile
 from service.jobs.execution.work import run_and_advance
 from service.jobs.lifecycle import queued_units_of_live_jobs, release_claims
 from service.notify.delivery import deliver_due
-from service.processes import die_with_parent, stop_pool
+from service.processes import die_with, die_with_parent, pid_alive, stop_pool
 from service.schedules.tick import tick_schedules
 from service.store.db import make_engine, make_session_factory
 
@@ -33,10 +35,11 @@ _child: dict[str, Any] = {}
 SHUTDOWN_GRACE = 2.0
 
 
-def _child_start(settings: Settings) -> None:
-    # a fresh process (forkserver): its own engine, one BLAS thread per process; it dies with
-    # the fork server, which dies with the API process
+def _child_start(settings: Settings, server: int) -> None:
+    # a fresh process (forkserver): its own engine, one BLAS thread per process. Its parent is
+    # the fork server, which outlives a killed API process: it watches the API process itself
     die_with_parent()
+    die_with(server)
     _child["limits"] = threadpool_limits(1)
     _child["sessions"] = make_session_factory(make_engine(settings.database_url))
     _child["settings"] = settings
@@ -58,6 +61,7 @@ class LocalPool:
 
     def __init__(self, settings: Settings, workers: int = 2, poll_seconds: float = 1.0) -> None:
         self.settings = settings
+        self.workers = workers
         self.poll_seconds = poll_seconds
         self._engine = make_engine(settings.database_url)
         self._sessions = make_session_factory(self._engine)
@@ -73,8 +77,9 @@ class LocalPool:
             ]
         )
         self._pool = ProcessPoolExecutor(
-            workers, mp_context=context, initializer=_child_start, initargs=(settings,)
+            workers, mp_context=context, initializer=_child_start, initargs=(settings, os.getpid())
         )
+        self._take_back_from_the_dead()
         self._inflight: set[int] = set()
         self._audits: set[str] = set()  # audits handed to a pool process, not yet ended
         self._lock = threading.Lock()
@@ -90,6 +95,30 @@ class LocalPool:
         self._ticker.start()
         for _ in range(workers):  # start the processes now rather than on the first unit
             self._pool.submit(int)
+
+    def _take_back_from_the_dead(self) -> None:
+        """Units held by pool processes of this machine that no longer exist run again now.
+
+        A server killed with its pool (kill -9, an OOM kill) leaves its units `running` under
+        leases nobody renews. On this machine we can tell a dead holder from a silent one: its
+        pid is gone. Their leases end now rather than up to FOLDWISE_UNIT_LEASE later. A holder
+        whose pid is in use (another server on this store, or a reused pid) keeps its lease.
+        """
+        prefix = f"{socket.gethostname()}:"
+        try:
+            with self._sessions.begin() as session:
+                dead = [
+                    worker
+                    for worker in lifecycle.running_holders(session, prefix)
+                    if worker.removeprefix(prefix).isdigit()
+                    and not pid_alive(int(worker.removeprefix(prefix)))
+                ]
+                lifecycle.expire_leases(session, dead)
+        except Exception:  # the leases still lapse, and the reconciler takes the units then
+            log.exception("could not take back the units of dead pool processes")
+            return
+        if dead:
+            log.warning("taking back the units of pool processes that died: %s", dead)
 
     def publish(self, unit_ids: list[int]) -> None:
         """Record the hand-over and wake the poller: the units are already queued in the store."""
@@ -126,8 +155,11 @@ class LocalPool:
                     for audit_id in found.audits:
                         if not self._stop.is_set():
                             self._hand_audit(audit_id)
-                    for unit_id in dict.fromkeys(self._queued() + found.republish):
-                        if self._stop.is_set():
+                    # units whose holder died first, then the queue in id order; and no more
+                    # than the pool has processes: a unit handed over waits in the pool's own
+                    # queue, where a lease that lapses later could not overtake it
+                    for unit_id in dict.fromkeys(found.republish + self._queued()):
+                        if self._stop.is_set() or len(self._inflight) >= self.workers:
                             break
                         if unit_id in self._inflight:
                             continue

@@ -206,6 +206,31 @@ def release_claims(session: Session, workers: list[str]) -> None:
     )
 
 
+def running_holders(session: Session, prefix: str) -> list[str]:
+    """The workers named `prefix`... that hold a running unit now."""
+    return list(
+        session.scalars(
+            select(WorkUnit.worker)
+            .where(WorkUnit.status == UnitStatus.RUNNING, WorkUnit.worker.startswith(prefix))
+            .distinct()
+        )
+    )
+
+
+def expire_leases(session: Session, workers: list[str]) -> None:
+    """End the leases of these workers' claims now: they are known dead, not merely silent.
+
+    The units are then taken again as any lapsed claim is (a new claim, one more attempt), so
+    a unit whose process keeps dying still ends at MAX_ATTEMPTS.
+    """
+    if workers:
+        session.execute(
+            update(WorkUnit)
+            .where(WorkUnit.status == UnitStatus.RUNNING, WorkUnit.worker.in_(workers))
+            .values(lease_until=utcnow())
+        )
+
+
 # -- jobs -------------------------------------------------------------------------------------
 
 

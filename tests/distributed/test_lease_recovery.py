@@ -11,9 +11,7 @@ once.
 from __future__ import annotations
 
 import time
-from collections.abc import Iterator
 from datetime import timedelta
-from pathlib import Path
 from typing import Any
 
 import pytest
@@ -22,7 +20,7 @@ from sqlalchemy import func, select
 from service.store.models import FoldScore, JobCandidate, WorkUnit
 
 from .requests import expected_scores, small_request
-from .stack import Stack, deploy, running_units, start_workers_and_beat, wait_until
+from .stack import Stack, running_units, wait_until
 
 # the issue's promise: a dead worker's unit runs again within 90 s of the kill (issue 10)
 RECOVERY_BOUND_SECONDS = 90
@@ -44,27 +42,12 @@ def _long_units() -> dict[str, Any]:
     }
 
 
-@pytest.fixture
-def stack_at_defaults(tmp_path: Path, postgresql_url: str, redis_url: str) -> Iterator[Stack]:
-    """Two workers and a beat with only the addresses set: every limit at its default."""
-    env = {
-        "FOLDWISE_HOME": str(tmp_path / "home"),
-        "FOLDWISE_DATABASE_URL": postgresql_url,
-        "FOLDWISE_BROKER_URL": redis_url,
-    }
-    stack = deploy(env, tmp_path / "home")
-    try:
-        start_workers_and_beat(stack)
-        yield stack
-    finally:
-        stack.stop()
-
-
 @pytest.mark.slow
 def test_a_worker_killed_mid_unit_at_default_settings_is_replaced_within_ninety_seconds(
-    stack_at_defaults: Stack,
+    running_stack: Stack,
 ) -> None:
-    stack = stack_at_defaults
+    # the shared stack sets only the addresses: every limit at its default (conftest.py)
+    stack = running_stack
     lease = stack.settings.unit_lease
     request = _long_units()
     job_id = stack.submit(request)

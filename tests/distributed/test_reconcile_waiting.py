@@ -19,7 +19,7 @@ from service.jobs.audits.audit import request_audit
 from service.jobs.intake.start import start_submitted
 from service.jobs.intake.submit import submit_job
 from service.store.followup_models import Audit
-from service.store.models import FoldScore, Job, JobCandidate
+from service.store.models import FoldScore, Job, JobCandidate, JobFold
 
 from .requests import expected_scores, small_request
 from .stack import REPO, TEAM, Stack, comparable, wait_until
@@ -62,7 +62,9 @@ def test_audits_left_queued_by_a_crash_are_published_again(running_stack: Stack)
         assert report["scores_checked"] > 0
         assert report["identical"] == report["scores_checked"]
         assert report["differing"] == report["missing"] == 0
-    assert _audit(stack, never_sent).report["units_checked"] == 16  # type: ignore[index]
+    # the whole sample: one inner unit per candidate (4) and scope (3 outer parts and the final
+    # split), plus one refit scored per outer fold
+    assert _audit(stack, never_sent).report["units_checked"] == 4 * (3 + 1) + 3  # type: ignore[index]
 
 
 def test_learning_curve_sizes_left_queued_by_a_crash_are_published_again(
@@ -90,7 +92,16 @@ def test_learning_curve_sizes_left_queued_by_a_crash_are_published_again(
         for child_id in children:
             child = session.get_one(Job, child_id)
             assert child.status == "succeeded"
-            scores = session.scalar(select(func.count()).where(FoldScore.job_id == child_id))
+            # the sizes share the final (all-rows) inner split, and a score's key names its
+            # folds, not its job: the size that stored a shared score first holds it. So count
+            # the scores on this size's own folds and candidates, whichever size stored them.
+            folds = select(JobFold.fingerprint).where(JobFold.job_id == child_id)
+            keys = select(JobCandidate.candidate_key).where(JobCandidate.job_id == child_id)
+            scores = session.scalar(
+                select(func.count()).where(
+                    FoldScore.fold_fingerprint.in_(folds), FoldScore.candidate_key.in_(keys)
+                )
+            )
             candidates = session.scalar(select(func.count()).where(JobCandidate.job_id == child_id))
             # every fold score the size's plan calls for, each stored once
             assert scores == expected_scores(request, int(candidates or 0))
