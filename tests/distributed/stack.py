@@ -88,7 +88,7 @@ class Stack:
         process_env = {**self.process_env(), **(env or {})}
         if home is not None:
             process_env["FOLDWISE_HOME"] = str(home)
-        with log.open("ab") as out:
+        with log.open("wb") as out:
             popen = subprocess.Popen(
                 [*launcher, sys.executable, "-m", "service.cli.main", *arguments],
                 cwd=REPO,

@@ -15,6 +15,7 @@ import signal
 import subprocess
 import tempfile
 import time
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -64,12 +65,12 @@ def stop(process: Process, sig: int = signal.SIGTERM, timeout: float = 30) -> No
         process.popen.wait(timeout=10)
 
 
-def wait_for(check: object, what: str, timeout: float = 60) -> None:
+def wait_for(check: Callable[[], object], what: str, timeout: float = 60) -> None:
     """Poll `check()` (which raises while not ready) until it returns."""
     deadline = time.monotonic() + timeout
     while True:
         try:
-            check()  # type: ignore[operator]
+            check()
             return
         except Exception as exc:
             if time.monotonic() > deadline:
