@@ -14,6 +14,7 @@ import signal
 import subprocess
 import sys
 import time
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -68,19 +69,30 @@ class Stack:
         self.sessions = make_session_factory(self.engine)
 
     # processes ---------------------------------------------------------------------------
-    def start(self, name: str, *arguments: str, home: Path | None = None) -> Process:
-        """Start `python -m service.cli.main ARGUMENTS` in its own process group; `home`, if
-        given, is its own FOLDWISE_HOME (a host that shares no folder with the others)."""
+    def start(
+        self,
+        name: str,
+        *arguments: str,
+        home: Path | None = None,
+        launcher: Sequence[str] = (),
+        env: Mapping[str, str] | None = None,
+    ) -> Process:
+        """Start `python -m service.cli.main ARGUMENTS` in its own process group.
+
+        `home`, if given, is its own FOLDWISE_HOME (a host that shares no folder with the
+        others); `launcher` goes before the command (e.g. `ip netns exec HOST`, which execs, so
+        the pid and group stay the program's); `env` overrides the deployment's variables.
+        """
         log = self.home / "logs" / f"{name}.log"
         log.parent.mkdir(parents=True, exist_ok=True)
-        env = self.process_env()
+        process_env = {**self.process_env(), **(env or {})}
         if home is not None:
-            env["FOLDWISE_HOME"] = str(home)
+            process_env["FOLDWISE_HOME"] = str(home)
         with log.open("wb") as out:
             popen = subprocess.Popen(
-                [sys.executable, "-m", "service.cli.main", *arguments],
+                [*launcher, sys.executable, "-m", "service.cli.main", *arguments],
                 cwd=REPO,
-                env=env,
+                env=process_env,
                 stdout=out,
                 stderr=subprocess.STDOUT,
                 start_new_session=True,
