@@ -27,7 +27,7 @@ from service.cv.nested_interval_run import run_nested_interval
 from service.cv.scopes import INTERVAL_REPEAT_BASE
 from service.jobs.lifecycle import cancel_job
 from service.jobs.local.driver import JobFailed, run_embedded
-from service.store.db import make_engine, make_session_factory
+from service.store.db import make_engine, make_session_factory, upgrade_database
 from service.store.models import Job, WorkUnit
 
 from .runs import plan_for
@@ -149,6 +149,9 @@ def test_cancel_mid_interval_stops_the_procedure_units(tmp_path: Path) -> None:
         except BaseException as exc:  # handed to the test's thread
             outcome["error"] = exc
 
+    # the store exists before the job thread starts, so the watcher below never reads a store
+    # that is still being made (the driver leaves a current store alone)
+    upgrade_database(settings.database_url)
     runner = threading.Thread(target=run)
     runner.start()
     engine = make_engine(settings.database_url)
