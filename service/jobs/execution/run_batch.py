@@ -34,6 +34,7 @@ from service.jobs.execution.execute import (
 from service.jobs.execution.heartbeat import Heartbeat
 from service.jobs.execution.plans import LoadedPlan, plan_for_job
 from service.store.db import insert_ignoring_duplicates
+from service.store.host_cache import CopyRefused
 from service.store.models import FoldPrediction, FoldScore
 from service.store.statuses import UnitStatus
 
@@ -79,7 +80,7 @@ def _fit_all(loaded: LoadedPlan, units: list[ClaimedUnit], stop: StopCheck) -> _
         except UnitCancelled:
             ran.stopped, ran.ending = unit, UnitStatus.CANCELLED
             return ran
-        except NonFiniteScore as exc:  # its sentence is the whole story: no traceback to read
+        except (NonFiniteScore, CopyRefused) as exc:  # the sentence is the whole story
             ran.stopped, ran.ending, ran.error = unit, UnitStatus.FAILED, str(exc)
             return ran
         except Exception:
@@ -169,11 +170,13 @@ def _run_job_units(
     try:
         with sessions() as session:
             loaded = plan_for_job(session, job_id, settings)
-    except Exception:
+    except Exception as exc:
         if beat.lost():  # the store went away while loading the plan: not a failed fit
             report.statuses.update({u.id: LOST for u in units})
             return
-        ran = _Ran([], units[0], UnitStatus.FAILED, traceback.format_exc())
+        # a refused copy of the table says everything in its sentence, as in execute.py
+        error = str(exc) if isinstance(exc, CopyRefused) else traceback.format_exc()
+        ran = _Ran([], units[0], UnitStatus.FAILED, error)
         with sessions.begin() as session:
             _end_rest(session, job_id, token, ran, units, report)
         return
