@@ -14,13 +14,13 @@ from dataclasses import dataclass
 from datetime import timedelta
 from typing import Any
 
-from sqlalchemy import CursorResult, case, or_, select, update
+from sqlalchemy import CursorResult, case, update
 from sqlalchemy.orm import Session
 
-from service.jobs.lifecycle import MAX_ATTEMPTS, start_job, units_not_done
+from service.jobs.lifecycle import claim_statement, start_job, units_not_done
 from service.store.db import utcnow
 from service.store.models import Job, WorkUnit
-from service.store.statuses import LIVE_JOB, UnitStatus
+from service.store.statuses import UnitStatus
 
 
 @dataclass(frozen=True)
@@ -42,30 +42,9 @@ def claim_units(
     The units it leaves out are duplicates (done, failed, running under a live lease, or of a
     stopped job), exactly as claim_unit would refuse them one by one. Their jobs start too.
     """
-    now = utcnow()
     token = uuid.uuid4().hex
     claimed = session.execute(
-        update(WorkUnit)
-        .where(
-            WorkUnit.id.in_(unit_ids),
-            or_(
-                WorkUnit.status == UnitStatus.QUEUED,
-                (WorkUnit.status == UnitStatus.RUNNING) & (WorkUnit.lease_until < now),
-            ),
-            WorkUnit.attempts < MAX_ATTEMPTS,
-            WorkUnit.job_id.in_(
-                select(Job.id).where(Job.cancel_requested.is_(False), Job.status.in_(LIVE_JOB))
-            ),
-        )
-        .values(
-            status=UnitStatus.RUNNING,
-            attempts=WorkUnit.attempts + 1,
-            lease_until=now + lease,
-            worker=worker,
-            claim_token=token,
-            started_at=now,
-        )
-        .returning(
+        claim_statement(unit_ids, worker, lease, token).returning(
             WorkUnit.id, WorkUnit.job_id, WorkUnit.kind, WorkUnit.scope, WorkUnit.candidate_key
         )
     ).all()

@@ -83,17 +83,17 @@ def is_stopped(job: Job) -> bool:
 # -- units ------------------------------------------------------------------------------------
 
 
-def claim_unit(session: Session, unit_id: int, worker: str, lease: timedelta) -> str | None:
-    """Move a unit to running if it is queued or its lease expired; the claim's token, or None.
+def claim_statement(unit_ids: list[int], worker: str, lease: timedelta, token: str) -> Any:
+    """The one claim rule, for one unit or a batch: queued, or running under a lapsed lease.
 
-    None means a duplicate: the unit is done, failed, or running under a live lease.
+    A unit it leaves out is a duplicate: done, failed, running under a live lease, out of
+    attempts, or of a stopped job.
     """
     now = utcnow()
-    token = uuid.uuid4().hex  # fences every later write of this copy (renew_lease, unit_done)
-    claimed: CursorResult[Any] = session.execute(  # type: ignore[assignment]
+    return (
         update(WorkUnit)
         .where(
-            WorkUnit.id == unit_id,
+            WorkUnit.id.in_(unit_ids),
             or_(
                 WorkUnit.status == UnitStatus.QUEUED,
                 (WorkUnit.status == UnitStatus.RUNNING) & (WorkUnit.lease_until < now),
@@ -112,6 +112,17 @@ def claim_unit(session: Session, unit_id: int, worker: str, lease: timedelta) ->
             claim_token=token,
             started_at=now,
         )
+    )
+
+
+def claim_unit(session: Session, unit_id: int, worker: str, lease: timedelta) -> str | None:
+    """Move a unit to running if it is queued or its lease expired; the claim's token, or None.
+
+    None means a duplicate: the unit is done, failed, or running under a live lease.
+    """
+    token = uuid.uuid4().hex  # fences every later write of this copy (renew_lease, unit_done)
+    claimed: CursorResult[Any] = session.execute(  # type: ignore[assignment]
+        claim_statement([unit_id], worker, lease, token)
     )
     return token if claimed.rowcount == 1 else None
 
