@@ -29,7 +29,7 @@ from service.dispatch.celery_client import CeleryDispatcher
 from service.jobs.intake.start import start_submitted
 from service.jobs.intake.submit import submit_job
 from service.store.db import make_engine, make_session_factory
-from service.store.models import Job, WorkUnit
+from service.store.models import FoldScore, Job, WorkUnit
 
 REPO = Path(__file__).resolve().parents[2]
 TEAM = Principal("reliability", frozenset({"submit", "read"}))
@@ -229,6 +229,18 @@ def comparable(result: dict[str, Any]) -> dict[str, Any]:
     keys = ("outer", "estimate", "final_pick", "pick_frequency", "optimism_gap", "dataset_hash")
     # through JSON, as both stores hand it back
     return json.loads(json.dumps({k: result[k] for k in keys}, allow_nan=False))
+
+
+def duplicated_keys(stack: Stack) -> list[Any]:
+    """Fold-score keys stored more than once (there must be none: the key is unique)."""
+    with stack.sessions() as session:
+        return list(
+            session.execute(
+                select(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric)
+                .group_by(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric)
+                .having(func.count() > 1)
+            )
+        )
 
 
 def running_units(stack: Stack, job_id: str) -> list[WorkUnit]:

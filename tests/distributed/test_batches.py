@@ -18,7 +18,7 @@ from service.jobs.lifecycle import cancel_job
 from service.store.models import FoldScore, Job, JobCandidate, WorkUnit
 
 from .requests import expected_scores, small_request
-from .stack import Stack, comparable, wait_until
+from .stack import Stack, comparable, duplicated_keys, wait_until
 
 
 def _batched_request() -> dict[str, Any]:
@@ -60,17 +60,6 @@ def _candidates(stack: Stack, job_id: str) -> int:
         return int(session.scalar(select(func.count()).where(JobCandidate.job_id == job_id)) or 0)
 
 
-def _duplicated_keys(stack: Stack) -> list[Any]:
-    with stack.sessions() as session:
-        return list(
-            session.execute(
-                select(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric)
-                .group_by(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric)
-                .having(func.count() > 1)
-            )
-        )
-
-
 def test_a_worker_killed_mid_batch_loses_nothing_and_duplicates_nothing(
     running_stack: Stack, embedded_result: Callable[[dict[str, Any]], dict[str, Any]]
 ) -> None:
@@ -104,7 +93,7 @@ def test_a_worker_killed_mid_batch_loses_nothing_and_duplicates_nothing(
     assert {w.split("@", 1)[0] for w in writers} == {"w1", "w2"} - {node}
     # every score of the plan, each once
     assert _score_rows(stack, job_id) == expected_scores(request, _candidates(stack, job_id))
-    assert _duplicated_keys(stack) == []
+    assert duplicated_keys(stack) == []
 
 
 def _logistic(cs: list[float], depths: list[int]) -> dict[str, Any]:
@@ -182,7 +171,7 @@ def test_a_candidate_fitted_in_another_batch_is_reused_by_key_and_fold(
     assert any(keys - shared for keys in first_claims.values() if keys & shared)
     # and the second job fitted none of them again on an inner fold
     assert refitted_inner == 0
-    assert _duplicated_keys(stack) == []
+    assert duplicated_keys(stack) == []
 
 
 def test_a_cancelled_batch_records_the_units_it_finished_and_cancels_the_rest(

@@ -16,7 +16,7 @@ from service.store.db import utcnow
 from service.store.models import FoldScore, Job, JobCandidate, WorkUnit
 
 from .requests import expected_scores, slow_request, small_request
-from .stack import Stack, comparable, running_units, wait_until
+from .stack import Stack, comparable, duplicated_keys, running_units, wait_until
 
 
 def _candidates(stack: Stack, job_id: str) -> int:
@@ -27,17 +27,6 @@ def _candidates(stack: Stack, job_id: str) -> int:
 def _score_rows(stack: Stack, job: Job) -> int:
     with stack.sessions() as session:
         return int(session.scalar(select(func.count()).where(FoldScore.job_id == job.id)) or 0)
-
-
-def _duplicated_keys(stack: Stack) -> list[Any]:
-    with stack.sessions() as session:
-        return list(
-            session.execute(
-                select(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric)
-                .group_by(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric)
-                .having(func.count() > 1)
-            )
-        )
 
 
 def test_a_job_on_two_workers_equals_the_embedded_run(
@@ -91,7 +80,7 @@ def test_a_worker_killed_mid_job_loses_nothing_and_counts_nothing_twice(
     assert reclaimed.status == "done" and reclaimed.attempts == 2
     assert {w.split("@", 1)[0] for w in workers} == {"w1", "w2"} - {node}
     assert _score_rows(stack, job) == expected_scores(request, _candidates(stack, job_id))
-    assert _duplicated_keys(stack) == []
+    assert duplicated_keys(stack) == []
 
 
 def test_a_flushed_broker_is_healed_by_the_reconciler(
@@ -131,7 +120,7 @@ def test_a_flushed_broker_is_healed_by_the_reconciler(
     assert after, "no unit was published again after the flush"
     assert len(waiting) - len(after) <= 2
     assert _score_rows(stack, job) == expected_scores(request, _candidates(stack, job_id))
-    assert _duplicated_keys(stack) == []
+    assert duplicated_keys(stack) == []
 
 
 def _first_republish(stack: Stack, unit_ids: list[int], after: datetime) -> datetime | None:
