@@ -231,14 +231,17 @@ def comparable(result: dict[str, Any]) -> dict[str, Any]:
     return json.loads(json.dumps({k: result[k] for k in keys}, allow_nan=False))
 
 
-def duplicated_keys(stack: Stack) -> list[Any]:
-    """Fold-score keys stored more than once (there must be none: the key is unique)."""
+def duplicated_keys(stack: Stack, job_id: str | None = None) -> list[Any]:
+    """Fold-score keys stored more than once, of one job or of all (there must be none)."""
+    query = select(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric)
+    if job_id is not None:
+        query = query.where(FoldScore.job_id == job_id)
     with stack.sessions() as session:
         return list(
             session.execute(
-                select(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric)
-                .group_by(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric)
-                .having(func.count() > 1)
+                query.group_by(
+                    FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric
+                ).having(func.count() > 1)
             )
         )
 

@@ -20,7 +20,7 @@ from sqlalchemy import func, select
 from service.store.models import FoldScore, JobCandidate, WorkUnit
 
 from .requests import expected_scores, small_request
-from .stack import Stack, running_units, wait_until
+from .stack import Stack, duplicated_keys, running_units, wait_until
 
 # the issue's promise: a dead worker's unit runs again within 90 s of the kill (issue 10)
 RECOVERY_BOUND_SECONDS = 90
@@ -89,14 +89,6 @@ def test_a_worker_killed_mid_unit_at_default_settings_is_replaced_within_ninety_
     with stack.sessions() as session:
         candidates = session.scalar(select(func.count()).where(JobCandidate.job_id == job_id))
         scores = session.scalar(select(func.count()).where(FoldScore.job_id == job_id))
-        duplicated = list(
-            session.execute(
-                select(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric)
-                .where(FoldScore.job_id == job_id)
-                .group_by(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric)
-                .having(func.count() > 1)
-            )
-        )
         attempts = dict(
             session.execute(select(WorkUnit.id, WorkUnit.attempts).where(WorkUnit.job_id == job_id))
             .tuples()
@@ -104,5 +96,5 @@ def test_a_worker_killed_mid_unit_at_default_settings_is_replaced_within_ninety_
         )
     # every score of the plan, each once; only the victim's unit needed a second claim
     assert scores == expected_scores(request, int(candidates or 0))
-    assert duplicated == []
+    assert duplicated_keys(stack, job_id) == []
     assert {u: a for u, a in attempts.items() if a != 1} == {victim.id: 2}

@@ -7,7 +7,7 @@ import time
 from typing import Any
 
 from distributed.requests import expected_scores, small_request
-from distributed.stack import comparable, wait_until
+from distributed.stack import comparable, duplicated_keys, wait_until
 from sqlalchemy import func, select
 
 from service.store.models import FoldScore, Job, JobCandidate, WorkUnit
@@ -129,14 +129,6 @@ def assert_complete(
     with stack.sessions() as session:
         candidates = session.scalar(select(func.count()).where(JobCandidate.job_id == job_id))
         scores = session.scalar(select(func.count()).where(FoldScore.job_id == job_id))
-        duplicated = list(
-            session.execute(
-                select(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric)
-                .where(FoldScore.job_id == job_id)
-                .group_by(FoldScore.fold_fingerprint, FoldScore.candidate_key, FoldScore.metric)
-                .having(func.count() > 1)
-            )
-        )
         # one copy counted per unit: a unit run twice keeps the scores of one copy only
         copies = list(
             session.execute(
@@ -149,7 +141,7 @@ def assert_complete(
     assert copies == []
     # nothing lost: the count the plan implies; nothing twice: no key holds two rows
     assert scores == expected_scores(request, int(candidates or 0))
-    assert duplicated == []
+    assert duplicated_keys(stack, job_id) == []
     return job
 
 
