@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 from datetime import datetime
 from typing import Any
 
@@ -160,8 +160,10 @@ def dataset_history(session: Session, principal: Principal, content_hash: str) -
     jobs = sorted(session.execute(query), key=lambda j: (j.created_at, j.id))
     # the same jobs as a subquery: a year's job ids as bound parameters cost more to plan
     job_ids = visible.with_only_columns(Job.id).scalar_subquery()
+    # the columns a refresh point shows, not whole rows with their comparison documents
+    shown = [getattr(Refresh, f.name) for f in fields(RefreshPoint)]
     refresh_query = (
-        select(Refresh)
+        select(*shown)
         .join(Schedule, Schedule.id == Refresh.schedule_id)
         .where(
             or_(
@@ -174,16 +176,5 @@ def dataset_history(session: Session, principal: Principal, content_hash: str) -
     )
     if not reaches_every_team(principal, Action.READ):
         refresh_query = refresh_query.where(Schedule.team == principal.team)
-    refreshes = [
-        RefreshPoint(
-            id=r.id,
-            schedule_id=r.schedule_id,
-            due_at=r.due_at,
-            status=r.status,
-            job_id=r.job_id,
-            previous_job_id=r.previous_job_id,
-            finished_at=r.finished_at,
-        )
-        for r in session.scalars(refresh_query)
-    ]
+    refreshes = [RefreshPoint(*r) for r in session.execute(refresh_query)]
     return DatasetHistory(content_hash, [_point(j) for j in jobs], refreshes)
