@@ -142,6 +142,17 @@ def fold_place(fold: JobFold, k: int) -> dict[str, Any]:
     }
 
 
+def _listing_order(fold: JobFold) -> tuple[int, int, int, int, int]:
+    # role first, then the stored numbers, so a fold serving twice is always listed alike
+    return (
+        _ROLE_ORDER.get(reader_role(fold), len(_ROLE_ORDER)),
+        -1 if fold.parent_repeat is None else fold.parent_repeat,
+        -1 if fold.parent_fold is None else fold.parent_fold,
+        fold.repeat,
+        fold.fold_index,
+    )
+
+
 def fold_context(session: Session, job_id: str) -> FoldContext:
     """The job's placements by fold fingerprint and candidates by key."""
     folds = list(session.scalars(select(JobFold).where(JobFold.job_id == job_id)))
@@ -149,7 +160,9 @@ def fold_context(session: Session, job_id: str) -> FoldContext:
     places: dict[str, dict[str, Any]] = {}
     # a procedure fold of repetition 0 left out of one part alone is one of the job's own outer
     # folds (same rows, same fingerprint): it is listed as the job's, which it is
-    for fold in sorted(folds, key=lambda f: _ROLE_ORDER.get(reader_role(f), 9)):
+    # and the procedures without parts o and j, and without j and o, fit the same rows, so
+    # their searches share inner folds: listed under the first in stored order (o < j)
+    for fold in sorted(folds, key=_listing_order):
         places.setdefault(fold.fingerprint, fold_place(fold, k))
     rows = session.execute(
         select(Candidate)

@@ -81,14 +81,12 @@ def _candidates(session: Session, job_id: str) -> list[dict[str, Any]]:
 
 
 def _folds(session: Session, job_id: str) -> list[dict[str, Any]]:
-    rows = list(
-        session.execute(
-            select(JobFold, Fold)
-            .join(Fold, Fold.fingerprint == JobFold.fingerprint)
-            .where(JobFold.job_id == job_id)
-            .order_by(JobFold.role, JobFold.scope, JobFold.repeat, JobFold.fold_index)
-        ).tuples()
-    )
+    rows = session.execute(
+        select(JobFold, Fold)
+        .join(Fold, Fold.fingerprint == JobFold.fingerprint)
+        .where(JobFold.job_id == job_id)
+        .order_by(JobFold.role, JobFold.scope, JobFold.repeat, JobFold.fold_index)
+    ).all()
     k = interval_k([jf for jf, _ in rows])
     return [
         {
