@@ -20,7 +20,7 @@ import json
 from dataclasses import dataclass
 from typing import Any
 
-from sqlalchemy import ColumnElement, and_, select
+from sqlalchemy import ColumnElement, and_, case, select
 from sqlalchemy.orm import Session
 
 from service.cv.scopes import INTERVAL_REPEAT_BASE, interval_position, is_interval_repeat
@@ -75,6 +75,21 @@ def reader_role(fold: JobFold) -> str:
     if fold.role == "inner" and is_interval_repeat(fold.parent_repeat):
         return "interval_inner"
     return fold.role
+
+
+def reader_role_column() -> ColumnElement[str]:
+    """reader_role in SQL, for grouping job_fold rows by the role a reader sees."""
+    return case(
+        (
+            (JobFold.role == "outer") & (JobFold.repeat >= INTERVAL_REPEAT_BASE),
+            "interval_outer",
+        ),
+        (
+            (JobFold.role == "inner") & (JobFold.parent_repeat >= INTERVAL_REPEAT_BASE),
+            "interval_inner",
+        ),
+        else_=JobFold.role,
+    )
 
 
 def reader_role_filter(role: str) -> ColumnElement[bool]:
