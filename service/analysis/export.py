@@ -51,8 +51,9 @@ JOB_PARQUET_SCHEMA = pa.schema(
         *PARQUET_SCHEMA,
         *zip(
             EXTRA_COLUMNS,
-            # role, repeat, fold, inner_repeat, inner_fold, estimator, params (a JSON object)
-            (pa.string(), *[pa.int64()] * 4, pa.string(), pa.string()),
+            # role, repeat, fold, inner_repeat, inner_fold, estimator, params (a JSON object),
+            # interval_part (a nested interval's procedure folds only)
+            (pa.string(), *[pa.int64()] * 4, pa.string(), pa.string(), pa.int64()),
             strict=True,
         ),
     ]

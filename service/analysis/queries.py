@@ -15,12 +15,14 @@ from service.analysis.compare import Comparison, compare_outer_scores, outer_sco
 from service.auth import Action, Principal, reaches_every_team
 from service.cv.scopes import INTERVAL_REPEAT_BASE
 from service.errors import BadInput, NotFound
+from service.jobs.handover.fold_rows import reader_role_filter
 from service.jobs.queries.datasets import visible_dataset
 from service.jobs.queries.jobs import SUMMARY_ONLY, get_job, job_query
 from service.store.models import FoldScore, Job, JobCandidate, JobFold
 from service.store.statuses import JobStatus
 
-FoldRole = Literal["outer", "inner", "final_inner"]
+# the roles a reader sees (service/jobs/handover/fold_rows.py READER_ROLES)
+FoldRole = Literal["outer", "inner", "final_inner", "interval_outer", "interval_inner"]
 MAX_PAGE = 1000
 
 
@@ -58,7 +60,9 @@ def dataset_fold_score_query(
         .where(JobFold.job_id.in_(jobs))
     )
     if role is not None:
-        in_plan = in_plan.where(JobFold.role == role)
+        # a nested interval's procedure folds are stored as outer (and inner) folds: the
+        # reader's role tells them apart, so role=outer is the job's own outer folds only
+        in_plan = in_plan.where(reader_role_filter(role))
     query = select(FoldScore).where(
         FoldScore.dataset_hash == content_hash,
         tuple_(FoldScore.fold_fingerprint, FoldScore.candidate_key).in_(in_plan),

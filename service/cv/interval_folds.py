@@ -21,7 +21,7 @@ import numpy as np
 from sklearn.model_selection import KFold, StratifiedKFold
 
 from service.cv.errors import SpecError
-from service.cv.scopes import INTERVAL_REPEAT_BASE
+from service.cv.scopes import INTERVAL_REPEAT_BASE, interval_position
 from service.cv.spec import DEFAULT_INTERVAL_REPETITIONS, SelectionSpec
 from service.cv.splits import Fold, SplitInputs, fold_fingerprint, split_rows
 
@@ -62,7 +62,7 @@ class ProcedurePlace:
 
 def place_of(fold: Fold, k: int) -> ProcedurePlace:
     """The (repetition, outer part, scored part) of a procedure fold."""
-    repetition, outer = divmod(fold.repeat - INTERVAL_REPEAT_BASE, k)
+    repetition, outer = interval_position(fold.repeat, k)
     return ProcedurePlace(repetition, outer, fold.index)
 
 

@@ -37,3 +37,11 @@ INTERVAL_REPEAT_BASE = 1000
 def is_interval_repeat(repeat: int | None) -> bool:
     """True for the repeat number of a nested interval's procedure fold."""
     return repeat is not None and repeat >= INTERVAL_REPEAT_BASE
+
+
+def interval_position(repeat: int, k: int) -> tuple[int, int]:
+    """(repetition r, outer fold o) of a procedure fold's repeat BASE + r·K + o, as the nested
+    interval numbers them (repetitions from 0, like a job's own outer repeats)."""
+    if not is_interval_repeat(repeat):
+        raise ValueError(f"repeat {repeat} is a job's own outer repeat, not an interval's")
+    return divmod(repeat - INTERVAL_REPEAT_BASE, k)

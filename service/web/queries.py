@@ -9,6 +9,7 @@ from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
 from service.cv.scopes import INTERVAL_REPEAT_BASE
+from service.jobs.handover.fold_rows import reader_role_column
 from service.store.models import Candidate, FoldScore, Job, JobCandidate, JobFold
 
 INNER_ROLES = ("inner", "final_inner")
@@ -79,16 +80,18 @@ def inner_cells(session: Session, job: Job, metric: str) -> list[InnerCell]:
 
 
 def stored_score_counts(session: Session, job: Job) -> dict[str, int]:
-    """How many scores the store holds for the job, per fold role (all metrics)."""
+    """How many scores the store holds for the job, per fold role as readers see it (all
+    metrics): a nested interval's procedures under interval_outer / interval_inner."""
     keys = select(JobCandidate.candidate_key).where(JobCandidate.job_id == job.id)
+    role = reader_role_column()
     query = (
-        select(JobFold.role, func.count(FoldScore.id))
+        select(role, func.count(FoldScore.id))
         .join(
             FoldScore,
             (FoldScore.fold_fingerprint == JobFold.fingerprint)
             & (FoldScore.dataset_hash == job.dataset_hash),
         )
         .where(JobFold.job_id == job.id, FoldScore.candidate_key.in_(keys))
-        .group_by(JobFold.role)
+        .group_by(role)
     )
-    return {role: int(n) for role, n in session.execute(query)}
+    return {name: int(n) for name, n in session.execute(query)}

@@ -130,6 +130,7 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
         "counts": {
             "inner": counts.get("inner", 0) + counts.get("final_inner", 0),
             "outer": counts.get("outer", 0),
+            "interval": counts.get("interval_outer", 0) + counts.get("interval_inner", 0),
         },
         "people": None,
         "progress": job_state.progress(job),

@@ -41,7 +41,10 @@ CandidateFilter = Annotated[str | None, Query(max_length=64, description="One ca
 MetricFilter = Annotated[str | None, Query(max_length=64, description="One metric name.")]
 RoleFilter = Annotated[
     queries.FoldRole | None,
-    Query(description="The fold's role in a job's plan: outer, inner or final_inner."),
+    Query(
+        description="The fold's role in a job's plan: outer, inner or final_inner, or a nested "
+        "interval's interval_outer or interval_inner."
+    ),
 ]
 _CSV = {"text/csv": {"schema": {"type": "string"}}}
 _PARQUET = {"application/vnd.apache.parquet": {"schema": {"type": "string", "format": "binary"}}}

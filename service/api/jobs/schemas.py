@@ -169,13 +169,30 @@ class FoldScorePublic(BaseModel):
     )
     created_at: datetime
     # where the fold sits in this job's plan, and the candidate behind the key (fold_rows.py)
-    role: str | None = Field(default=None, description="outer, inner or final_inner.")
-    repeat: int | None = Field(default=None, description="The outer repeat (inner: its parent).")
-    fold: int | None = Field(default=None, description="The outer fold (inner: its parent).")
+    role: str | None = Field(
+        default=None,
+        description="outer, inner or final_inner; a nested interval's procedure folds and their "
+        "searches' folds are interval_outer and interval_inner (never in the estimate's mean).",
+    )
+    repeat: int | None = Field(
+        default=None,
+        description="The outer repeat (inner: its parent's; interval rows: the interval's "
+        "repetition, from 0).",
+    )
+    fold: int | None = Field(
+        default=None,
+        description="The outer fold (inner: its parent's; interval rows: the outer fold the "
+        "procedure leaves out).",
+    )
     inner_repeat: int | None = None
     inner_fold: int | None = None
     estimator: str | None = None
     params: dict[str, Any] | None = None
+    interval_part: int | None = Field(
+        default=None,
+        description="Interval rows only: the part the procedure is scored on (equal to `fold` "
+        "for the procedure that leaves out that fold alone); null otherwise.",
+    )
 
 
 class FoldScorePage(BaseModel):

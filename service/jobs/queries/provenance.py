@@ -16,6 +16,7 @@ from sqlalchemy import select
 from sqlalchemy.orm import Session
 
 from service.auth import Action, Principal, reaches_every_team
+from service.jobs.handover.fold_rows import fold_place, interval_k, reader_role
 from service.jobs.queries.jobs import OTHER_TEAM, foreign_job_ids
 from service.store.followup_models import Audit
 from service.store.models import (
@@ -85,20 +86,38 @@ def _folds(session: Session, job_id: str) -> list[dict[str, Any]]:
         .join(Fold, Fold.fingerprint == JobFold.fingerprint)
         .where(JobFold.job_id == job_id)
         .order_by(JobFold.role, JobFold.scope, JobFold.repeat, JobFold.fold_index)
-    )
+    ).all()
+    k = interval_k([jf for jf, _ in rows])
     return [
         {
             "fingerprint": jf.fingerprint,
-            "role": jf.role,
+            # a nested interval's procedure folds say so; scope, repeat and fold stay the stored
+            # ones, which the units' scopes name, and `interval` numbers them as the interval does
+            "role": reader_role(jf),
             "scope": jf.scope,
             "repeat": jf.repeat,
             "fold": jf.fold_index,
             "n_train": fold.n_train,
             "n_test": fold.n_test,
             "versions": fold.versions,
+            **_interval_place(jf, k),
         }
         for jf, fold in rows
     ]
+
+
+def _interval_place(fold: JobFold, k: int) -> dict[str, Any]:
+    """{'interval': {repetition, fold, part}} for a nested interval's fold, nothing otherwise."""
+    place = fold_place(fold, k)
+    if place["interval_part"] is None:
+        return {}
+    return {
+        "interval": {
+            "repetition": place["repeat"],
+            "fold": place["fold"],
+            "part": place["interval_part"],
+        }
+    }
 
 
 def _units(session: Session, job_id: str, hidden: set[str]) -> list[dict[str, Any]]:
