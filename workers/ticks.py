@@ -100,8 +100,10 @@ def run(stop: threading.Event) -> list[threading.Thread]:
         ("webhooks", DELIVERY_SECONDS, deliveries_once),
     )
     threads = [
-        threading.Thread(target=every, args=tick, name=f"tick-{tick[0]}", daemon=True)
-        for tick in ticks
+        threading.Thread(
+            target=every, args=(name, period, tick, stop), name=f"tick-{name}", daemon=True
+        )
+        for name, period, tick in ticks
     ]
     for thread in threads:
         thread.start()
@@ -126,7 +128,11 @@ def main(argv: list[str] | None = None) -> None:
     signal.signal(signal.SIGINT, _stop)
     threads = run(stop)
     log.info("%s (reconcile every %g s)", READY_LINE, state.settings().reconcile_seconds)
-    stop.wait()
+    while not stop.wait(1.0):
+        if not all(thread.is_alive() for thread in threads):
+            # never a beat that runs on with a tick missing: exit, and the supervisor restarts it
+            log.error("beat: a tick thread ended unexpectedly; exiting")
+            raise SystemExit(1)
     # a tick in progress gets a moment to commit; the store's transactions make an interrupted
     # one harmless either way (the next beat finishes it)
     for thread in threads:

@@ -33,10 +33,14 @@ RECOVERY_BOUND_SECONDS = 90
 def _long_units() -> dict[str, Any]:
     """One forest candidate big enough that an inner unit outlasts two heartbeats.
 
-    On a quiet machine 2,500 trees gave 7 s units, done before any renewal could be seen.
+    On a quiet machine 2,500 trees gave 7 s units, done before any renewal could be seen. Two
+    outer by two inner folds keep the job to 8 such units: enough for one to be killed while
+    others remain for the survivor, without minutes of fits the test learns nothing from.
     """
     return {
         **small_request(),
+        "outer": {"method": "stratified_kfold", "k": 2, "seed": 2},
+        "inner": {"method": "stratified_kfold", "k": 2, "seed": 1},
         "families": [
             {
                 "estimator": "RandomForestClassifier",
