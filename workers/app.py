@@ -1,4 +1,4 @@
-"""The Celery app the workers and beat run (`celery -A workers.app` or `foldwise worker`)."""
+"""The Celery app the workers run (`foldwise worker`) and beat publishes with (workers/ticks.py)."""
 
 from __future__ import annotations
 
@@ -10,20 +10,13 @@ from celery.signals import worker_init, worker_process_init
 from kombu import Exchange, Queue
 
 from service.config import Settings, load_settings
-from service.dispatch import TASK_RECONCILE, UNIT_QUEUE
+from service.dispatch import UNIT_QUEUE
 from service.dispatch.celery_client import celery_options
 from workers import state
 from workers.threads import cap_loaded_threadpools
 
-# The reconcile tick is short and must not wait behind a deep queue of long units (Celery's
-# optimizing guide: long and short work on separate queues); every worker consumes both.
-CONTROL_QUEUE = "foldwise-control"
 MAX_TASKS_PER_CHILD = 200
 MAX_MEMORY_PER_CHILD_KIB = 2 * 1024 * 1024  # a child past 2 GiB is replaced after its task
-# Schedules and webhooks: found in the store by a tick, never kept in beat's own config.
-TASK_SCHEDULE_TICK = "foldwise.schedule_tick"
-TASK_DELIVERY_TICK = "foldwise.delivery_tick"
-TICK_SECONDS = 60.0
 
 
 def _queue(name: str) -> Queue:
@@ -40,13 +33,8 @@ def worker_options(settings: Settings) -> dict[str, Any]:
     assert settings.soft_time_limit < settings.unit_time_limit < settings.visibility_timeout
     assert 2 * settings.heartbeat_seconds <= settings.lease_seconds
     return {
-        # each queue on its own direct exchange: left to the defaults, the control queue would
-        # be bound to the unit queue's exchange and key, and receive copies of unit messages
-        "task_queues": [_queue(UNIT_QUEUE), _queue(CONTROL_QUEUE)],
-        "task_routes": {
-            name: {"queue": CONTROL_QUEUE}
-            for name in (TASK_RECONCILE, TASK_SCHEDULE_TICK, TASK_DELIVERY_TICK)
-        },
+        # one queue on its own direct exchange; the ticks are not tasks (workers/ticks.py)
+        "task_queues": [_queue(UNIT_QUEUE)],
         # a message is acknowledged only after its unit ran, and a worker holds one message at a
         # time, so a dead worker strands one unit and not a prefetched batch
         "task_acks_late": True,
@@ -65,25 +53,6 @@ def worker_options(settings: Settings) -> dict[str, Any]:
         "worker_max_memory_per_child": MAX_MEMORY_PER_CHILD_KIB,
         # no chords, no results, no events: the store holds the state
         "worker_send_task_events": False,
-        "beat_schedule": {
-            "reconcile": {
-                "task": TASK_RECONCILE,
-                "schedule": settings.reconcile_seconds,
-                # a tick that waited longer than one period is stale: the next one is coming
-                "options": {"queue": CONTROL_QUEUE, "expires": settings.reconcile_seconds},
-            },
-            **{
-                name: {
-                    "task": task,
-                    "schedule": TICK_SECONDS,
-                    "options": {"queue": CONTROL_QUEUE, "expires": TICK_SECONDS},
-                }
-                for name, task in (
-                    ("schedules", TASK_SCHEDULE_TICK),
-                    ("webhooks", TASK_DELIVERY_TICK),
-                )
-            },
-        },
     }
 
 

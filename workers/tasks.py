@@ -1,25 +1,22 @@
-"""The tasks: run one work unit, and the reconcile, schedule and delivery ticks. Ids in; the logic
-is in service."""
+"""The tasks: run one work unit, a batch of them, or an audit. Ids in; the logic is in service.
+
+The reconcile, schedule and delivery ticks are not tasks: `foldwise beat` runs them itself
+(workers/ticks.py), so they never wait for a pool process busy with a fit."""
 
 from __future__ import annotations
 
 import logging
 import os
-from typing import Any
 
 from celery import Task
 
-from service.dispatch import TASK_RECONCILE, TASK_RUN_AUDIT, TASK_RUN_UNIT, TASK_RUN_UNITS
-from service.dispatch.broker_queue import broker_waiting
-from service.dispatch.celery_client import send_audits, send_units
+from service.dispatch import TASK_RUN_AUDIT, TASK_RUN_UNIT, TASK_RUN_UNITS
+from service.dispatch.celery_client import send_units
 from service.jobs.audits.audit import run_audit
-from service.jobs.execution.reconcile import reconcile
 from service.jobs.execution.run_batch import run_batch_and_advance
 from service.jobs.execution.work import run_and_advance
-from service.notify.delivery import deliver_due
-from service.schedules.tick import tick_schedules
 from workers import state
-from workers.app import TASK_DELIVERY_TICK, TASK_SCHEDULE_TICK, app
+from workers.app import app
 
 log = logging.getLogger(__name__)
 
@@ -61,46 +58,6 @@ def run_units(self: Task, unit_ids: list[int]) -> str:
     endings = ", ".join(f"unit {unit_id} {status}" for unit_id, status in report.statuses.items())
     log.info("%s (%s fits), %s new units", endings, report.fits, len(new_units))
     return ",".join(f"{unit_id}:{status}" for unit_id, status in report.statuses.items())
-
-
-@app.task(name=TASK_RECONCILE)
-def reconcile_tick() -> dict[str, Any]:
-    """Publish again what the store says waits and the broker lost; move stalled jobs on."""
-    settings = state.settings()
-    # read before the store: a message sent in between only looks lost once (a harmless copy)
-    waiting = broker_waiting(settings.broker_url)
-    found = reconcile(state.sessions(), settings, waiting)
-    publish(found.republish)
-    send_audits(app, state.sessions(), found.audits)
-    if found.republish or found.advanced or found.abandoned or found.audits:
-        log.warning(
-            "reconcile: republished units %s and audits %s, advanced %s, gave up on %s",
-            found.republish,
-            found.audits,
-            found.advanced,
-            found.abandoned,
-        )
-    return {
-        "republished": found.republish,
-        "audits": found.audits,
-        "advanced": found.advanced,
-        "abandoned": found.abandoned,
-    }
-
-
-@app.task(name=TASK_SCHEDULE_TICK)
-def schedule_tick() -> dict[str, Any]:
-    """Refresh due schedules and finish refreshes whose job ended; publish new jobs' units."""
-    report = tick_schedules(state.sessions(), state.settings())
-    publish(report.units)
-    return {"refreshes": report.refreshes, "finished": report.finished}
-
-
-@app.task(name=TASK_DELIVERY_TICK)
-def delivery_tick() -> dict[str, Any]:
-    """Send the webhook deliveries that are due (signed, one attempt each)."""
-    report = deliver_due(state.sessions(), state.settings())
-    return {"delivered": report.delivered, "retried": report.retried, "gave_up": report.gave_up}
 
 
 @app.task(name=TASK_RUN_AUDIT)

@@ -1,8 +1,9 @@
-"""`foldwise worker` and `foldwise beat`: the Celery worker and the reconcile tick, configured.
+"""`foldwise worker` and `foldwise beat`: the Celery worker, and the process running the ticks.
 
-Both replace this process with `python -m celery -A workers.app ...` rather than importing the
-app: `service` never imports `workers` (it names it, as it names tasks), and a fresh process
-reads the BLAS thread variables set here before anything imports numpy.
+Both replace this process (`python -m celery -A workers.app worker ...`, `python -m
+workers.ticks`) rather than importing them: `service` never imports `workers` (it names it, as
+it names tasks), and a fresh process reads the BLAS thread variables set here before anything
+imports numpy.
 """
 
 from __future__ import annotations
@@ -13,9 +14,8 @@ from typing import Annotated, NoReturn
 
 import typer
 
-from service.config import load_settings
-
 CELERY_APP = "workers.app"
+BEAT_MODULE = "workers.ticks"
 # One BLAS/OpenMP thread per process: Celery concurrency already uses the cores
 # (docs/reliability.md).
 THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
@@ -31,9 +31,13 @@ def _require_broker() -> None:
 
 
 def _exec_celery(arguments: list[str]) -> NoReturn:
+    _exec_python(["-m", "celery", "-A", CELERY_APP, *arguments])
+
+
+def _exec_python(arguments: list[str]) -> NoReturn:
     for name in THREAD_VARIABLES:
         os.environ[name] = "1"
-    command = [sys.executable, "-m", "celery", "-A", CELERY_APP, *arguments]
+    command = [sys.executable, *arguments]
     sys.stdout.flush()
     sys.stderr.flush()
     # exec, not a child: signals from systemd or a supervisor reach Celery itself
@@ -63,12 +67,10 @@ def worker(
 
 
 def beat(
-    loglevel: Annotated[str, typer.Option(help="Celery log level.")] = "INFO",
+    loglevel: Annotated[str, typer.Option(help="Log level.")] = "INFO",
 ) -> None:
-    """Run the schedule tick; exactly one per deployment, or every tick runs twice."""
+    """Run the reconcile, schedule and webhook ticks; one per deployment (two only waste work)."""
     _require_broker()
-    schedule_dir = load_settings().home / "beat"
-    schedule_dir.mkdir(parents=True, exist_ok=True)
-    _exec_celery(
-        ["beat", "--loglevel", loglevel, "--schedule", str(schedule_dir / "celerybeat-schedule")]
-    )
+    # its own process, not a Celery beat sending tasks: the ticks must not wait for a pool
+    # process busy with a fit (workers/ticks.py)
+    _exec_python(["-m", BEAT_MODULE, "--loglevel", loglevel])

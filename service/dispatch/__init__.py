@@ -6,6 +6,5 @@ server. Only ids cross this boundary; the store holds everything else."""
 TASK_RUN_UNIT = "foldwise.run_unit"  # one unit id (still served: messages already queued)
 # a batch of unit ids of one job, claimed and recorded together (service/cv/unit_batches.py)
 TASK_RUN_UNITS = "foldwise.run_units"
-TASK_RECONCILE = "foldwise.reconcile"
 TASK_RUN_AUDIT = "foldwise.run_audit"
 UNIT_QUEUE = "foldwise-units"

@@ -283,7 +283,7 @@ def probe_store(job_path: Path) -> dict[str, Any]:
     clock.wrap(work, "advance_job", "advance_job")
     clock.wrap(execute, "fit_and_score", "fit_and_score")
     clock.wrap(execute, "_record", "_record")
-    clock.wrap(execute, "_save_model", "_save_model")
+    clock.wrap(execute, "model_file_of", "model_file_of")
     # the cancellation check asks the store at most once a second from inside fit_and_score
     clock.wrap(execute.StopCheck, "__call__", "_cancel_requested")
     job = json.loads(job_path.read_text(encoding="utf-8"))
@@ -335,7 +335,7 @@ def _print_store(probe: dict[str, Any], fw_median: float) -> None:
     units = get("execute_unit")
     cancel_checks = get("_cancel_requested")
     fitting = get("fit_and_score") - cancel_checks
-    unit_overhead = units - get("fit_and_score") - get("_record")
+    unit_overhead = units - get("fit_and_score") - get("_record") - get("model_file_of")
     migrate = get("migrate new store")
     prepare = get("prepare (read, hash, validate, plan)")
     other = probe["run_embedded"] - migrate - prepare - get("create_job") - units
@@ -347,8 +347,8 @@ def _print_store(probe: dict[str, Any], fw_median: float) -> None:
     _line("create_job (dataset copy, folds, units; no commit)", get("create_job"))
     _line("fits and scoring (fit_and_score minus cancel checks)", fitting)
     _line("cancel checks before each fit (_cancel_requested)", cancel_checks)
-    _line("_record (fold-score inserts, final pick and model)", get("_record"))
-    _line("  of which _save_model (pickle, sha256, file)", get("_save_model"))
+    _line("_record (fold-score inserts, final pick, model chunks)", get("_record"))
+    _line("model_file_of (serialize, sha256, cache file)", get("model_file_of"))
     _line("unit claim/finish/commit (execute_unit - fit - record)", unit_overhead)
     _line("advance_job (fan-in, picks, refit units, result)", get("advance_job"))
     _line("rest of run_embedded (engines, create_job commit, reads)", other)

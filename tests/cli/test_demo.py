@@ -105,10 +105,30 @@ def test_on_a_terminal_the_demo_keeps_serving_until_ctrl_c(demo_home: Path) -> N
         assert page.status_code == 200
         assert "Estimate on unseen data" in page.text
         proc.send_signal(signal.SIGINT)  # what Ctrl-C sends
-        assert proc.wait(timeout=60) == 0
+        assert _read_until_exit(proc, leader, timeout=60) == 0
         assert not _listening(port)
     finally:
         if proc.poll() is None:
             proc.kill()
             proc.wait()
         os.close(leader)
+
+
+def _read_until_exit(proc: subprocess.Popen[bytes], leader: int, timeout: float) -> int | None:
+    """Keep reading the terminal, as a real one does, until the process ends or time is up.
+
+    Left unread, the terminal's buffer fills with the server's last lines and its write blocks,
+    so the process could never end.
+    """
+    deadline = time.monotonic() + timeout
+    while proc.poll() is None and time.monotonic() < deadline:
+        ready, _, _ = select.select([leader], [], [], 0.5)
+        if ready:
+            try:
+                os.read(leader, 65536)
+            except OSError:  # the other end closed: the process is on its way out
+                break
+    try:
+        return proc.wait(timeout=max(0.1, deadline - time.monotonic()))
+    except subprocess.TimeoutExpired:
+        return None

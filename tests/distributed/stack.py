@@ -285,5 +285,5 @@ def start_workers_and_beat(stack: Stack) -> Stack:
     beat = stack.start_beat()
     for worker in workers:
         stack.wait_ready(worker, "ready.")
-    stack.wait_ready(beat, "beat: Starting")
+    stack.wait_ready(beat, "beat: Starting the reconcile")
     return stack

@@ -1,38 +1,46 @@
-"""A worker SIGKILLed mid-unit at default settings: its unit is taken again within about a minute.
+"""A worker SIGKILLed mid-unit at default settings: the job loses at most about a minute.
 
 Nothing is tuned here (the unit time limit stays 3000 s, the lease, heartbeat, reconcile period
 and republish delay at their defaults): the deployment an operator gets. Units run longer than a
 heartbeat, so the victim's lease has been renewed by its pool process before the kill; once the
-process group is dead nobody renews it, the lease lapses, the beat's reconciler publishes the unit
-again and the other worker claims it. The job succeeds with every fold score of its plan stored
-once.
+process group is dead nobody renews it, the lease lapses, beat's reconcile tick publishes the
+unit again and the other worker claims it when its pool process is free. The job succeeds with
+every fold score of its plan stored once.
+
+The issue's promise is that the job finishes within 90 s of the kill plus its own compute. With
+one surviving pool process that is the survivor's idle time between the kill and the job's end:
+every second it was not fitting is a second the failure cost.
 """
 
 from __future__ import annotations
 
-import time
-from datetime import timedelta
+from datetime import datetime, timedelta
 from typing import Any
 
 import pytest
 from sqlalchemy import func, select
 
 from service.store.models import FoldScore, JobCandidate, WorkUnit
+from service.store.types import utcnow
 
 from .requests import expected_scores, small_request
 from .stack import Stack, duplicated_keys, running_units, wait_until
 
-# the issue's promise: a dead worker's unit runs again within 90 s of the kill (issue 10)
+# the issue's promise: the job finishes within 90 s of the kill plus its own compute (issue 10)
 RECOVERY_BOUND_SECONDS = 90
 
 
 def _long_units() -> dict[str, Any]:
     """One forest candidate big enough that an inner unit outlasts two heartbeats.
 
-    On a quiet machine 2,500 trees gave 7 s units, done before any renewal could be seen.
+    On a quiet machine 2,500 trees gave 7 s units, done before any renewal could be seen. Two
+    outer by two inner folds keep the job to 8 such units: enough for one to be killed while
+    others remain for the survivor, without minutes of fits the test learns nothing from.
     """
     return {
         **small_request(),
+        "outer": {"method": "stratified_kfold", "k": 2, "seed": 2},
+        "inner": {"method": "stratified_kfold", "k": 2, "seed": 1},
         "families": [
             {
                 "estimator": "RandomForestClassifier",
@@ -43,7 +51,7 @@ def _long_units() -> dict[str, Any]:
 
 
 @pytest.mark.slow
-def test_a_worker_killed_mid_unit_at_default_settings_is_replaced_within_ninety_seconds(
+def test_a_worker_killed_mid_unit_at_default_settings_costs_the_job_under_ninety_seconds(
     running_stack: Stack,
 ) -> None:
     # the shared stack sets only the addresses: every limit at its default (conftest.py)
@@ -67,34 +75,60 @@ def test_a_worker_killed_mid_unit_at_default_settings_is_replaced_within_ninety_
     process = next(p for p in stack.processes if p.name == node)
     # the whole group, as when the machine dies: nothing is acknowledged, requeued or recorded
     process.kill_group()
-    killed_at = time.monotonic()
+    killed_at = utcnow()
     process.popen.wait(timeout=10)
 
-    def claimed_again() -> WorkUnit | None:
+    def published_again() -> datetime | None:
         with stack.sessions() as session:
-            unit = session.get_one(WorkUnit, victim.id)
-            return unit if unit.attempts > victim.attempts else None
+            published = session.get_one(WorkUnit, victim.id).published_at
+            return published if published is not None and published > killed_at else None
 
-    again = wait_until(claimed_again, 180, "the killed worker's unit claimed again", stack)
-    recovery = time.monotonic() - killed_at
-    every = stack.settings.reconcile_seconds
-    print(
-        f"\nkill to unit {victim.id} taken again by {again.worker}: {recovery:.1f} s "
-        f"(lease {lease.total_seconds():g} s, reconcile every {every:g} s)"
-    )
-    assert again.worker.split("@", 1)[0] != node
-    assert recovery < RECOVERY_BOUND_SECONDS
+    # beat's own tick, never behind a fit: the lease lapses (40 s at most), then one period (20 s)
+    republished_at = wait_until(published_again, 180, "the killed worker's unit published", stack)
+    republished = (republished_at - killed_at).total_seconds()
 
-    stack.wait_finished(job_id, timeout=400)
+    job = stack.wait_finished(job_id, timeout=600)
     with stack.sessions() as session:
+        again = session.get_one(WorkUnit, victim.id)
         candidates = session.scalar(select(func.count()).where(JobCandidate.job_id == job_id))
         scores = session.scalar(select(func.count()).where(FoldScore.job_id == job_id))
-        attempts = dict(
-            session.execute(select(WorkUnit.id, WorkUnit.attempts).where(WorkUnit.job_id == job_id))
-            .tuples()
-            .all()
-        )
+        units = list(session.scalars(select(WorkUnit).where(WorkUnit.job_id == job_id)))
+    survivor_runs = [
+        (unit.started_at, unit.finished_at)
+        for unit in units
+        if unit.worker is not None and not unit.worker.startswith(f"{node}@")
+    ]
+    assert job.finished_at is not None and again.worker is not None
+    after_kill = (job.finished_at - killed_at).total_seconds()
+    busy = _busy_seconds(survivor_runs, killed_at, job.finished_at)
+    idle = after_kill - busy
+    every = stack.settings.reconcile_seconds
+    print(
+        f"\nkill -> unit {victim.id} published again: {republished:.1f} s (lease "
+        f"{lease.total_seconds():g} s, reconcile every {every:g} s); kill -> job end "
+        f"{after_kill:.1f} s, of which the survivor fitted {busy:.1f} s and waited {idle:.1f} s"
+    )
+    assert again.worker.split("@", 1)[0] != node
+    assert republished < RECOVERY_BOUND_SECONDS
+    assert idle < RECOVERY_BOUND_SECONDS
     # every score of the plan, each once; only the victim's unit needed a second claim
     assert scores == expected_scores(request, int(candidates or 0))
     assert duplicated_keys(stack, job_id) == []
-    assert {u: a for u, a in attempts.items() if a != 1} == {victim.id: 2}
+    assert {unit.id: unit.attempts for unit in units if unit.attempts != 1} == {victim.id: 2}
+
+
+def _busy_seconds(
+    runs: list[tuple[datetime | None, datetime | None]], start: datetime, end: datetime
+) -> float:
+    """Seconds of [start, end] covered by the runs (a batch's units share one run)."""
+    spans = sorted(
+        (max(begun, start), min(ended, end))
+        for begun, ended in runs
+        if begun is not None and ended is not None and ended > start and begun < end
+    )
+    total, reach = 0.0, start
+    for begun, ended in spans:
+        if ended > reach:
+            total += (ended - max(begun, reach)).total_seconds()
+            reach = ended
+    return total

@@ -2,11 +2,12 @@
 
 Three schedules read sql sources on the test's PostgreSQL and fall due one after the other. The
 second one's table is locked by the test (what a slow source database does), so the real tick,
-run by beat on the one Celery worker, commits the first schedule's refresh and job and then
-waits inside the second. The worker's process group is SIGKILLed right there, the lock is
-released, and a second worker takes over at default settings. The next ticks must refresh the
-second and third schedules, leave the first alone (its due time was committed with its job),
-and the three jobs must finish with every fold score of their plans stored once.
+run by the beat process (workers/ticks.py), commits the first schedule's refresh and job and then
+waits inside the second. The beat's process group is SIGKILLed right there, the lock is released,
+and a second beat takes over at default settings (what a supervisor restarting it does). Its
+ticks must refresh the second and third schedules, leave the first alone (its due time was
+committed with its job), publish the first job's units the dead tick never sent, and the three
+jobs must finish on the one worker with every fold score of their plans stored once.
 """
 
 from __future__ import annotations
@@ -132,10 +133,10 @@ def test_a_tick_killed_half_way_is_finished_by_the_next(plant: Stack, postgresql
     lock = psycopg.connect(_psycopg_url(postgresql_url))
     try:
         lock.execute("LOCK TABLE readings_b IN ACCESS EXCLUSIVE MODE")  # held until rollback
-        victim = stack.start_worker("w1")
-        beat = stack.start_beat()
-        stack.wait_ready(victim, "ready.")
-        stack.wait_ready(beat, "beat: Starting")
+        worker = stack.start_worker("w1")
+        victim = stack.start_beat()
+        stack.wait_ready(worker, "ready.")
+        stack.wait_ready(victim, "beat: Starting the reconcile")
         wait_until(
             lambda: _waiting_on_lock(postgresql_url, "readings_b"),
             TICK_TIMEOUT,
@@ -152,7 +153,7 @@ def test_a_tick_killed_half_way_is_finished_by_the_next(plant: Stack, postgresql
         lock.rollback()
         lock.close()
 
-    stack.wait_ready(stack.start_worker("w2"), "ready.")
+    stack.wait_ready(stack.start("beat2", "beat"), "beat: Starting the reconcile")
     for schedule_id in (second, third):
         wait_until(lambda s=schedule_id: _jobs(stack, s), TICK_TIMEOUT, "a refresh", stack)
     print(f"\ntick killed -> remaining schedules refreshed: {time.monotonic() - killed:.1f} s")

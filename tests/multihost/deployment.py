@@ -154,7 +154,7 @@ def start_deployment(
         deployment.start_api()
         for worker in workers:
             stack.wait_ready(worker, "ready.")
-        stack.wait_ready(beat, "beat: Starting")
+        stack.wait_ready(beat, "beat: Starting the reconcile")
     except BaseException:
         deployment.stop()
         raise

@@ -86,24 +86,36 @@ class StopCheck:
             return False
 
 
-def _save_model(
-    session: Session, outcome: UnitOutcome, settings: Settings
-) -> tuple[str, Path, int]:
+@dataclass(frozen=True)
+class ModelFile:
+    """A final refit's model in skops' format, with its sha256 and this host's cached copy."""
+
+    payload: bytes
+    digest: str
+    path: Path
+
+
+def model_file_of(outcome: UnitOutcome, settings: Settings) -> ModelFile | None:
+    """Serialize a unit's model and cache it on this host, before any transaction opens.
+
+    Serializing a large model (thousands of trees) takes minutes; inside the record transaction
+    that time is "idle in transaction", which PostgreSQL ends at 60 s (docs/store.md), failing
+    the unit on every attempt. The cached copy is keyed by the hash, so writing it before the
+    record (which may yet be refused) leaves nothing wrong behind.
+    """
+    if outcome.model is None:
+        return None
     # kept in skops' format only: the bytes a client downloads are the bytes hashed here
     payload = model_file.model_bytes(outcome.model)
     digest = model_file.sha256(payload)
-    # into the store in the record transaction, so a host without this one's disk serves it
-    blobs.put_bytes(session, "model", digest, payload)
-    cache = HostCache.of(settings)
-    path = cache.path("model", digest)
+    path = HostCache.of(settings).path("model", digest)
     if not path.exists():
         path.parent.mkdir(parents=True, exist_ok=True)
         # a hidden temporary name, which the cache's sweep removes if this process dies here
         temporary = path.parent / f".{digest}.{os.getpid()}.tmp"
         temporary.write_bytes(payload)
         os.replace(temporary, path)
-    evict(session, cache, keep=path)
-    return digest, path, len(payload)
+    return ModelFile(payload, digest, path)
 
 
 def score_rows(
@@ -153,12 +165,19 @@ def prediction_rows(job_id: str, outcome: UnitOutcome, loaded: LoadedPlan) -> li
 
 
 def record_model(
-    session: Session, job_id: str, outcome: UnitOutcome, loaded: LoadedPlan, settings: Settings
+    session: Session,
+    job_id: str,
+    saved: ModelFile | None,
+    loaded: LoadedPlan,
+    settings: Settings,
 ) -> None:
-    """Save a final refit's model file and its row (nothing for a unit without a model)."""
-    if outcome.model is None:
+    """Store a final refit's model file (made by model_file_of) and its row; nothing without."""
+    if saved is None:
         return
-    digest, path, size = _save_model(session, outcome, settings)
+    # into the store in the record transaction, so a host without this one's disk serves it
+    blobs.put_bytes(session, "model", saved.digest, saved.payload)
+    evict(session, HostCache.of(settings), keep=saved.path)
+    digest, path, size = saved.digest, saved.path, len(saved.payload)
     final = pick(loaded.plan, FINAL_SCOPE, load_book(session, loaded))
     insert_ignoring_duplicates(
         session,
@@ -180,6 +199,7 @@ def _record(
     session: Session,
     unit: WorkUnit,
     outcome: UnitOutcome,
+    saved: ModelFile | None,
     loaded: LoadedPlan,
     settings: Settings,
     worker: str,
@@ -190,7 +210,7 @@ def _record(
     insert_ignoring_duplicates(
         session, FoldPrediction, prediction_rows(unit.job_id, outcome, loaded)
     )
-    record_model(session, unit.job_id, outcome, loaded, settings)
+    record_model(session, unit.job_id, saved, loaded, settings)
 
 
 def unit_seed(loaded: LoadedPlan, candidate_key: str) -> int | None:
@@ -276,13 +296,15 @@ def record_claimed(
 ) -> bool:
     """The record transaction of claim `token`; True if it closed the stage. Fenced: raises
     lifecycle.ClaimLost, with nothing written, when the claim is no longer this copy's."""
+    saved = model_file_of(outcome, settings)  # slow work before the transaction opens
     with sessions.begin() as session:
         # the fence first: it locks the unit's row, and if the claim is no longer this copy's,
         # ClaimLost rolls the whole transaction back before any score goes in
         last = lifecycle.unit_done(
             session, unit_id, token, fits=outcome.fits, seconds=outcome.seconds
         )
-        _record(session, session.get_one(WorkUnit, unit_id), outcome, loaded, settings, worker)
+        unit = session.get_one(WorkUnit, unit_id)
+        _record(session, unit, outcome, saved, loaded, settings, worker)
     return last
 
 

@@ -26,7 +26,9 @@ from service.jobs.curves.settle import settle_parent
 from service.jobs.execution.advance import advance_job
 from service.jobs.execution.execute import (
     LOST,
+    ModelFile,
     StopCheck,
+    model_file_of,
     prediction_rows,
     record_model,
     score_rows,
@@ -96,6 +98,7 @@ def _record(
     token: str,
     ran: _Ran,
     units: list[ClaimedUnit],
+    saved: dict[int, ModelFile | None],
     loaded: LoadedPlan,
     settings: Settings,
     worker: str,
@@ -112,8 +115,8 @@ def _record(
     insert_ignoring_duplicates(session, FoldScore, scores)
     predictions = [row for _, o in kept for row in prediction_rows(job_id, o, loaded)]
     insert_ignoring_duplicates(session, FoldPrediction, predictions)
-    for _, outcome in kept:
-        record_model(session, job_id, outcome, loaded, settings)
+    for unit, _ in kept:
+        record_model(session, job_id, saved[unit.id], loaded, settings)
     for unit, outcome in ran.outcomes:
         report.statuses[unit.id] = UnitStatus.DONE if unit.id in held else LOST
         report.fits += outcome.fits
@@ -184,8 +187,10 @@ def _run_job_units(
     if beat.lost():  # given up or taken over during a fit: write nothing
         report.statuses.update({u.id: LOST for u in units})
         return
+    # models serialized before the transaction opens: minutes for a big forest (execute.py)
+    saved = {unit.id: model_file_of(outcome, settings) for unit, outcome in ran.outcomes}
     with sessions.begin() as session:
-        _record(session, job_id, token, ran, units, loaded, settings, worker, report)
+        _record(session, job_id, token, ran, units, saved, loaded, settings, worker, report)
 
 
 def execute_batch(
