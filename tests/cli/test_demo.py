@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import os
 import pty
 import re
@@ -77,6 +78,7 @@ def test_on_a_terminal_the_demo_keeps_serving_until_ctrl_c(demo_home: Path) -> N
         stdin=subprocess.DEVNULL,
         stdout=follower,
         stderr=subprocess.DEVNULL,
+        start_new_session=True,  # its own group, so a failed run can end the server it started
     )
     os.close(follower)
     text = ""
@@ -108,9 +110,10 @@ def test_on_a_terminal_the_demo_keeps_serving_until_ctrl_c(demo_home: Path) -> N
         assert _read_until_exit(proc, leader, timeout=60) == 0
         assert not _listening(port)
     finally:
-        if proc.poll() is None:
-            proc.kill()
-            proc.wait()
+        # the demo and the server it started: nothing of a failed run may outlive the test
+        with contextlib.suppress(ProcessLookupError):
+            os.killpg(proc.pid, signal.SIGKILL)
+        proc.wait()
         os.close(leader)
 
 
