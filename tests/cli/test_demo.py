@@ -34,6 +34,16 @@ def _env(home: Path) -> dict[str, str]:
     return env
 
 
+def _as_on_a_terminal() -> None:
+    """SIGINT at its default, as a program run in the foreground of a terminal starts with.
+
+    Under a test runner started as a background job (`make test &`, nohup, some CI runners) the
+    shell has set SIGINT to be ignored, which every child inherits (POSIX); the demo would then
+    never see the Ctrl-C this test sends.
+    """
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
 def _listening(port: int) -> bool:
     with socket.socket() as probe:
         probe.settimeout(1)
@@ -79,6 +89,7 @@ def test_on_a_terminal_the_demo_keeps_serving_until_ctrl_c(demo_home: Path) -> N
         stdout=follower,
         stderr=subprocess.DEVNULL,
         start_new_session=True,  # its own group, so a failed run can end the server it started
+        preexec_fn=_as_on_a_terminal,
     )
     os.close(follower)
     text = ""
