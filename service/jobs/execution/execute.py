@@ -177,7 +177,6 @@ def record_model(
     # into the store in the record transaction, so a host without this one's disk serves it
     blobs.put_bytes(session, "model", saved.digest, saved.payload)
     evict(session, HostCache.of(settings), keep=saved.path)
-    digest, path, size = saved.digest, saved.path, len(saved.payload)
     final = pick(loaded.plan, FINAL_SCOPE, load_book(session, loaded))
     insert_ignoring_duplicates(
         session,
@@ -186,9 +185,9 @@ def record_model(
             {
                 "job_id": job_id,
                 "candidate_key": final.candidate.key,
-                "sha256": digest,
-                "path": str(path),
-                "size_bytes": size,
+                "sha256": saved.digest,
+                "path": str(saved.path),
+                "size_bytes": len(saved.payload),
                 "inner_mean": final.inner_mean,
             }
         ],
