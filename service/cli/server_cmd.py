@@ -24,6 +24,11 @@ if TYPE_CHECKING:
 REQUEST_GRACE = 10
 EXIT_DEADLINE = 15
 STOP_GRACE = 20
+# An idle keep-alive connection is closed by the client or proxy first, never by us: when both
+# ends use the same idle timeout (uvicorn's and httpx's are both 5 s) the server may close a
+# connection in the instant the client sends a request on it, and that request fails with a
+# reset. 75 s outlasts httpx's 5 s and a load balancer's usual 60 s (AWS's default, from memory).
+KEEP_ALIVE_SECONDS = 75
 
 
 def embedded_store(settings: Settings) -> bool:
@@ -68,7 +73,12 @@ def serve(
         refuse(exc)
     upgrade_if_embedded(settings)
     config = uvicorn.Config(
-        app, host=host, port=port, log_level="info", timeout_graceful_shutdown=REQUEST_GRACE
+        app,
+        host=host,
+        port=port,
+        log_level="info",
+        timeout_keep_alive=KEEP_ALIVE_SECONDS,
+        timeout_graceful_shutdown=REQUEST_GRACE,
     )
     server_class = _bounded_shutdown(uvicorn.Server)
     server_class(config).run()

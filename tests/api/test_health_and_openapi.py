@@ -3,7 +3,10 @@
 from __future__ import annotations
 
 import re
+import socket
+import time
 from typing import Any
+from urllib.parse import urlsplit
 
 import pytest
 
@@ -54,6 +57,30 @@ def test_healthz_and_readyz(server: Server) -> None:
         ready = client.get("/readyz")
     assert alive.status_code == 200 and alive.json()["status"] == "ok"
     assert ready.status_code == 200 and ready.json()["checks"] == {"database": "ok"}
+
+
+def _ask_healthz(connection: socket.socket) -> bytes:
+    connection.sendall(b"GET /healthz HTTP/1.1\r\nHost: foldwise\r\n\r\n")
+    answer = b""
+    while b"\r\n\r\n" not in answer or not answer.endswith(b"}"):
+        chunk = connection.recv(4096)
+        if not chunk:
+            break
+        answer += chunk
+    return answer
+
+
+def test_an_idle_keep_alive_connection_outlasts_the_clients_own_idle_timeout(
+    server: Server,
+) -> None:
+    # httpx keeps an idle connection 5 s (its documented keepalive_expiry default); a server
+    # closing at the same moment races the client's next request, which then fails with a reset
+    # (seen in the readers test). The server must still hold the connection after 6 s idle.
+    address = urlsplit(server.base_url)
+    with socket.create_connection((address.hostname, address.port), timeout=10) as connection:
+        assert _ask_healthz(connection).startswith(b"HTTP/1.1 200")
+        time.sleep(6.0)
+        assert _ask_healthz(connection).startswith(b"HTTP/1.1 200")
 
 
 def test_metrics_in_prometheus_text_format(server: Server, finished_job: dict[str, Any]) -> None:
