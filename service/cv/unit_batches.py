@@ -132,7 +132,8 @@ def batch_units(
         cost = costs[work.unit_id]
         if cost >= SLOW_UNIT_SECONDS:
             continue
-        if current and (filled + cost > budget or len(current) >= BATCH_UNITS):
+        # a relative tolerance: n equal costs summed in floating point may exceed n x cost
+        if current and (filled + cost > budget * (1 + 1e-9) or len(current) >= BATCH_UNITS):
             batches.append(current)
             current, filled = [], 0.0
         current.append(work.unit_id)

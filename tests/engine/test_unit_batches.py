@@ -54,7 +54,7 @@ def test_fast_units_share_batches_within_the_budget() -> None:
     assert len(fast_batches) < 40 / 4
     for batch in fast_batches:
         assert len(batch) <= BATCH_UNITS
-        assert len(batch) == 1 or sum(costs[i] for i in batch) <= budget
+        assert len(batch) == 1 or sum(costs[i] for i in batch) <= budget * (1 + 1e-9)
 
 
 def test_a_small_job_spreads_over_several_batches() -> None:

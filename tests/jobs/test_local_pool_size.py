@@ -1,7 +1,9 @@
-"""The embedded runner starts no process pool when one process will do (issue 12, item 1).
+"""The embedded runner starts no process pool when one process will do (issue 12, item 1), and
+takes fast units in batches, as a Celery worker does (item 3).
 
 Every unit records the worker (host:pid) that ran it, so the store shows where units ran: in
 this process when the job has too few units for a pool to pay, or when the store answered it.
+A batch's units share one claim token, so the store shows how they were grouped too.
 """
 
 from __future__ import annotations
@@ -9,13 +11,13 @@ from __future__ import annotations
 from pathlib import Path
 from typing import Any
 
-from sqlalchemy import select
+from sqlalchemy import func, select
 
 from service.config import load_settings
 from service.jobs.execution.execute import worker_name
 from service.jobs.local.driver import pool_workers, run_embedded
 from service.store.db import make_engine, make_session_factory
-from service.store.models import WorkUnit
+from service.store.models import FoldScore, WorkUnit
 
 
 def _request(n_neighbors: list[int]) -> dict[str, Any]:
@@ -63,3 +65,42 @@ def test_a_job_with_enough_units_runs_on_the_pool(tmp_path: Path) -> None:
     ran_by = _workers_of(settings.database_url, outcome.job_id)
     assert len(ran_by) == 12 + 3
     assert worker_name() not in ran_by
+
+
+def _claims_of(url: str, job_id: str) -> tuple[list[tuple[str | None, int, int]], int]:
+    """Each unit's (claim token, attempts, fits), and the job's fold-score rows."""
+    engine = make_engine(url)
+    try:
+        with make_session_factory(engine)() as session:
+            units = session.execute(
+                select(WorkUnit.claim_token, WorkUnit.attempts, WorkUnit.fits).where(
+                    WorkUnit.job_id == job_id
+                )
+            ).all()
+            scores = session.scalar(
+                select(func.count()).select_from(FoldScore).where(FoldScore.job_id == job_id)
+            )
+            return [tuple(unit) for unit in units], int(scores or 0)
+    finally:
+        engine.dispose()
+
+
+def test_fast_units_run_in_batches_and_each_keeps_its_own_scores(tmp_path: Path) -> None:
+    # eight nearest-neighbour candidates on iris: 24 inner units of two fits, each far cheaper
+    # to fit than to claim and record one by one; a store each, so nothing is reused
+    for workers in (1, 2):
+        settings = load_settings({"FOLDWISE_HOME": str(tmp_path / f"home-{workers}")})
+        outcome = run_embedded(
+            _request([1, 3, 5, 7, 9, 11, 13, 15]), settings=settings, workers=workers
+        )
+        units, scores = _claims_of(settings.database_url, outcome.job_id)
+        assert len(units) == 24 + 3  # and 2 outer refits and the final refit
+        assert all(attempts == 1 for _, attempts, _ in units)
+        tokens = {token for token, _, _ in units}
+        # the 24 inner units in at most eight claims (a batch holds at most an eighth of the
+        # work: service/cv/unit_batches.py), the three refits in at most three
+        assert None not in tokens and len(tokens) <= 8 + 3, len(tokens)
+        # every fit's score stored once, with its own unit: 8 candidates x 2 folds in each of
+        # the three inner scopes, the two outer folds' test scores and the final refit's none
+        assert sum(fits for _, _, fits in units) == 24 * 2 + 3
+        assert scores == 8 * 2 * 3 + 2

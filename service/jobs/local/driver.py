@@ -1,9 +1,10 @@
 """The embedded default: a job or a learning curve run on a local process pool, local store.
 
-The pool runs the same `run_and_advance` a Celery worker runs, and the job is started with the
-same `start_submitted` the API calls; this module only feeds unit ids to the pool and calls the
-fan-in after each unit, so the embedded and distributed paths cannot drift apart. A learning
-curve's sizes are ordinary selection jobs, driven one after the other with one progress bar.
+The pool runs the same `run_batch_and_advance` a Celery worker runs, on the same batches
+(`batch_unit_ids`: many fast units in one claim and one record, a slow unit alone), and the job
+is started with the same `start_submitted` the API calls; this module only feeds batches of unit
+ids to the pool, so the embedded and distributed paths cannot drift apart. A learning curve's
+sizes are ordinary selection jobs, driven one after the other with one progress bar.
 """
 
 from __future__ import annotations
@@ -23,9 +24,10 @@ from threadpoolctl import threadpool_limits
 from service.config import Settings
 from service.jobs.curves.prepare import PreparedCurve, create_submission, prepare_submission
 from service.jobs.curves.settle import CURVE_KIND, child_ids, settle_curve
-from service.jobs.execution.execute import UnitReport, worker_name
+from service.jobs.execution.batches import batch_unit_ids
+from service.jobs.execution.execute import worker_name
 from service.jobs.execution.plans import LoadedPlan, remember
-from service.jobs.execution.work import run_and_advance
+from service.jobs.execution.run_batch import BatchReport, run_batch_and_advance
 from service.jobs.intake.prepare import PreparedJob
 from service.jobs.intake.start import start_submitted
 from service.jobs.lifecycle import cancel_job, queued_unit_ids
@@ -35,6 +37,7 @@ from service.store.models import Job
 from service.store.statuses import JobStatus, UnitStatus
 
 Progress = Callable[[int, int], None]
+Tick = Callable[[int], None]
 
 
 class JobFailed(RuntimeError):
@@ -62,9 +65,9 @@ def _child_start(engine: Engine, settings: Settings) -> None:
     _child["settings"] = settings
 
 
-def _child_execute(unit_id: int) -> tuple[UnitReport, list[int]]:
-    return run_and_advance(
-        _child["sessions"], unit_id, settings=_child["settings"], worker=worker_name()
+def _child_execute(unit_ids: list[int]) -> tuple[BatchReport, list[int]]:
+    return run_batch_and_advance(
+        _child["sessions"], unit_ids, settings=_child["settings"], worker=worker_name()
     )
 
 
@@ -73,7 +76,7 @@ def pool_workers(workers: int, queued_units: int) -> int:
 
     A pool costs a fork, an engine and a plan per process before its first fit; with fewer
     units than two rounds of its workers (or none left: the store answered the job), the units
-    run here, through the same `run_and_advance`, at once.
+    run here, through the same `run_batch_and_advance`, at once.
     """
     if workers <= 1 or queued_units < 2 * workers:
         return 1
@@ -101,36 +104,52 @@ def _local_pool(
             raise
 
 
+def _batches(sessions: sessionmaker[Session], unit_ids: list[int]) -> list[list[int]]:
+    with sessions() as session:
+        return batch_unit_ids(session, unit_ids)
+
+
+def _all_done(report: BatchReport) -> bool:
+    return all(status == UnitStatus.DONE for status in report.statuses.values())
+
+
 def _drive(
     sessions: sessionmaker[Session],
     job_id: str,
     settings: Settings,
     pool: ProcessPoolExecutor | None,
-    tick: Callable[[], None],
+    tick: Tick,
 ) -> None:
-    """Run the job's queued units (here, or on `pool`) and the units each fan-in adds."""
+    """Run the job's queued units in batches (here, or on `pool`), and those each fan-in adds.
+
+    A batch with a unit that did not end done (a failed fit, a cancelled job) ends the drive:
+    the job has ended, and the units still running see that at their next stop check.
+    """
     with sessions() as session:
-        pending = queued_unit_ids(session, job_id)
+        queued = queued_unit_ids(session, job_id)
+    pending = _batches(sessions, queued)
     if pool is None:
         me = worker_name()
         while pending:
-            report, added = run_and_advance(sessions, pending.pop(0), settings=settings, worker=me)
-            if report.status != UnitStatus.DONE:
+            report, added = run_batch_and_advance(
+                sessions, pending.pop(0), settings=settings, worker=me
+            )
+            tick(len(report.statuses))
+            if not _all_done(report):
                 return
-            tick()
-            pending += added
+            pending += _batches(sessions, added)
         return
-    running = {pool.submit(_child_execute, uid) for uid in pending}
+    running = {pool.submit(_child_execute, batch) for batch in pending}
     while running:
         finished, running = wait(running, return_when=FIRST_COMPLETED)
         for future in finished:
             report, added = future.result()
-            if report.status != UnitStatus.DONE:
+            tick(len(report.statuses))
+            if not _all_done(report):
                 for other in running:
                     other.cancel()
                 return
-            tick()
-            running |= {pool.submit(_child_execute, uid) for uid in added}
+            running |= {pool.submit(_child_execute, batch) for batch in _batches(sessions, added)}
 
 
 def _drive_selections(
@@ -144,9 +163,9 @@ def _drive_selections(
     total = sum(units for _, units in selections)
     done = 0
 
-    def tick() -> None:
+    def tick(units: int) -> None:
         nonlocal done
-        done += 1
+        done += units
         if progress:
             progress(done, total)
 
