@@ -1,7 +1,8 @@
 """The embedded server's dispatcher: a local process pool fed from the store.
 
-The store is the queue: a poller thread hands queued units to pool processes, each of which runs
-the same `run_and_advance` a Celery worker runs. Publishing only wakes the poller.
+The store is the queue: a poller thread hands queued units to pool processes in batches sized
+to their work (`batch_unit_ids`, as the Celery publisher sends them), and each process runs the
+same `run_batch_and_advance` a Celery worker runs. Publishing only wakes the poller.
 """
 
 from __future__ import annotations
@@ -20,9 +21,10 @@ from service.config import Settings
 from service.dispatch.base import mark_audits_published, mark_published
 from service.jobs import lifecycle
 from service.jobs.audits.audit import run_audit
-from service.jobs.execution.execute import UnitReport, worker_name
+from service.jobs.execution.batches import batch_unit_ids
+from service.jobs.execution.execute import worker_name
 from service.jobs.execution.reconcile import Waiting, reconcile
-from service.jobs.execution.work import run_and_advance
+from service.jobs.execution.run_batch import run_batch_and_advance
 from service.jobs.lifecycle import queued_units_of_live_jobs, release_claims
 from service.notify.delivery import deliver_due
 from service.processes import die_with, die_with_parent, pid_alive, stop_pool
@@ -33,6 +35,9 @@ log = logging.getLogger(__name__)
 _child: dict[str, Any] = {}
 # seconds a pool process has, after SIGTERM, to go before it is killed
 SHUTDOWN_GRACE = 2.0
+# newly queued units grouped into batches per tick: enough for eight full batches
+# (service/cv/unit_batches.py), without reading a long queue's every row each second
+HANDED_PER_TICK = 256
 
 
 def _child_start(settings: Settings, server: int) -> None:
@@ -45,11 +50,11 @@ def _child_start(settings: Settings, server: int) -> None:
     _child["settings"] = settings
 
 
-def _child_run(unit_id: int) -> UnitReport:
-    report, _ = run_and_advance(
-        _child["sessions"], unit_id, settings=_child["settings"], worker=worker_name()
+def _child_run(unit_ids: list[int]) -> dict[int, str]:
+    report, _ = run_batch_and_advance(
+        _child["sessions"], unit_ids, settings=_child["settings"], worker=worker_name()
     )
-    return report
+    return report.statuses
 
 
 def _child_audit(audit_id: str) -> str:
@@ -80,7 +85,9 @@ class LocalPool:
             workers, mp_context=context, initializer=_child_start, initargs=(settings, os.getpid())
         )
         self._take_back_from_the_dead()
-        self._inflight: set[int] = set()
+        self._inflight: set[int] = set()  # units of the batches handed to pool processes
+        self._batches = 0  # batches handed out and not yet ended
+        self._ready: list[list[int]] = []  # batches made, waiting for a free process
         self._audits: set[str] = set()  # audits handed to a pool process, not yet ended
         self._lock = threading.Lock()
         self._wake = threading.Event()
@@ -155,21 +162,45 @@ class LocalPool:
                     for audit_id in found.audits:
                         if not self._stop.is_set():
                             self._hand_audit(audit_id)
-                    # units whose holder died first, then the queue in id order; and no more
-                    # than the pool has processes: a unit handed over waits in the pool's own
-                    # queue, where a lease that lapses later could not overtake it
-                    for unit_id in dict.fromkeys(found.republish + self._queued()):
-                        if self._stop.is_set() or len(self._inflight) >= self.workers:
-                            break
-                        if unit_id in self._inflight:
-                            continue
-                        self._inflight.add(unit_id)
-                        future = self._pool.submit(_child_run, unit_id)
-                        future.add_done_callback(self._finished(unit_id))
+                    self._hand_out(found.republish)
             except Exception:  # keep serving: the next tick retries from the store
                 log.exception("local pool tick failed")
             self._wake.wait(self.poll_seconds)
             self._wake.clear()
+
+    def _hand_out(self, republish: list[int]) -> None:
+        """Batch the newly queued units, then hand batches to the free processes (lock held).
+
+        Batches are made once, when their units are first seen queued, as the Celery publisher
+        makes them when it publishes a stage: made again each tick from what is left, they
+        would shrink as the queue drains. Units whose holder died go first; no more batches
+        than the pool has processes are handed over: a batch handed over waits in the pool's
+        own queue, where a lease that lapses later could not overtake it.
+        """
+        queued = dict.fromkeys(republish + self._queued())
+        # units no longer queued (claimed elsewhere, cancelled) leave the waiting batches
+        self._ready = [kept for batch in self._ready if (kept := [u for u in batch if u in queued])]
+        batched = {unit_id for batch in self._ready for unit_id in batch}
+        fresh = [u for u in queued if u not in self._inflight and u not in batched]
+        again = set(republish)
+        first = [u for u in fresh if u in again]
+        rest = [u for u in fresh if u not in again][:HANDED_PER_TICK]
+        self._ready = self._batches_of(first) + self._ready + self._batches_of(rest)
+        while self._ready and self._batches < self.workers and not self._stop.is_set():
+            self._hand_batch(self._ready.pop(0))
+
+    def _batches_of(self, unit_ids: list[int]) -> list[list[int]]:
+        if not unit_ids:
+            return []
+        with self._sessions() as session:
+            return batch_unit_ids(session, unit_ids)
+
+    def _hand_batch(self, batch: list[int]) -> None:
+        """Give one batch to the pool (the caller holds the lock)."""
+        self._inflight.update(batch)
+        self._batches += 1
+        future = self._pool.submit(_child_run, batch)
+        future.add_done_callback(self._finished(batch))
 
     def _ticks(self) -> None:
         # what the Celery beat's schedule and delivery ticks do in the distributed mode
@@ -191,13 +222,14 @@ class LocalPool:
 
         return done
 
-    def _finished(self, unit_id: int) -> Any:
-        def done(future: Future[UnitReport]) -> None:
+    def _finished(self, batch: list[int]) -> Any:
+        def done(future: Future[dict[int, str]]) -> None:
             with self._lock:
-                self._inflight.discard(unit_id)
+                self._inflight.difference_update(batch)
+                self._batches -= 1
             # at shutdown the pool's processes are stopped on purpose (close, below)
             if not self._stop.is_set() and future.exception() is not None:
-                log.error("unit %s crashed its process: %s", unit_id, future.exception())
+                log.error("units %s crashed their process: %s", batch, future.exception())
             self._wake.set()
 
         return done

@@ -9,9 +9,11 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+from sqlalchemy import func, select
 
 from service.config import load_settings
 from service.jobs.local.driver import run_embedded
+from service.store.models import FoldScore, WorkUnit
 
 from .server import IRIS_REQUEST, Server
 
@@ -136,3 +138,46 @@ def test_cancel_stops_a_job_and_leaves_finished_ones(
     with server.client(finished_job["token"]) as client:
         kept = client.post(f"/v1/jobs/{finished['id']}/cancel").json()
     assert kept["status"] == "succeeded" and kept["result"] is not None
+
+
+def test_the_servers_pool_runs_fast_units_in_batches_each_with_its_own_scores(
+    server: Server, token: str
+) -> None:
+    # eight nearest-neighbour candidates, outer 2 x inner 2: 24 inner units of two fits, far
+    # cheaper to fit than to claim and record one by one (service/cv/unit_batches.py)
+    request = {
+        "dataset": {"sample": "iris"},
+        "target": "target",
+        "task": "classification",
+        "families": [
+            {"estimator": "KNeighborsClassifier", "grid": {"n_neighbors": list(range(1, 17, 2))}}
+        ],
+        "outer": {"method": "stratified_kfold", "k": 2, "seed": 7},
+        "inner": {"method": "stratified_kfold", "k": 2, "seed": 8},
+        "metrics": ["accuracy"],
+        "reuse": False,
+    }
+    with server.client(token) as client:
+        answer = client.post("/v1/jobs", json=request)
+        assert answer.status_code == 202, answer.text
+        job = server.wait_for_job(client, answer.json()["id"])
+    assert job["status"] == "succeeded", job["error"]
+    with server.sessions() as session:
+        units = session.execute(
+            select(WorkUnit.claim_token, WorkUnit.attempts, WorkUnit.fits).where(
+                WorkUnit.job_id == job["id"]
+            )
+        ).all()
+        scores = session.scalar(
+            select(func.count()).select_from(FoldScore).where(FoldScore.job_id == job["id"])
+        )
+    assert len(units) == 24 + 3  # and the two outer refits and the final refit
+    assert all(attempts == 1 for _, attempts, _ in units)
+    # the 24 inner units in at most eight claims (a batch holds at most an eighth of the work),
+    # the three refits in at most three
+    tokens = {claim for claim, _, _ in units}
+    assert None not in tokens and len(tokens) <= 8 + 3, len(tokens)
+    # every fit's score once, each with its own unit: 8 candidates x 2 folds in each of the
+    # three inner scopes, and the two outer folds' test scores
+    assert sum(fits for _, _, fits in units) == 24 * 2 + 3
+    assert scores == 8 * 2 * 3 + 2
