@@ -101,8 +101,11 @@ def embedded(body: dict[str, Any], workers: int, folder: Path) -> tuple[float, i
     return time.perf_counter() - started, int(result["work"]["fits"])
 
 
-def celery_runs(bodies: dict[str, dict[str, Any]], folder: Path) -> dict[tuple[str, int], float]:
-    """Wall seconds of each body on 1, then 2 real Celery workers (fresh database each)."""
+def celery_runs(
+    bodies: dict[str, dict[str, Any]], folder: Path, runs: int
+) -> dict[tuple[str, int], float]:
+    """Median wall seconds of each body on 1, then 2 real Celery workers over `runs` runs (a
+    fresh database and fresh workers each run)."""
     # imported here: only --celery needs PostgreSQL, Redis and the test stack
     import psycopg
     import redis
@@ -114,37 +117,40 @@ def celery_runs(bodies: dict[str, dict[str, Any]], folder: Path) -> dict[tuple[s
     number = next(
         n for n in range(1, 16) if broker.set(f"foldwise-test:redis-db:{n}", "1", nx=True, ex=1800)
     )
-    seconds: dict[tuple[str, int], float] = {}
+    seconds: dict[tuple[str, int], list[float]] = {}
+    cells = [(workers, name) for workers in (1, 2) for name in bodies for _ in range(runs)]
     try:
-        for workers in (1, 2):
-            for name, body in bodies.items():
-                database = f"foldwise_bench_{uuid.uuid4().hex[:12]}"
+        for workers, name in cells:
+            database = f"foldwise_bench_{uuid.uuid4().hex[:12]}"
+            with psycopg.connect(admin_dsn, autocommit=True) as admin:
+                admin.execute(f'CREATE DATABASE "{database}"')
+            home = folder / uuid.uuid4().hex
+            env = {
+                "FOLDWISE_HOME": str(home),
+                "FOLDWISE_DATABASE_URL": f"postgresql+psycopg://postgres@127.0.0.1/{database}",
+                "FOLDWISE_BROKER_URL": f"redis://127.0.0.1:6379/{number}",
+                "FOLDWISE_DATA_ROOTS": str(folder),
+            }
+            stack = deploy(env, home)
+            try:
+                started = [stack.start_worker(f"w{i}") for i in range(workers)]
+                for process in started:
+                    stack.wait_ready(process, "ready.")
+                began = time.perf_counter()
+                job_id = stack.submit(bodies[name])
+                stack.wait_finished(job_id, 3600)
+                seconds.setdefault((name, workers), []).append(time.perf_counter() - began)
+                print(
+                    f"Celery {name} on {workers}: {seconds[(name, workers)][-1]:.1f} s", flush=True
+                )
+            finally:
+                stack.stop()
+                redis.Redis("127.0.0.1", 6379, db=number).flushdb()
                 with psycopg.connect(admin_dsn, autocommit=True) as admin:
-                    admin.execute(f'CREATE DATABASE "{database}"')
-                home = folder / uuid.uuid4().hex
-                env = {
-                    "FOLDWISE_HOME": str(home),
-                    "FOLDWISE_DATABASE_URL": f"postgresql+psycopg://postgres@127.0.0.1/{database}",
-                    "FOLDWISE_BROKER_URL": f"redis://127.0.0.1:6379/{number}",
-                    "FOLDWISE_DATA_ROOTS": str(folder),
-                }
-                stack = deploy(env, home)
-                try:
-                    started = [stack.start_worker(f"w{i}") for i in range(workers)]
-                    for process in started:
-                        stack.wait_ready(process, "ready.")
-                    began = time.perf_counter()
-                    job_id = stack.submit(body)
-                    stack.wait_finished(job_id, 3600)
-                    seconds[(name, workers)] = time.perf_counter() - began
-                finally:
-                    stack.stop()
-                    redis.Redis("127.0.0.1", 6379, db=number).flushdb()
-                    with psycopg.connect(admin_dsn, autocommit=True) as admin:
-                        admin.execute(f'DROP DATABASE IF EXISTS "{database}" WITH (FORCE)')
+                    admin.execute(f'DROP DATABASE IF EXISTS "{database}" WITH (FORCE)')
     finally:
         broker.delete(f"foldwise-test:redis-db:{number}")
-    return seconds
+    return {cell: statistics.median(found) for cell, found in seconds.items()}
 
 
 def median_of(runs: int, once: Callable[[], tuple[float, int]]) -> tuple[float, int]:
@@ -178,7 +184,7 @@ def main() -> None:
                 print(
                     f"embedded {name} on {workers}: {cells[(name, workers)][0]:.1f} s", flush=True
                 )
-        through_celery = celery_runs(bodies, folder) if args.celery else {}
+        through_celery = celery_runs(bodies, folder, args.runs) if args.celery else {}
     alone_end, pair_end, machine_end = capacity()
     print(
         f"capacity at the end: {alone_end:.2f} s alone, {pair_end:.2f} s the pair: "
