@@ -19,6 +19,7 @@ from typing import Any
 from sqlalchemy import CursorResult, func, or_, select, update
 from sqlalchemy.orm import Session
 
+from service.jobs.history_point import history_point_of
 from service.notify.outbox import queue_job_notice
 from service.store.db import utcnow
 from service.store.models import Job, WorkUnit
@@ -280,6 +281,7 @@ def fail_job(session: Session, job_id: str, error: str) -> bool:
 def succeed_job(session: Session, job: Job, result: dict[str, Any]) -> None:
     """The elected fan-in caller stores result v1 and ends the job."""
     job.result = result
+    job.history_point = history_point_of(result)
     job.status, job.stage, job.finished_at = JobStatus.SUCCEEDED, "done", utcnow()
     queue_job_notice(session, job.id)
 

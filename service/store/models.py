@@ -117,6 +117,8 @@ class Job(Base):
     stage: Mapped[Short] = mapped_column(default="inner", server_default="inner")
     request: Mapped[JsonDoc]
     result: Mapped[JsonDoc | None]
+    # the few values of the result a dataset's history shows (service/jobs/history_point.py)
+    history_point: Mapped[JsonDoc | None]
     error: Mapped[LongText | None]
     units_total: Mapped[int] = mapped_column(default=0, server_default="0")
     units_done: Mapped[int] = mapped_column(default=0, server_default="0")

@@ -1,5 +1,7 @@
-"""A dataset's history reads each job's estimate and final pick in SQL; on both stores it must show
-what the whole stored result says, for every shape of result a job can hold."""
+"""A dataset's history reads each job's estimate and final pick from the small point kept beside its
+result (service/jobs/history_point.py); on both stores it must show what the whole stored result
+says, for every shape of result a job can hold, whether the point was written as the job ended or
+filled in from the result by the migration that added it (0012)."""
 
 from __future__ import annotations
 
@@ -10,28 +12,37 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+from alembic import command
+from sqlalchemy import update
 from sqlalchemy.orm import Session, sessionmaker
 from store.rows import DATASET_HASH, add_job  # tests/store/rows.py: minimal valid rows
 
 from service.analysis.history import dataset_history
 from service.auth import Principal
+from service.jobs.history_point import history_point_of
 from service.jobs.queries.datasets import register_dataset
-from service.store.db import make_engine, make_session_factory, upgrade_database
+from service.store.db import alembic_config, make_engine, make_session_factory, upgrade_database
 from service.store.followup_models import Refresh, Schedule
+from service.store.models import Job
 
 READER = Principal("local", frozenset({"read"}))
 START = datetime(2026, 1, 1, 2, 0, tzinfo=UTC)
 
 
 @pytest.fixture(params=("sqlite", "postgresql"))
-def sessions(request: pytest.FixtureRequest, tmp_path: Path) -> Iterator[sessionmaker[Session]]:
+def store_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
     """A store migrated to head, once per backend."""
     if request.param == "sqlite":
         url = f"sqlite:///{tmp_path}/foldwise.sqlite"
     else:
         url = str(request.getfixturevalue("postgresql_url"))
     upgrade_database(url)
-    engine = make_engine(url)
+    return url
+
+
+@pytest.fixture
+def sessions(store_url: str) -> Iterator[sessionmaker[Session]]:
+    engine = make_engine(store_url)
     try:
         yield make_session_factory(engine)
     finally:
@@ -119,7 +130,10 @@ def _expected(job_id: str, status: str, result: dict[str, Any] | None) -> dict[s
     return point
 
 
-def test_history_points_show_what_the_whole_result_says(sessions: sessionmaker[Session]) -> None:
+@pytest.mark.parametrize("written", ("as the job ended", "by the migration"))
+def test_history_points_show_what_the_whole_result_says(
+    sessions: sessionmaker[Session], store_url: str, written: str
+) -> None:
     ids = {}
     with sessions.begin() as session:
         for n, (label, (status, result)) in enumerate(RESULTS.items()):
@@ -130,8 +144,18 @@ def test_history_points_show_what_the_whole_result_says(sessions: sessionmaker[S
                 kind="learning_curve" if label == "curve parent" else "selection",
                 created_at=START + timedelta(days=n),
             )
+            # succeed_job (service/jobs/lifecycle.py), the one writer of a succeeded result,
+            # keeps its point beside it
+            if status == "succeeded" and result is not None:
+                job.history_point = history_point_of(copy.deepcopy(result))
             ids[label] = job.id
         register_dataset(session, DATASET_HASH, "local")
+    if written == "by the migration":
+        # a store from before the point: its column dropped, then added and filled again
+        with sessions.begin() as session:
+            session.execute(update(Job).values(history_point=None))
+        command.downgrade(alembic_config(store_url), "0011")
+        command.upgrade(alembic_config(store_url), "head")
     with sessions() as session:
         history = dataset_history(session, READER, DATASET_HASH)
     shown = [
