@@ -34,7 +34,8 @@ def _long_units() -> dict[str, Any]:
     """One forest candidate big enough that an inner unit outlasts a heartbeat.
 
     On a quiet machine 2,500 trees gave 7 s units, done before any renewal could be seen; 6,000
-    give about 17 s, past one heartbeat (10 s) even there. Two outer by two inner folds keep the
+    should take about 17 s by the same rate, past one heartbeat (10 s) even there (the wait
+    below fails the test if no unit ever shows a renewed lease). Two outer by two inner folds keep the
     job to 8 such units: enough for one to be killed while others remain for the survivor,
     without minutes of fits the test learns nothing from.
     """
