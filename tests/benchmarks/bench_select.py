@@ -266,7 +266,7 @@ def probe_store(job_path: Path) -> dict[str, Any]:
     for name in ("service.cli.main", "service.cli.progress", "service.cli.render"):
         importlib.import_module(name)
     import service.jobs.execution.execute as execute
-    import service.jobs.execution.work as work
+    import service.jobs.execution.run_batch as run_batch
     import service.jobs.local.driver as embedded
     import service.store.db as db
     from service.config import load_settings
@@ -277,13 +277,14 @@ def probe_store(job_path: Path) -> dict[str, Any]:
         original = module.make_engine
         module.make_engine = lambda url, _make=original, **kw: _watch_sql(clock, _make(url, **kw))
     clock.wrap(embedded, "upgrade_database", "migrate new store")
-    clock.wrap(embedded, "prepare_job", "prepare (read, hash, validate, plan)")
-    clock.wrap(embedded, "create_job", "create_job")
-    clock.wrap(work, "execute_unit", "execute_unit")
-    clock.wrap(work, "advance_job", "advance_job")
-    clock.wrap(execute, "fit_and_score", "fit_and_score")
-    clock.wrap(execute, "_record", "_record")
-    clock.wrap(execute, "model_file_of", "model_file_of")
+    clock.wrap(embedded, "prepare_submission", "prepare (read, hash, validate, plan)")
+    clock.wrap(embedded, "create_submission", "create the job")
+    # the local driver runs units in batches, as a Celery worker does (service/cv/unit_batches.py)
+    clock.wrap(run_batch, "execute_batch", "execute_batch")
+    clock.wrap(run_batch, "advance_job", "advance_job")
+    clock.wrap(run_batch, "fit_and_score", "fit_and_score")
+    clock.wrap(run_batch, "_record", "_record")
+    clock.wrap(run_batch, "model_file_of", "model_file_of")
     # the cancellation check asks the store at most once a second from inside fit_and_score
     clock.wrap(execute.StopCheck, "__call__", "_cancel_requested")
     job = json.loads(job_path.read_text(encoding="utf-8"))
@@ -332,37 +333,37 @@ def _print_store(probe: dict[str, Any], fw_median: float) -> None:
     def get(label: str) -> float:
         return float(s.get(label, 0.0))
 
-    units = get("execute_unit")
+    units = get("execute_batch")
     cancel_checks = get("_cancel_requested")
     fitting = get("fit_and_score") - cancel_checks
     unit_overhead = units - get("fit_and_score") - get("_record") - get("model_file_of")
     migrate = get("migrate new store")
     prepare = get("prepare (read, hash, validate, plan)")
-    other = probe["run_embedded"] - migrate - prepare - get("create_job") - units
+    other = probe["run_embedded"] - migrate - prepare - get("create the job") - units
     other -= get("advance_job")
     print("\nWhere one foldwise run spends its time (in-process, 1 worker, one run):")
     _line("imports (cli + embedded, fresh process)", probe["imports"])
     _line("migrate new store (upgrade_database)", migrate)
-    _line("prepare_job (read CSV, hash, validate, plan)", prepare)
-    _line("create_job (dataset copy, folds, units; no commit)", get("create_job"))
+    _line("prepare_submission (read CSV, hash, validate, plan)", prepare)
+    _line("create_submission (dataset copy, folds, units; no commit)", get("create the job"))
     _line("fits and scoring (fit_and_score minus cancel checks)", fitting)
     _line("cancel checks before each fit (_cancel_requested)", cancel_checks)
     _line("_record (fold-score inserts, final pick, model chunks)", get("_record"))
     _line("model_file_of (serialize, sha256, cache file)", get("model_file_of"))
-    _line("unit claim/finish/commit (execute_unit - fit - record)", unit_overhead)
+    _line("batch claim/finish/commit (execute_batch - fit - record)", unit_overhead)
     _line("advance_job (fan-in, picks, refit units, result)", get("advance_job"))
     _line("rest of run_embedded (engines, create_job commit, reads)", other)
     _line("run_embedded total", probe["run_embedded"])
-    counted = ("execute_unit", "advance_job", "_cancel_requested")
+    counted = ("execute_batch", "advance_job", "_cancel_requested")
     print("  calls: " + ", ".join(f"{k} {calls.get(k, 0)}" for k in counted))
     _line("SQL: statements (cursor execute, every engine)", get("sql statements"))
     _line("SQL: commits and rollbacks (every engine)", get("sql commit/rollback"))
-    brief = get("create_job") + get("_record") + get("advance_job")
+    brief = get("create the job") + get("_record") + get("advance_job")
     writes = brief + unit_overhead
     store = writes + migrate + cancel_checks
     print("\nstore writes:")
-    _line("create_job + _record + advance_job", brief)
-    _line("... + per-unit claim/finish/commit", writes)
+    _line("create_submission + _record + advance_job", brief)
+    _line("... + per-batch claim/finish/commit", writes)
     _line("... + migrating the new store + cancel checks (all store work)", store)
     print(f"  {'all store work / median 1-worker foldwise wall time':<62} {store / fw_median:8.1%}")
     _line("foldwise's own time (run_embedded - fits and scoring)", probe["run_embedded"] - fitting)
