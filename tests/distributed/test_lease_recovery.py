@@ -35,9 +35,9 @@ def _long_units() -> dict[str, Any]:
 
     On a quiet machine 2,500 trees gave 7 s units, done before any renewal could be seen; 6,000
     should take about 17 s by the same rate, past one heartbeat (10 s) even there (the wait
-    below fails the test if no unit ever shows a renewed lease). Two outer by two inner folds keep the
-    job to 8 such units: enough for one to be killed while others remain for the survivor,
-    without minutes of fits the test learns nothing from.
+    below fails the test if no unit ever shows a renewed lease). Two outer by two inner folds
+    keep the job to 8 such units: enough for one to be killed while others remain for the
+    survivor, without minutes of fits the test learns nothing from.
     """
     return {
         **small_request(),
