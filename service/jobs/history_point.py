@@ -1,9 +1,10 @@
 """What a dataset's history shows of a succeeded job, kept beside its result when it ends.
 
 A year of nightly jobs on one table is a thousand result documents, each TOASTed and compressed;
-reading the history from them took 55-70 ms at p95 however little of each it picked out
-(tests/benchmarks/bench_store_scale.py). The few values a history point shows are written once,
-with the result, into a small column of their own (`job.history_point`, migration 0012).
+reading the history from them took 38 ms at p95 on a quiet machine and 68 ms on a busy one,
+however little of each it picked out (tests/benchmarks/bench_store_scale.py). The few values a
+history point shows are written once, with the result, into a small column of their own
+(`job.history_point`, migration 0012).
 """
 
 from __future__ import annotations
