@@ -10,6 +10,7 @@ from __future__ import annotations
 from service.cv.unit_batches import (
     BATCH_SECONDS,
     BATCH_UNITS,
+    MODEL_HANDOVER_SECONDS,
     SLOW_UNIT_SECONDS,
     SPREAD,
     UnitWork,
@@ -85,3 +86,11 @@ def test_the_guess_grows_with_rows_and_trees() -> None:
     few = estimated_fit_seconds("RandomForestClassifier", {"n_estimators": 10}, 1000)
     many = estimated_fit_seconds("RandomForestClassifier", {"n_estimators": 500}, 1000)
     assert many > 10 * few
+
+
+def test_work_beyond_the_fits_counts_in_the_estimate() -> None:
+    # the final refit's model hand-over makes a millisecond fit a slow unit: alone and first
+    final = UnitWork(999, "lr0", "LogisticRegression", {"C": 1.0}, 1, 300, MODEL_HANDOVER_SECONDS)
+    works = [*_works()[:20], final]
+    assert unit_seconds(works[-1], {}) >= SLOW_UNIT_SECONDS
+    assert batch_units(works)[0] == [999]

@@ -14,6 +14,7 @@ from typing import Any
 from sqlalchemy import func, select
 
 from service.config import load_settings
+from service.jobs.execution.batches import batch_unit_ids
 from service.jobs.execution.execute import worker_name
 from service.jobs.local.driver import pool_workers, run_embedded
 from service.store.db import make_engine, make_session_factory
@@ -104,3 +105,28 @@ def test_fast_units_run_in_batches_and_each_keeps_its_own_scores(tmp_path: Path)
         # the three inner scopes, the two outer folds' test scores and the final refit's none
         assert sum(fits for _, _, fits in units) == 24 * 2 + 3
         assert scores == 8 * 2 * 3 + 2
+
+
+def test_the_final_refit_runs_alone_and_first_in_its_stage(tmp_path: Path) -> None:
+    # the final refit also writes and stores the model (seconds where its fit takes
+    # milliseconds): left last in a batch of outer refits it was the stage's tail, each other
+    # worker idle behind it (traced in tests/benchmarks/bench_nested_interval.py's setting)
+    settings = load_settings({"FOLDWISE_HOME": str(tmp_path / "home")})
+    outcome = run_embedded(_request([1, 3, 5, 7, 9, 11]), settings=settings, workers=2)
+    engine = make_engine(settings.database_url)
+    try:
+        with make_session_factory(engine)() as session:
+            units = session.execute(
+                select(WorkUnit.id, WorkUnit.kind, WorkUnit.claim_token)
+                .where(WorkUnit.job_id == outcome.job_id)
+                .order_by(WorkUnit.id)
+            ).all()
+            last_stage = [u.id for u in units if u.kind in ("outer_refit", "final_refit")]
+            batches = batch_unit_ids(session, last_stage)
+    finally:
+        engine.dispose()
+    (final,) = [u for u in units if u.kind == "final_refit"]
+    assert batches[0] == [final.id]
+    assert sorted(i for batch in batches for i in batch) == sorted(last_stage)
+    # and it ran that way: no other unit shares its claim
+    assert [u.id for u in units if u.claim_token == final.claim_token] == [final.id]

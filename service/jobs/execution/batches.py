@@ -12,7 +12,7 @@ from collections import defaultdict
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
-from service.cv.unit_batches import UnitWork, batch_units
+from service.cv.unit_batches import MODEL_HANDOVER_SECONDS, UnitWork, batch_units
 from service.store.models import Candidate, Dataset, FoldScore, Job, JobFold, WorkUnit
 
 
@@ -68,14 +68,16 @@ def batch_unit_ids(session: Session, unit_ids: list[int]) -> list[list[int]]:
         outer_k = max(2, folds[row.job_id].get("outer", 5))
         inner_k = max(2, folds[row.job_id].get("final_inner", 3))
         outer_train = int(row.n_rows * (1 - 1 / outer_k))
+        extra = 0.0
         if row.kind == "inner":
             fits, rows_each = inner_k, int(outer_train * (1 - 1 / inner_k))
         elif row.kind == "outer_refit":
             fits, rows_each = 1, outer_train
         else:
             fits, rows_each = 1, row.n_rows
+            extra = MODEL_HANDOVER_SECONDS if row.kind == "final_refit" else 0.0
         by_job[row.job_id].append(
-            UnitWork(row.id, row.candidate_key, row.estimator, row.params, fits, rows_each)
+            UnitWork(row.id, row.candidate_key, row.estimator, row.params, fits, rows_each, extra)
         )
     batches: list[list[int]] = []
     for job_id, works in by_job.items():
