@@ -42,6 +42,11 @@ DIFFERENT_FOLDS_STATEMENT = (
     "t-test on the two sets of outer values, which treats them as independent samples although "
     "both come from the same rows."
 )
+NESTED_NOT_FOR_DIFFERENCES = (
+    "Both jobs carry a nested interval on {metrics}: each assesses one job's own procedure, "
+    "not the difference between two, so the difference above keeps the {test} on the outer "
+    "folds; the two nested intervals are shown with each job."
+)
 SIGN_NOTE = (
     "Differences are the first job minus the second; every metric is higher-is-better "
     "(errors are negated), so a positive difference favours the first job."
@@ -137,6 +142,7 @@ class OuterScores:
     n_train: list[int]
     n_test: list[int]
     scores: dict[str, list[float]]  # metric -> per-fold values in the same order
+    nested: frozenset[str] = frozenset()  # metrics whose estimate has a nested interval
 
 
 @dataclass(frozen=True)
@@ -198,8 +204,22 @@ def compare_outer_scores(left: OuterScores, right: OuterScores) -> Comparison:
         fingerprints=list(left.fingerprints) if same else None,
         metrics=results,
         statement=SAME_FOLDS_STATEMENT if same else DIFFERENT_FOLDS_STATEMENT,
-        caveats=[VARIANCE_CAVEAT, SIGN_NOTE],
+        caveats=[VARIANCE_CAVEAT, *_nested_caveat(left, right, results), SIGN_NOTE],
     )
+
+
+def _nested_caveat(
+    left: OuterScores, right: OuterScores, results: list[MetricComparison]
+) -> list[str]:
+    """Why a difference between two jobs with nested intervals still gets the t interval."""
+    both = [r.metric for r in results if r.metric in left.nested and r.metric in right.nested]
+    if not both:
+        return []
+    tests = {r.test.test for r in results if r.metric in both}
+    test = "corrected resampled t" if tests == {CORRECTED_T} else "Welch t"
+    if len(tests) > 1:
+        test = "t test named per metric"
+    return [NESTED_NOT_FOR_DIFFERENCES.format(metrics=", ".join(both), test=test)]
 
 
 def outer_scores_from_result(
@@ -219,4 +239,17 @@ def outer_scores_from_result(
         n_train=[int(row["n_train"]) for row in outer],
         n_test=[int(row["n_test"]) for row in outer],
         scores={str(m): [float(row["scores"][m]) for row in outer] for m in metrics},
+        nested=frozenset(_nested_metrics(result)),
     )
+
+
+def _nested_metrics(result: Mapping[str, object]) -> list[str]:
+    estimate = result.get("estimate")
+    if not isinstance(estimate, Mapping):
+        return []
+    found = []
+    for metric, entry in estimate.items():
+        interval = entry.get("interval") if isinstance(entry, Mapping) else None
+        if isinstance(interval, Mapping) and interval.get("method") == "nested":
+            found.append(str(metric))
+    return found

@@ -13,7 +13,12 @@ from sklearn.model_selection import RepeatedStratifiedKFold, cross_val_score
 from sklearn.svm import SVC
 from sqlalchemy import text
 
-from service.analysis.compare import corrected_t_test, welch_t_test
+from service.analysis.compare import (
+    compare_outer_scores,
+    corrected_t_test,
+    outer_scores_from_result,
+    welch_t_test,
+)
 
 from .conftest import Seeded
 
@@ -70,6 +75,40 @@ def test_identical_folds_give_t_zero_and_p_one() -> None:
     # difference; we define t = 0 (the formula alone would be 0/0) and p = 1.
     test = corrected_t_test([0.0] * 6, n_train=100, n_test=50)
     assert (test.t, test.p_value, test.variance) == (0.0, 1.0, 0.0)
+
+
+def _stored_result(method: str | None, offset: float) -> dict[str, Any]:
+    # only the parts of result v1 a comparison reads: per-fold scores, sizes, the interval
+    outer = [
+        {"n_train": 100, "n_test": 50, "scores": {"accuracy": 0.8 + offset + 0.01 * i**2}}
+        for i in range(3)
+    ]
+    interval = None if method is None else {"method": method, "level": 0.9}
+    return {
+        "outer": outer,
+        "metrics": ["accuracy"],
+        "dataset_hash": "d" * 64,
+        "estimate": {"accuracy": {"mean": 0.81 + offset, "interval": interval}},
+    }
+
+
+@pytest.mark.parametrize(
+    ("left", "right", "said"),
+    [("nested", "nested", True), ("nested", "quick", False), ("quick", None, False)],
+)
+def test_the_difference_says_why_it_keeps_the_t_interval_when_both_jobs_are_nested(
+    left: str, right: str | None, said: bool
+) -> None:
+    folds = ["f0", "f1", "f2"]
+    comparison = compare_outer_scores(
+        outer_scores_from_result("a", _stored_result(left, 0.0), folds),
+        outer_scores_from_result("b", _stored_result(right, 0.02), folds),
+    )
+    nested = [c for c in comparison.caveats if "nested interval" in c]
+    assert bool(nested) is said
+    if said:
+        assert "on accuracy" in nested[0] and "corrected resampled t" in nested[0]
+    assert comparison.metrics[0].test.test == "corrected_resampled_t"
 
 
 def test_welch_matches_scipy() -> None:
