@@ -215,10 +215,8 @@ def _nested_caveat(
     both = [r.metric for r in results if r.metric in left.nested and r.metric in right.nested]
     if not both:
         return []
-    tests = {r.test.test for r in results if r.metric in both}
-    test = "corrected resampled t" if tests == {CORRECTED_T} else "Welch t"
-    if len(tests) > 1:
-        test = "t test named per metric"
+    # one comparison has one test for every metric: paired on the same folds, else Welch
+    test = "corrected resampled t" if results[0].test.test == CORRECTED_T else "Welch t"
     return [NESTED_NOT_FOR_DIFFERENCES.format(metrics=", ".join(both), test=test)]
 
 
