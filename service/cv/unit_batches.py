@@ -26,6 +26,14 @@ BATCH_SECONDS = 1.0
 SPREAD = 8
 # ... and at most this many units (the claim and the record are one statement each for all)
 BATCH_UNITS = 32
+# the last TAPER_BATCHES batches' worth of fast work goes in batches TAPER_SPLIT times smaller:
+# a stage ends when its last batch does, so every other worker idles for what is left of the
+# last big batch (traced on bench_nested_interval.py's job: 0.1-0.4 s of each worker's 3 s)
+TAPER_BATCHES = 2
+TAPER_SPLIT = 4
+# ... but no smaller than this estimated: a batch costs a claim, a record and a message (tens of
+# milliseconds), so a tiny job's batches are not split further
+TAPERED_BATCH_FLOOR = 0.1
 
 # seconds per fit per training row (per tree or boosting stage for ensembles); from memory,
 # order-of-magnitude only (see above)
@@ -123,7 +131,9 @@ def batch_units(
 
     Slow units come first, one each, so the longest work starts earliest and the fast batches
     fill in behind it (longest-first scheduling); fast units are packed in their given order
-    into batches of at most BATCH_SECONDS estimated (and an eighth of the total), BATCH_UNITS.
+    into batches of at most BATCH_SECONDS estimated (and an eighth of the total), BATCH_UNITS,
+    the last TAPER_BATCHES budgets' worth in batches TAPER_SPLIT times smaller (down to
+    TAPERED_BATCH_FLOOR), so the workers finish a stage together.
     """
     stored = stored_fit_seconds or {}
     costs = {w.unit_id: unit_seconds(w, stored) for w in works}
@@ -132,18 +142,31 @@ def batch_units(
         (w.unit_id for w in works if costs[w.unit_id] >= SLOW_UNIT_SECONDS),
         key=lambda unit_id: -costs[unit_id],
     )
+    fast = [w.unit_id for w in works if costs[w.unit_id] < SLOW_UNIT_SECONDS]
+    # where the tapered tail starts: the fast units after it sum to TAPER_BATCHES budgets
+    tail, behind = len(fast), 0.0
+    while tail > 0 and behind + costs[fast[tail - 1]] <= TAPER_BATCHES * budget * (1 + 1e-9):
+        tail -= 1
+        behind += costs[fast[tail]]
     batches: list[list[int]] = [[unit_id] for unit_id in slow]
+    tapered = max(budget / TAPER_SPLIT, min(budget, TAPERED_BATCH_FLOOR))
+    if tapered >= budget:  # too little work for smaller batches to pay
+        return batches + _packed(fast, costs, budget)
+    return batches + _packed(fast[:tail], costs, budget) + _packed(fast[tail:], costs, tapered)
+
+
+def _packed(unit_ids: list[int], costs: Mapping[int, float], budget: float) -> list[list[int]]:
+    """`unit_ids` in their order, in batches of at most `budget` estimated and BATCH_UNITS."""
+    batches: list[list[int]] = []
     current: list[int] = []
     filled = 0.0
-    for work in works:
-        cost = costs[work.unit_id]
-        if cost >= SLOW_UNIT_SECONDS:
-            continue
+    for unit_id in unit_ids:
+        cost = costs[unit_id]
         # a relative tolerance: n equal costs summed in floating point may exceed n x cost
         if current and (filled + cost > budget * (1 + 1e-9) or len(current) >= BATCH_UNITS):
             batches.append(current)
             current, filled = [], 0.0
-        current.append(work.unit_id)
+        current.append(unit_id)
         filled += cost
     if current:
         batches.append(current)

@@ -13,6 +13,9 @@ from service.cv.unit_batches import (
     MODEL_HANDOVER_SECONDS,
     SLOW_UNIT_SECONDS,
     SPREAD,
+    TAPER_BATCHES,
+    TAPER_SPLIT,
+    TAPERED_BATCH_FLOOR,
     UnitWork,
     batch_units,
     estimated_fit_seconds,
@@ -94,3 +97,34 @@ def test_work_beyond_the_fits_counts_in_the_estimate() -> None:
     works = [*_works()[:20], final]
     assert unit_seconds(works[-1], {}) >= SLOW_UNIT_SECONDS
     assert batch_units(works)[0] == [999]
+
+
+def test_a_stage_ends_in_small_batches() -> None:
+    # 200 equal fast units: full batches first, then the last two budgets' worth in quarters,
+    # so no worker is left waiting long for another's last batch (common practice in
+    # scheduling loops: chunks that shrink towards the end, as guided self-scheduling does)
+    works = [
+        UnitWork(i, f"lr{i % 10}", "LogisticRegression", {"C": 1.0}, 3, 300) for i in range(200)
+    ]
+    costs = {w.unit_id: unit_seconds(w, {}) for w in works}
+    budget = min(BATCH_SECONDS, sum(costs.values()) / SPREAD)
+    batches = batch_units(works)
+    assert [i for batch in batches for i in batch] == list(range(200))  # order kept
+    work = [sum(costs[i] for i in batch) for batch in batches]
+    tapered = max(budget / TAPER_SPLIT, TAPERED_BATCH_FLOOR)
+    assert tapered < budget / 2
+    small = [w for w in work if w <= tapered * (1 + 1e-9)]
+    assert len(small) >= TAPER_BATCHES * TAPER_SPLIT - 1
+    # the small ones are the last, and they hold about TAPER_BATCHES budgets of work
+    assert work[-len(small) :] == small
+    assert sum(small) <= TAPER_BATCHES * budget * (1 + 1e-9)
+    assert max(work[: -len(small)]) > budget / 2
+
+
+def test_a_tiny_stage_is_not_split_further() -> None:
+    # 32 cheap units: batches at the budget only (splitting would cost more than it saves)
+    works = [UnitWork(i, "k", "GaussianNB", {}, 3, 100) for i in range(32)]
+    costs = {w.unit_id: unit_seconds(w, {}) for w in works}
+    budget = min(BATCH_SECONDS, sum(costs.values()) / SPREAD)
+    assert budget < TAPERED_BATCH_FLOOR
+    assert len(batch_units(works)) <= SPREAD + 1
