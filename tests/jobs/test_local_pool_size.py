@@ -108,8 +108,8 @@ def test_fast_units_run_in_batches_and_each_keeps_its_own_scores(tmp_path: Path)
 
 
 def test_the_final_refit_runs_alone_and_first_in_its_stage(tmp_path: Path) -> None:
-    # the final refit also writes and stores the model (seconds where its fit takes
-    # milliseconds): left last in a batch of outer refits it was the stage's tail, each other
+    # the final refit also writes and stores the model (about half a second where its fit
+    # takes milliseconds): left last in a batch of outer refits it was the stage's tail, each other
     # worker idle behind it (traced in tests/benchmarks/bench_nested_interval.py's setting)
     settings = load_settings({"FOLDWISE_HOME": str(tmp_path / "home")})
     outcome = run_embedded(_request([1, 3, 5, 7, 9, 11]), settings=settings, workers=2)
