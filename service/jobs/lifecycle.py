@@ -264,7 +264,12 @@ def _cancel_queued_units(session: Session, job_ids: list[str]) -> None:
 
 
 def fail_job(session: Session, job_id: str, error: str) -> bool:
-    """The one rule for a job that cannot succeed; True if this call ended it."""
+    """The one rule for a job that cannot succeed; True if this call ended it.
+
+    Units before the job row, as a claim takes them (`cancel_job` says why).
+    """
+    # whoever ends it, units not yet started need not start
+    _cancel_queued_units(session, [job_id])
     ended = session.scalar(
         update(Job)
         .where(Job.id == job_id, Job.status.in_(LIVE_JOB))
@@ -273,8 +278,6 @@ def fail_job(session: Session, job_id: str, error: str) -> bool:
     )
     if ended is not None:  # this call made the job fail: its notice goes with it
         queue_job_notice(session, ended)
-    # whoever ended it, units not yet started need not start
-    _cancel_queued_units(session, [job_id])
     return ended is not None
 
 
@@ -292,7 +295,14 @@ def cancel_job(session: Session, job: Job) -> Job:
     One conditional UPDATE decides, not the loaded row: a unit failing the job at the same
     moment (fail_job, equally conditional) and this cancel cannot both end it, so the job ends
     failed or cancelled and exactly one notice is queued.
+
+    Lock order: a claim locks its units, then the job's row (`start_job`), so a cancel takes the
+    queued units first and the job's row after. Taking the row first deadlocked on PostgreSQL
+    against the first claim of a queued job, and the store aborted one side (the cancel's answer
+    was a 500). The second pass after the row catches units a stage's advance added in between;
+    a claim of those never waits on the row, as their job is already running.
     """
+    _cancel_queued_units(session, [job.id])
     ended: CursorResult[Any] = session.execute(  # type: ignore[assignment]
         update(Job)
         .where(Job.id == job.id, Job.status.in_(LIVE_JOB))

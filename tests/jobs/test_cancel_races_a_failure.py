@@ -3,13 +3,16 @@
 The cancel is decided by a conditional UPDATE in the store, not by the row it loaded: a cancel
 whose job row was read while the job was live, but which writes after a unit failed the job,
 changes nothing and queues no notice. On PostgreSQL the race is also run for real: the failing
-transaction holds the job's row while the cancel's UPDATE waits on it in another thread.
+transaction holds the job's row while the cancel's UPDATE waits on it in another thread; and a
+cancel meets the first claim of a queued job half-way, without a deadlock.
 """
 
 from __future__ import annotations
 
 import threading
 import time
+import uuid
+from datetime import timedelta
 from pathlib import Path
 from typing import Any
 
@@ -20,10 +23,16 @@ from sqlalchemy.orm import Session, sessionmaker
 from service.config import Settings, load_settings
 from service.jobs.intake.create import create_job
 from service.jobs.intake.prepare import prepare_job
-from service.jobs.lifecycle import cancel_job, fail_job
+from service.jobs.lifecycle import (
+    cancel_job,
+    claim_statement,
+    fail_job,
+    queued_unit_ids,
+    start_job,
+)
 from service.store.db import make_engine, make_session_factory, upgrade_database
 from service.store.followup_models import WebhookDelivery
-from service.store.models import Job
+from service.store.models import Job, WorkUnit
 
 REQUEST: dict[str, Any] = {
     "dataset": {"sample": "diabetes"},
@@ -133,5 +142,65 @@ def test_a_cancel_waiting_on_a_failing_transaction_sees_the_failure(
         thread.join(timeout=30)
         assert outcome == {"returned": "failed"}
         assert _ended(sessions, job_id) == ("failed", "unit 1 failed: boom", 1)
+    finally:
+        engine.dispose()
+
+
+def test_a_cancel_racing_the_first_claim_of_a_queued_job_deadlocks_nothing(
+    tmp_path: Path, postgresql_url: str
+) -> None:
+    """The first claim of a queued job locks its units, then the job's row (to start it); a cancel
+    arriving between the two used to lock the row first and then wait on those units, and
+    PostgreSQL aborted one of the two as a deadlock (the API answered the cancel with a 500).
+    Both now finish: the claim's units run on (they stop between fits), the rest are cancelled."""
+    settings = load_settings(
+        {"FOLDWISE_HOME": str(tmp_path / "home"), "FOLDWISE_DATABASE_URL": postgresql_url}
+    )
+    upgrade_database(settings.database_url)
+    engine = make_engine(settings.database_url)
+    try:
+        sessions = make_session_factory(engine)
+        job_id = _live_job(sessions, settings)
+        with sessions() as session:
+            queued = queued_unit_ids(session, job_id)
+        assert len(queued) >= 2
+        claimed_ids, rest = queued[:1], queued[1:]
+        outcome: dict[str, Any] = {}
+        loaded = threading.Event()
+
+        def cancel() -> None:
+            try:
+                with sessions() as canceller:
+                    job = canceller.get_one(Job, job_id)
+                    loaded.set()
+                    outcome["returned"] = cancel_job(canceller, job).status
+                    canceller.commit()
+            except Exception as error:  # the test shows what the store raised
+                outcome["error"] = repr(error)
+
+        claimer = sessions()
+        try:
+            claimer.begin()
+            token = uuid.uuid4().hex
+            taken = claimer.execute(
+                claim_statement(claimed_ids, "worker-a", timedelta(seconds=60), token)
+            )
+            assert taken.rowcount == 1  # type: ignore[attr-defined]
+            thread = threading.Thread(target=cancel)
+            thread.start()
+            assert loaded.wait(10)
+            time.sleep(1.0)  # the cancel is now waiting on the claimed unit's lock
+            assert thread.is_alive(), "the cancel did not wait for the claim"
+            start_job(claimer, job_id)  # the claim's second step: the job's row
+            claimer.commit()
+        finally:
+            claimer.close()
+        thread.join(timeout=30)
+        assert outcome == {"returned": "cancelled"}
+        with sessions() as session:
+            statuses = {u.id: u.status for u in session.scalars(select(WorkUnit))}
+        assert [statuses[i] for i in claimed_ids] == ["running"]
+        assert {statuses[i] for i in rest} == {"cancelled"}
+        assert _ended(sessions, job_id) == ("cancelled", None, 1)
     finally:
         engine.dispose()
