@@ -15,8 +15,9 @@ import numpy as np
 from sklearn.utils import resample
 
 from service.cv.errors import SpecError
+from service.cv.scopes import round_repeat
 from service.cv.spec import SearchSpec, SelectionSpec
-from service.cv.splits import Fold
+from service.cv.splits import Fold, fold_fingerprint
 
 # scikit-learn's "exhaust" and "smallest" start from inner folds x 2 (x classes for a classifier)
 ROWS_PER_FOLD = 2
@@ -57,6 +58,46 @@ def cut(part: np.ndarray, fraction: float, seed: int) -> np.ndarray:
     """
     n = int(fraction * len(part))
     return np.asarray(resample(part, replace=False, random_state=seed, n_samples=n))
+
+
+def round_folds(
+    search: SearchSpec,
+    n_candidates: int,
+    y: np.ndarray,
+    rows: np.ndarray,
+    folds: list[Fold],
+    *,
+    n_rows: int,
+    versions: str,
+    classification: bool,
+) -> list[list[Fold]]:
+    """Every round's folds of one search over `rows`: its inner `folds` cut to the round's rows.
+
+    Fixed with the plan, before any fit, so each round's folds have fingerprints (and stored
+    scores) of their own; the stored repeat of a round fold says its round (scopes.round_repeat).
+    """
+    classes = len(np.unique(y[rows])) if classification else None
+    _, schedule = rounds_for(search, n_candidates, len(folds), len(rows), classes)
+    found = []
+    for index, round_rows in enumerate(schedule):
+        fraction = round_rows / len(rows)
+        cuts = []
+        for fold in folds:
+            train, test = (
+                cut(fold.train, fraction, search.seed),
+                cut(fold.test, fraction, search.seed),
+            )
+            cuts.append(
+                Fold(
+                    round_repeat(index, fold.repeat),
+                    fold.index,
+                    train,
+                    test,
+                    fold_fingerprint(train, test, n_rows, versions),
+                )
+            )
+        found.append(cuts)
+    return found
 
 
 def check_first_rounds(
@@ -120,18 +161,4 @@ def check_halving(
             f"the default first round needs {start} rows (inner folds x 2"
             f"{' x classes' if n_classes else ''}) but the smallest inner search has "
             f"{smallest}; give a smaller min_rows.",
-        )
-
-
-def refuse_as_units(spec: SelectionSpec) -> None:
-    """The service's refusal: halving is not split into stored work units yet.
-
-    build_plan calls it unless told the plan runs in-process, so a job that asks for halving is
-    refused where its plan is built; SpecError on `search.strategy`.
-    """
-    if spec.search.strategy == "halving":
-        raise SpecError(
-            "search.strategy",
-            "'halving' runs only in-process for now (the one-process engine), not as stored "
-            "work units; leave search out or use strategy 'grid' for a job.",
         )

@@ -10,7 +10,8 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
-from service.cv.halving import full_grid_work, halving_picks
+from service.cv.halving import halving_picks
+from service.cv.halving_race import search_section
 from service.cv.intervals import attach_intervals
 from service.cv.nested_interval_units import nested_entries
 from service.cv.plan import SelectionPlan
@@ -118,19 +119,5 @@ def _run_halving(plan: SelectionPlan, progress: Callable[[int, int], None] | Non
     book: ScoreBook = {}
     model, refits = _refit(plan, book, searched.picks, len(plan.scopes), total, progress)
     result = _with_intervals(plan, assemble(plan, book, searched.picks))
-    search = plan.spec.search
-    grid_fits, grid_rows = full_grid_work(plan)
-    result["search"] = {
-        "strategy": "halving",
-        "factor": search.factor,
-        "min_rows": search.min_rows,
-        "seed": search.seed,
-        # with the refits, which both strategies make alike
-        "fits": searched.fits + refits,
-        "full_grid_fits": grid_fits + refits,
-        # the inner searches' rows fitted on, summed over fits: what halving saves
-        "inner_train_rows": searched.train_rows,
-        "full_grid_inner_train_rows": grid_rows,
-        "rounds": searched.rounds,
-    }
+    result["search"] = search_section(plan, searched.rounds, refits)
     return NestedOutcome(result, model, searched.fits + refits)

@@ -12,7 +12,7 @@ import sklearn
 from service.cv.candidates import Candidate, enumerate_candidates
 from service.cv.columns import apply_column_types, order_values
 from service.cv.errors import SpecError
-from service.cv.halving_schedule import check_first_rounds, check_halving, refuse_as_units
+from service.cv.halving_schedule import check_first_rounds, check_halving, round_folds
 from service.cv.interval_folds import build_interval_folds
 from service.cv.intervals import check_interval
 from service.cv.metrics import check_metrics
@@ -55,6 +55,9 @@ class SelectionPlan:
     # a `nested` interval's procedure folds (service/cv/interval_folds.py): outer folds that
     # the estimate does not average, their inner folds in `inner` beside the job's own
     interval_folds: list[Fold] = field(default_factory=list)
+    # a halving search's folds, per scope and round (halving_schedule.round_folds); empty for
+    # the full grid
+    rounds: dict[str, list[list[Fold]]] = field(default_factory=dict)
 
     @property
     def n_rows(self) -> int:
@@ -163,16 +166,8 @@ def _split_inputs(
     return SplitInputs(y=y, groups=groups, order=order)
 
 
-def build_plan(
-    spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str], *, in_process: bool = False
-) -> SelectionPlan:
-    """Validate `spec` against `frame` and fix candidates and folds; raises SpecError.
-
-    Only a caller that runs the plan itself (nested.run_nested) passes `in_process`: the service
-    splits plans into stored work units, which halving does not have yet, so it is refused here.
-    """
-    if not in_process:
-        refuse_as_units(spec)
+def build_plan(spec: SelectionSpec, frame: pd.DataFrame, kinds: dict[str, str]) -> SelectionPlan:
+    """Validate `spec` against `frame` and fix candidates and folds; raises SpecError."""
     if len(frame) < 4:
         raise SpecError("dataset", f"the table has {len(frame)} rows; nested CV needs more.")
     frame, kinds = apply_column_types(frame, kinds, spec.columns)
@@ -223,8 +218,21 @@ def build_plan(
     searches = {fold.scope: (fold.train, inner[fold.scope]) for fold in outer}
     searches[FINAL_SCOPE] = (all_rows, inner[FINAL_SCOPE])
     check_first_rounds(spec, y, searches, len(candidates))
+    rounds = {}
+    if spec.search.strategy == "halving":
+        for scope, (rows, folds) in searches.items():
+            rounds[scope] = round_folds(
+                spec.search,
+                len(candidates),
+                y,
+                rows,
+                folds,
+                n_rows=n,
+                versions=tag,
+                classification=spec.task == "classification",
+            )
     interval_folds, interval_inner = build_interval_folds(spec, inputs, n_rows=n, versions=tag)
     inner |= interval_inner
     return SelectionPlan(
-        spec, candidates, table, y, outer, inner, inputs, versions, weights, interval_folds
+        spec, candidates, table, y, outer, inner, inputs, versions, weights, interval_folds, rounds
     )

@@ -45,3 +45,23 @@ def interval_position(repeat: int, k: int) -> tuple[int, int]:
     if not is_interval_repeat(repeat):
         raise ValueError(f"repeat {repeat} is a job's own outer repeat, not an interval's")
     return divmod(repeat - INTERVAL_REPEAT_BASE, k)
+
+
+# A halving search's round folds (service/cv/halving_schedule.py) are the scope's inner folds
+# cut to the round's rows. Stored beside those inner folds, they are numbered from here: round
+# t of inner repeat i is repeat BASE·(t + 1) + i, clear of inner repeats (at most
+# spec.MAX_REPEATS, below BASE) and keyed apart from them in the store.
+ROUND_REPEAT_BASE = 1000
+
+
+def round_repeat(round_index: int, repeat: int) -> int:
+    """The stored repeat of round `round_index`'s cut of an inner fold of repeat `repeat`."""
+    return ROUND_REPEAT_BASE * (round_index + 1) + repeat
+
+
+def round_position(repeat: int) -> tuple[int, int] | None:
+    """(round, inner repeat) of a round fold's stored repeat; None for a plain inner fold."""
+    if repeat < ROUND_REPEAT_BASE:
+        return None
+    step, inner = divmod(repeat, ROUND_REPEAT_BASE)
+    return step - 1, inner

@@ -17,7 +17,6 @@ from typing import Any, Literal
 from sklearn.pipeline import Pipeline
 
 from service.cv.candidates import Candidate
-from service.cv.halving_schedule import refuse_as_units
 from service.cv.metrics import make_scorer_set
 from service.cv.plan import SelectionPlan
 from service.cv.predictions import capture, score_stored
@@ -43,6 +42,8 @@ def fold_name(plan: SelectionPlan, ref: UnitRef, fold: Fold) -> str:
     if ref.kind == "outer_refit":
         return f"outer fold {fold.scope}"
     where = "all rows" if ref.scope == FINAL_SCOPE else f"outer fold {ref.scope}"
+    if plan.rounds:  # a round fold's stored repeat says its round (scopes.round_repeat)
+        return f"inner fold {fold.index} of {where}, halving round {ref.round}"
     return f"inner fold {fold.scope} of {where}"
 
 
@@ -73,6 +74,7 @@ class UnitRef:
     kind: UnitKind
     scope: str
     candidate_key: str
+    round: int = 0  # a halving search's round (plan.rounds); 0 for the full grid and refits
 
 
 @dataclass
@@ -89,6 +91,8 @@ class UnitOutcome:
 def unit_folds(plan: SelectionPlan, ref: UnitRef) -> list[Fold]:
     """The folds a unit fits on (none for the final refit, which uses all rows)."""
     if ref.kind == "inner":
+        if plan.rounds:  # halving: the round's cut of the inner folds
+            return plan.rounds[ref.scope][ref.round]
         return plan.inner[ref.scope]
     if ref.kind == "outer_refit":
         return [plan.outer_fold(ref.scope)]
@@ -96,9 +100,11 @@ def unit_folds(plan: SelectionPlan, ref: UnitRef) -> list[Fold]:
 
 
 def inner_units(plan: SelectionPlan) -> list[UnitRef]:
-    """Every inner unit: each outer fold and the all-rows scope, times each candidate."""
-    # the full grid's units: a halving spec must never run as a grid without saying so
-    refuse_as_units(plan.spec)
+    """The first inner units: each outer fold and the all-rows scope, times each candidate.
+
+    For the full grid these are all of them; a halving search starts with its first round,
+    and the job's fan-in adds each later round's units for the candidates kept (halving_race).
+    """
     return [UnitRef("inner", scope, c.key) for scope in plan.scopes for c in plan.candidates]
 
 

@@ -32,6 +32,7 @@ class ClaimedUnit:
     kind: str
     scope: str
     candidate_key: str
+    halving_round: int
 
 
 def claim_units(
@@ -45,7 +46,12 @@ def claim_units(
     token = uuid.uuid4().hex
     claimed = session.execute(
         claim_statement(unit_ids, worker, lease, token).returning(
-            WorkUnit.id, WorkUnit.job_id, WorkUnit.kind, WorkUnit.scope, WorkUnit.candidate_key
+            WorkUnit.id,
+            WorkUnit.job_id,
+            WorkUnit.kind,
+            WorkUnit.scope,
+            WorkUnit.candidate_key,
+            WorkUnit.halving_round,
         )
     ).all()
     units = sorted((ClaimedUnit(*row) for row in claimed), key=lambda unit: unit_ids.index(unit.id))

@@ -23,6 +23,7 @@ if TYPE_CHECKING:
 __all__ = [
     "dispose_after_fork",
     "insert_ignoring_duplicates",
+    "inserted_keys",
     "make_engine",
     "make_read_session_factory",
     "make_session_factory",
@@ -33,7 +34,7 @@ __all__ = [
 MIGRATIONS = Path(__file__).resolve().parent / "migrations"
 # The newest revision in migrations/versions (a test holds it to Alembic's own head). A store
 # already there is left alone without importing Alembic, which costs a command half a second.
-HEAD_REVISION = "0012"
+HEAD_REVISION = "0013"
 # PostgreSQL ends a transaction left idle this long; our transactions are well under a second.
 IDLE_TX_MS = 60_000
 # The execution option that makes a SQLite transaction begin deferred (see _tune_sqlite).
@@ -217,8 +218,15 @@ def insert_ignoring_duplicates(
 
     Every row must carry the same keys (they go in as one executemany).
     """
+    return len(inserted_keys(session, table, rows))
+
+
+def inserted_keys(
+    session: Session, table: Table | type[Base], rows: list[dict[str, Any]]
+) -> list[Any]:
+    """`insert_ignoring_duplicates`, returning the primary keys of the rows that went in."""
     if not rows:
-        return 0
+        return []
     target = table if isinstance(table, Table) else table.__table__
     if not isinstance(target, Table):  # a mapped class over a join or a select
         raise TypeError(f"insert_ignoring_duplicates needs a table, not {target!r}")
@@ -233,7 +241,7 @@ def insert_ignoring_duplicates(
     # Count the rows RETURNING hands back rather than trusting cursor.rowcount, which DBAPIs
     # define loosely for executemany; skipped rows return nothing.
     returned = session.execute(statement.returning(*target.primary_key.columns), rows)
-    return len(returned.all())
+    return [row[0] if len(row) == 1 else tuple(row) for row in returned.all()]
 
 
 def dispose_after_fork(engine: Engine) -> None:

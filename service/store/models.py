@@ -217,7 +217,7 @@ class WorkUnit(Base):
             name="kind_scope",
         ),
         # A redelivered "create units" step cannot make a twin unit.
-        UniqueConstraint("job_id", "kind", "scope", "candidate_key"),
+        UniqueConstraint("job_id", "kind", "scope", "candidate_key", "halving_round"),
         # The reconciler and progress queries ask "units of job J in status S"; the leading
         # job_id also serves lookups by job alone, so no separate job_id index.
         Index(None, "job_id", "status"),
@@ -230,6 +230,8 @@ class WorkUnit(Base):
     outer_repeat: Mapped[int | None]
     outer_fold: Mapped[int | None]
     candidate_key: Mapped[Hash64] = mapped_column(ForeignKey("candidate.candidate_key"))
+    # a halving search's round (service/cv/halving_race.py); 0 for the full grid and refits
+    halving_round: Mapped[int] = mapped_column(default=0, server_default="0")
     status: Mapped[Short] = mapped_column(
         default=UnitStatus.QUEUED, server_default=str(UnitStatus.QUEUED)
     )

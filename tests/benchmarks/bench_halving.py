@@ -62,7 +62,7 @@ def spec(search: dict[str, Any]) -> SelectionSpec:
 
 
 def engine(search: dict[str, Any]) -> NestedOutcome:
-    return run_nested(build_plan(spec(search), FRAME, KINDS, in_process=True))
+    return run_nested(build_plan(spec(search), FRAME, KINDS))
 
 
 def scikit_learn() -> np.ndarray:

@@ -24,7 +24,6 @@ from sklearn.pipeline import Pipeline
 from sklearn.preprocessing import StandardScaler
 
 from service.cv.errors import SpecError
-from service.cv.halving_schedule import refuse_as_units
 from service.cv.nested import NestedOutcome, run_nested
 from service.cv.plan import SelectionPlan, build_plan
 from service.cv.spec import SelectionSpec
@@ -96,11 +95,11 @@ class Case:
         )
 
 
-def plan_for(request: dict[str, Any], *, in_process: bool = True) -> SelectionPlan:
+def plan_for(request: dict[str, Any]) -> SelectionPlan:
     """The engine's plan for a request on its bundled sample, built as run_nested runs it."""
     spec = SelectionSpec.model_validate({k: v for k, v in request.items() if k != "dataset"})
     frame, kinds = sample_table(request["dataset"]["sample"])
-    return build_plan(spec, frame, kinds, in_process=in_process)
+    return build_plan(spec, frame, kinds)
 
 
 def run_engine(request: dict[str, Any]) -> NestedOutcome:
@@ -317,21 +316,19 @@ def test_the_nested_interval_is_refused_with_halving() -> None:
         SelectionSpec.model_validate(body)
 
 
-def test_the_service_refuses_halving_as_work_units() -> None:
-    request = _spec({"strategy": "halving"})
-    # the service builds plans without in_process: refused there, before anything is stored
-    with pytest.raises(SpecError) as caught:
-        plan_for(request, in_process=False)
-    assert caught.value.field == "search.strategy"
-    assert caught.value.message.startswith("'halving' runs only in-process for now")
-    plan = plan_for(request)
-    with pytest.raises(SpecError):
-        refuse_as_units(plan.spec)
-    # and the units the service would store are never made for a halving plan
-    with pytest.raises(SpecError):
-        inner_units(plan)
-    grid = plan_for(_spec({"strategy": "grid"}), in_process=False)
-    refuse_as_units(grid.spec)
+def test_a_halving_job_starts_with_its_first_rounds_units() -> None:
+    # the service stores the first round's units; its fan-in adds the later rounds' units
+    plan = plan_for(_spec({"strategy": "halving"}))
+    first = inner_units(plan)
+    assert {(u.kind, u.round) for u in first} == {("inner", 0)}
+    assert len(first) == len(plan.scopes) * len(plan.candidates)
+    # each scope's rounds cut its inner folds, the last round on every row of the search
+    for scope, rounds in plan.rounds.items():
+        assert [len(cut) for cut in rounds] == [len(plan.inner[scope])] * len(rounds)
+        for cut, fold in zip(rounds[-1], plan.inner[scope], strict=True):
+            assert len(cut.train) <= len(fold.train)
+    grid = plan_for(_spec({"strategy": "grid"}))
+    assert grid.rounds == {}
     assert len(inner_units(grid)) == 5 * len(grid.candidates)
 
 

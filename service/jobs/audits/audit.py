@@ -182,7 +182,7 @@ def _recompute(
         chosen = sample_units(units, fraction, seed)
         items: list[dict[str, Any]] = []
         for unit in chosen:
-            ref = UnitRef(unit.kind, unit.scope, unit.candidate_key)  # type: ignore[arg-type]
+            ref = UnitRef(unit.kind, unit.scope, unit.candidate_key, unit.halving_round)  # type: ignore[arg-type]
             # a fresh fit: no stored score is read, no fold's preprocessing shared from memory
             outcome = fit_and_score(loaded.plan, ref, share=False)
             items += _compare_unit(session, unit, outcome.folds, loaded.dataset_hash)

@@ -20,8 +20,8 @@ from sqlalchemy.exc import SQLAlchemyError
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
+from service.cv.halving_race import pick_for
 from service.cv.scopes import FINAL_SCOPE
-from service.cv.selection import pick
 from service.cv.units import (
     NonFiniteScore,
     UnitCancelled,
@@ -177,7 +177,7 @@ def record_model(
     # into the store in the record transaction, so a host without this one's disk serves it
     blobs.put_bytes(session, "model", saved.digest, saved.payload)
     evict(session, HostCache.of(settings), keep=saved.path)
-    final = pick(loaded.plan, FINAL_SCOPE, load_book(session, loaded))
+    final = pick_for(loaded.plan, FINAL_SCOPE, load_book(session, loaded))
     insert_ignoring_duplicates(
         session,
         FinalModel,
@@ -317,7 +317,7 @@ def execute_unit(
             return UnitReport(unit_id, None, "skipped")
         unit = session.get_one(WorkUnit, unit_id)
         job_id = unit.job_id
-        ref = UnitRef(unit.kind, unit.scope, unit.candidate_key)  # type: ignore[arg-type]
+        ref = UnitRef(unit.kind, unit.scope, unit.candidate_key, unit.halving_round)  # type: ignore[arg-type]
         lifecycle.start_job(session, job_id)
     # the heartbeat lives exactly as long as the unit here: it stops before this returns
     with Heartbeat(sessions, unit_id, token, settings) as beat:

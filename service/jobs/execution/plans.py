@@ -42,9 +42,11 @@ def remember(job_id: str, loaded: LoadedPlan) -> None:
 
 
 def fold_fingerprints(plan: SelectionPlan) -> set[str]:
-    """Every fold fingerprint of a plan, outer (with a nested interval's) and inner."""
+    """Every fold fingerprint of a plan, outer (with a nested interval's), inner and a halving
+    search's round folds."""
     prints = {f.fingerprint for f in plan.outer + plan.interval_folds}
     prints |= {f.fingerprint for folds in plan.inner.values() for f in folds}
+    prints |= {f.fingerprint for rounds in plan.rounds.values() for fs in rounds for f in fs}
     return prints
 
 

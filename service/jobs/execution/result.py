@@ -12,6 +12,7 @@ from sqlalchemy.orm import Session
 
 import service
 from service.cv.cautions import find_cautions
+from service.cv.halving_race import book_means, race, search_section
 from service.cv.intervals import attach_intervals
 from service.cv.selection import Pick as EnginePick
 from service.cv.selection import ScoreBook, assemble
@@ -97,6 +98,10 @@ def build_result(
     result["cautions"] += attach_intervals(loaded.plan.spec, result, nested)
     # every candidate evaluated, drawn range values as drawn, in the order that breaks ties
     result["candidates"] = [c.public() for c in loaded.plan.candidates]
+    if loaded.plan.rounds:  # the races replayed from the stored scores that ran them
+        means = book_means(loaded.plan, book)
+        rounds = [row for s in loaded.plan.scopes for row in race(loaded.plan, s, means).rounds]
+        result["search"] = search_section(loaded.plan, rounds, refits=len(loaded.plan.scopes))
     spec = loaded.plan.spec
     if spec.slices:
         try:

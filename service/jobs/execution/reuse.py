@@ -19,9 +19,9 @@ from typing import Any
 from sqlalchemy import select, update
 from sqlalchemy.orm import Session
 
+from service.cv.halving_race import pick_for
 from service.cv.predictions import StoredPredictions, score_stored
 from service.cv.scopes import FINAL_SCOPE
-from service.cv.selection import pick
 from service.cv.units import UnitRef, unit_folds
 from service.jobs import lifecycle
 from service.jobs.execution.plans import LoadedPlan
@@ -108,7 +108,7 @@ def _from_predictions(
 
 
 def _ref(unit: WorkUnit) -> UnitRef:
-    return UnitRef(unit.kind, unit.scope, unit.candidate_key)  # type: ignore[arg-type]
+    return UnitRef(unit.kind, unit.scope, unit.candidate_key, unit.halving_round)  # type: ignore[arg-type]
 
 
 def _earlier_model(session: Session, loaded: LoadedPlan, candidate_key: str) -> FinalModel | None:
@@ -149,7 +149,7 @@ def reuse_stored(session: Session, job_id: str, loaded: LoadedPlan) -> int:
             model = _earlier_model(session, loaded, unit.candidate_key)
             if model is None:
                 continue
-            final = pick(loaded.plan, FINAL_SCOPE, load_book(session, loaded))
+            final = pick_for(loaded.plan, FINAL_SCOPE, load_book(session, loaded))
             insert_ignoring_duplicates(
                 session,
                 FinalModel,

@@ -76,7 +76,7 @@ class _Ran:
 def _fit_all(loaded: LoadedPlan, units: list[ClaimedUnit], stop: StopCheck) -> _Ran:
     ran = _Ran([])
     for unit in units:
-        ref = UnitRef(unit.kind, unit.scope, unit.candidate_key)  # type: ignore[arg-type]
+        ref = UnitRef(unit.kind, unit.scope, unit.candidate_key, unit.halving_round)  # type: ignore[arg-type]
         try:
             ran.outcomes.append((unit, fit_and_score(loaded.plan, ref, stop)))
         except UnitCancelled:

@@ -10,6 +10,7 @@ from sqlalchemy import insert
 from sqlalchemy.orm import Session
 
 from service.config import Settings
+from service.cv.halving_race import inner_unit_count
 from service.cv.interval_folds import shared_with_outer
 from service.cv.scopes import FINAL_SCOPE, parse_outer_scope
 from service.cv.splits import Fold as PlanFold
@@ -61,7 +62,12 @@ def _job_fold_rows(job_id: str, prepared: PreparedJob) -> list[dict[str, Any]]:
                 "parent_fold": None,
             }
         )
-    for scope, folds in plan.inner.items():
+    # a halving search's round folds sit beside the scope's inner folds (scopes.round_repeat)
+    by_scope = {
+        scope: folds + [f for cut in plan.rounds.get(scope, []) for f in cut]
+        for scope, folds in plan.inner.items()
+    }
+    for scope, folds in by_scope.items():
         parent = None if scope == FINAL_SCOPE else plan.outer_fold(scope)
         for fold in folds:
             rows.append(
@@ -79,7 +85,9 @@ def _job_fold_rows(job_id: str, prepared: PreparedJob) -> list[dict[str, Any]]:
     return rows
 
 
-def unit_row(job_id: str, kind: str, scope: str, candidate_key: str) -> dict[str, Any]:
+def unit_row(
+    job_id: str, kind: str, scope: str, candidate_key: str, halving_round: int = 0
+) -> dict[str, Any]:
     """A queued work unit row; outer coordinates follow from the scope."""
     repeat = fold = None
     if scope != FINAL_SCOPE:
@@ -91,6 +99,7 @@ def unit_row(job_id: str, kind: str, scope: str, candidate_key: str) -> dict[str
         "outer_repeat": repeat,
         "outer_fold": fold,
         "candidate_key": candidate_key,
+        "halving_round": halving_round,
         "status": UnitStatus.QUEUED,
     }
 
@@ -137,6 +146,7 @@ def create_job(
         ],
     )
     folds = plan.outer + plan.interval_folds + [f for group in plan.inner.values() for f in group]
+    folds += [f for rounds in plan.rounds.values() for cut in rounds for f in cut]
     insert_ignoring_duplicates(
         session, Fold, [_fold_row(f, table.content_hash, plan.n_rows, plan.versions) for f in folds]
     )
@@ -151,7 +161,9 @@ def create_job(
             status=JobStatus.QUEUED,
             stage="inner",
             request=prepared.request.model_dump(mode="json"),
-            units_total=len(first_units) + len(plan.scopes) - len(shared),  # a refit per scope
+            units_total=inner_unit_count(plan, len(first_units))
+            + len(plan.scopes)
+            - len(shared),  # a refit per scope
             idempotency_key=idempotency_key,
             team=team,  # set before the flush: the idempotency key is unique per team
         )

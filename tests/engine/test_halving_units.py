@@ -1,0 +1,134 @@
+"""Successive halving as stored work units, round by round: embedded pool, SQLite and PostgreSQL.
+
+scikit-learn is the reference: a HalvingGridSearchCV (resource="n_samples") inside
+cross_validate, on load_wine (a table that ships with scikit-learn), with the same splits and
+seeds (tests/engine/test_halving.py builds it from scikit-learn alone). The job runs on the
+embedded pool as `foldwise select` runs it: each round's candidates are units, stored with their
+round; the fan-in adds the next round's units for the candidates the race keeps.
+"""
+
+from __future__ import annotations
+
+import copy
+import os
+import uuid
+from collections import Counter
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import psycopg
+import pytest
+from sqlalchemy import select
+from threadpoolctl import threadpool_limits
+
+from service.config import Settings, load_settings
+from service.jobs.local.driver import run_embedded
+from service.store.db import make_engine, make_session_factory
+from service.store.models import FoldScore, WorkUnit
+
+from .runs import outer_scores
+from .test_halving import CASES, check_pick, check_rounds, reference
+
+PG_ADMIN = os.environ.get(
+    "FOLDWISE_TEST_PG_ADMIN", "host=127.0.0.1 port=5432 user=postgres dbname=postgres"
+)
+PG_URL = os.environ.get("FOLDWISE_TEST_PG_URL", "postgresql+psycopg://postgres@127.0.0.1:5432")
+TOLERANCE = 1e-9
+# load_wine: three classes, 9 candidates raced 9 -> 3 -> 1 in each of 6 searches (5 outer, all)
+CASE = "wine-three-classes"
+
+
+@pytest.fixture(scope="module", params=["sqlite", "postgresql"])
+def store(request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory) -> Settings:
+    env = {"FOLDWISE_HOME": str(tmp_path_factory.mktemp("home") / "home")}
+    if request.param == "postgresql":
+        # one database for the module's runs, made and dropped as tests/conftest.py does
+        name = f"foldwise_test_{uuid.uuid4().hex[:12]}"
+        with psycopg.connect(PG_ADMIN, autocommit=True) as admin:
+            admin.execute(f'CREATE DATABASE "{name}"')
+
+        def drop() -> None:
+            with psycopg.connect(PG_ADMIN, autocommit=True) as admin:
+                admin.execute(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
+
+        request.addfinalizer(drop)
+        env["FOLDWISE_DATABASE_URL"] = f"{PG_URL}/{name}"
+    return load_settings(env)
+
+
+@pytest.fixture(scope="module")
+def runs(store: Settings) -> dict[str, tuple[str, dict[str, Any]]]:
+    """The halving job, then the same request again, on one store: (job id, result) each."""
+    body = CASES[CASE].request()
+    found = {}
+    with threadpool_limits(1):  # one BLAS thread, as the pool children use
+        for name in ("first", "again"):
+            ran = run_embedded(copy.deepcopy(body), settings=store, workers=2, base_dir=Path.cwd())
+            found[name] = (ran.job_id, ran.result)
+    return found
+
+
+def test_the_stored_rounds_equal_halving_search_inside_cross_validate(
+    runs: dict[str, tuple[str, dict[str, Any]]],
+) -> None:
+    case = CASES[CASE]
+    _, result = runs["first"]
+    nested, searches, final = reference(CASE)  # scikit-learn's HalvingGridSearchCV
+    for metric in case.metrics:
+        np.testing.assert_allclose(
+            outer_scores(result, metric), nested[f"test_{metric}"], rtol=0, atol=TOLERANCE
+        )
+    rounds = result["search"]["rounds"]
+    for row, search in zip(result["outer"], searches, strict=True):
+        check_pick(row["pick"], search.best_params_)
+        assert abs(row["inner_mean"] - search.best_score_) < TOLERANCE
+        check_rounds([r for r in rounds if r["scope"] == f"r{row['repeat']}f{row['fold']}"], search)
+    check_pick(result["final_pick"], final.best_params_)
+    assert abs(result["final_pick"]["inner_mean"] - final.best_score_) < TOLERANCE
+    check_rounds([r for r in rounds if r["scope"] == "all"], final)
+    # the fits made are scikit-learn's searches' fits plus the refits, fewer than the full grid
+    refits = case.outer + 1
+    halving_fits = sum(sum(s.n_candidates_) * s.n_splits_ for s in [*searches, final])
+    assert result["search"]["fits"] == result["work"]["fits"] == halving_fits + refits
+    assert result["search"]["full_grid_fits"] == (case.outer + 1) * case.inner * 9 + refits
+    assert result["search"]["inner_train_rows"] < result["search"]["full_grid_inner_train_rows"]
+
+
+def test_each_round_is_a_unit_per_candidate_kept_with_its_scores(
+    store: Settings, runs: dict[str, tuple[str, dict[str, Any]]]
+) -> None:
+    job_id, result = runs["first"]
+    _, searches, final = reference(CASE)
+    engine = make_engine(store.database_url)
+    try:
+        with make_session_factory(engine)() as session:
+            units = session.scalars(select(WorkUnit).where(WorkUnit.job_id == job_id)).all()
+            scored = session.scalars(
+                select(FoldScore.metric).where(FoldScore.job_id == job_id)
+            ).all()
+    finally:
+        engine.dispose()
+    inner = Counter((u.scope, u.halving_round) for u in units if u.kind == "inner")
+    scopes = [f"r{row['repeat']}f{row['fold']}" for row in result["outer"]] + ["all"]
+    for scope, search in zip(scopes, [*searches, final], strict=True):
+        assert [inner[(scope, r)] for r in range(len(search.n_candidates_))] == list(
+            search.n_candidates_
+        )
+    assert {u.halving_round for u in units if u.kind != "inner"} == {0}
+    assert all(u.status == "done" for u in units)
+    assert result["work"]["units_total"] == len(units)
+    # every inner fit scored every metric on its round's fold, once
+    inner_fits = sum(sum(s.n_candidates_) * s.n_splits_ for s in [*searches, final])
+    assert len(scored) == (inner_fits + CASES[CASE].outer) * len(CASES[CASE].metrics)
+
+
+def test_the_same_request_again_reuses_every_round(
+    runs: dict[str, tuple[str, dict[str, Any]]],
+) -> None:
+    (first_id, first), (again_id, again) = runs["first"], runs["again"]
+    assert again_id != first_id
+    assert again["work"]["fits"] == 0
+    assert again["work"]["units_reused"] == again["work"]["units_total"]
+    assert again["outer"] == first["outer"] and again["search"] == first["search"]
+    assert again["final_pick"]["model_sha256"] == first["final_pick"]["model_sha256"]
