@@ -5,6 +5,8 @@ pick, runs the same inner search on all rows for the final pick and refits that 
 
     fits = outer folds x (inner folds x candidates + 1) + (inner folds x candidates + 1)
 
+(a halving search counts each round's candidates in place of `candidates`: `raced_fits`).
+
 A learning curve runs one such selection per size. The count is checked before a single fold
 or candidate is built, so a request that would take days is refused in milliseconds.
 """
@@ -53,9 +55,23 @@ def fold_count(plan: SplitSpec) -> int:
     return plan.k * plan.repeats
 
 
+def raced_fits(spec: SelectionSpec, candidates: int) -> int:
+    """Candidate fits per inner fold of one search: all candidates for the full grid; for
+    halving, at most every round's candidates (scikit-learn's rounds until fewer than `factor`
+    are left; a search on few rows stops earlier, so this is an upper bound)."""
+    if spec.search.strategy != "halving":
+        return candidates
+    factor = spec.search.factor
+    total, racing = 0, candidates
+    for _ in range(1 + math.floor(math.log(candidates, factor)) if candidates > 1 else 1):
+        total += racing
+        racing = math.ceil(racing / factor)
+    return total
+
+
 def job_fits(spec: SelectionSpec, candidates: int) -> int:
     """Fits of one selection with `candidates` candidates (see the module docstring)."""
-    search = fold_count(spec.inner) * candidates + 1
+    search = fold_count(spec.inner) * raced_fits(spec, candidates) + 1
     return fold_count(spec.outer) * search + search + interval_fits(spec, candidates)
 
 

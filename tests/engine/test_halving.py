@@ -26,6 +26,7 @@ from sklearn.preprocessing import StandardScaler
 from service.cv.errors import SpecError
 from service.cv.nested import NestedOutcome, run_nested
 from service.cv.plan import SelectionPlan, build_plan
+from service.cv.size import raced_fits
 from service.cv.spec import SelectionSpec
 from service.cv.units import inner_units
 
@@ -346,3 +347,18 @@ def test_grid_is_still_the_default_and_its_result_unchanged() -> None:
     outcome = run_engine(request)
     assert "search" not in outcome.result
     assert outcome.fits == 5 * 3 * 2 + 5
+
+
+@pytest.mark.parametrize("name", list(CASES))
+def test_the_fits_cap_counts_every_round_of_a_search(name: str) -> None:
+    # the cap is checked from the request's numbers alone: it must bound the candidate fits of
+    # scikit-learn's own searches (their n_candidates_ per round), and meet them where every
+    # round runs ("exhaust" on 9 candidates: 9 + 3 + 1)
+    case = CASES[name]
+    spec = SelectionSpec.model_validate({k: v for k, v in case.request().items() if k != "dataset"})
+    bound = raced_fits(spec, len(outcome_candidates(case)))
+    _, searches, final = reference(name)
+    raced = [sum(s.n_candidates_) for s in [*searches, final]]
+    assert max(raced) <= bound
+    if name == "cancer-exhaust":
+        assert set(raced) == {bound}
