@@ -52,8 +52,9 @@ JOB_PARQUET_SCHEMA = pa.schema(
         *zip(
             EXTRA_COLUMNS,
             # role, repeat, fold, inner_repeat, inner_fold, estimator, params (a JSON object),
-            # interval_part (a nested interval's procedure folds only)
-            (pa.string(), *[pa.int64()] * 4, pa.string(), pa.string(), pa.int64()),
+            # interval_part (a nested interval's procedure folds only), halving_round (a
+            # halving search's round folds only)
+            (pa.string(), *[pa.int64()] * 4, pa.string(), pa.string(), pa.int64(), pa.int64()),
             strict=True,
         ),
     ]

@@ -22,7 +22,15 @@ from service.store.models import FoldScore, Job, JobCandidate, JobFold
 from service.store.statuses import JobStatus
 
 # the roles a reader sees (service/jobs/handover/fold_rows.py READER_ROLES)
-FoldRole = Literal["outer", "inner", "final_inner", "interval_outer", "interval_inner"]
+FoldRole = Literal[
+    "outer",
+    "inner",
+    "final_inner",
+    "interval_outer",
+    "interval_inner",
+    "halving_inner",
+    "halving_final_inner",
+]
 MAX_PAGE = 1000
 
 
@@ -60,8 +68,9 @@ def dataset_fold_score_query(
         .where(JobFold.job_id.in_(jobs))
     )
     if role is not None:
-        # a nested interval's procedure folds are stored as outer (and inner) folds: the
-        # reader's role tells them apart, so role=outer is the job's own outer folds only
+        # a nested interval's procedure folds are stored as outer (and inner) folds, a halving
+        # search's round folds as inner (and final inner) folds: the reader's role tells them
+        # apart, so role=outer is the job's own outer folds only and role=inner plain inner folds
         in_plan = in_plan.where(reader_role_filter(role))
     query = select(FoldScore).where(
         FoldScore.dataset_hash == content_hash,

@@ -8,6 +8,8 @@ from typing import Any
 from rich.console import Console
 from rich.table import Table
 
+from service.jobs.handover.search_summary import halving_summary
+
 
 def _params(params: dict[str, Any]) -> str:
     return ", ".join(f"{k}={json.dumps(v)}" for k, v in params.items())
@@ -85,6 +87,9 @@ def print_result(console: Console, result: dict[str, Any], job_id: str) -> None:
         f"Work: {work['units_computed']} of {work['units_total']} units, "
         f"{work['fits']} fits, {work['seconds']:.1f} s."
     )
+    halving = halving_summary(result)
+    if halving is not None:
+        console.print(f"Halving search: {halving}.", soft_wrap=True, highlight=False, markup=False)
     console.print("[bold]Cautions[/bold]")
     for caution in result["cautions"]:
         console.print(f"  - {caution}")

@@ -12,12 +12,16 @@ from service.cv.intervals import NESTED_COVERAGE, QUICK_COVERAGE, interval_words
 from service.store.models import Job
 from service.store.statuses import LIVE_JOB, JobStatus
 from service.web import job_state, svg, svg_grid, validation_curves
+from service.web.halving_view import halving_rounds
 from service.web.queries import (
     inner_cells,
     job_candidates,
     stored_score_counts,
 )
 from service.web.ticks import metric_bounds, short
+
+# the reader roles the page counts as inner fold scores: the job's own searches, every round
+INNER_READER_ROLES = ("inner", "final_inner", "halving_inner", "halving_final_inner")
 
 
 def fmt(value: float | None) -> str:
@@ -128,11 +132,13 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
         "metric": metric,
         "candidates": candidates,
         "counts": {
-            "inner": counts.get("inner", 0) + counts.get("final_inner", 0),
+            # a halving search's round folds are inner folds too, cut to each round's rows
+            "inner": sum(counts.get(role, 0) for role in INNER_READER_ROLES),
             "outer": counts.get("outer", 0),
             "interval": counts.get("interval_outer", 0) + counts.get("interval_inner", 0),
         },
         "people": None,
+        "halving": None,
         "progress": job_state.progress(job),
         "failure": job_state.failure(session, job) if job.status == JobStatus.FAILED else None,
         "refresh": job.status in LIVE_JOB,
@@ -162,6 +168,7 @@ def job_page(session: Session, job: Job) -> dict[str, Any]:
             "candidates",
         )
         context["people"], context["cautions"] = _people(result.get("cautions", []))
+        context["halving"] = halving_rounds(result)
     drawn = []
     heats = []
     for family in validation_curves.families(candidates):

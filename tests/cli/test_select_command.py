@@ -128,6 +128,7 @@ def test_summary_is_readable(runs: dict[str, Outcome]) -> None:
     assert out.code == 0, out.stderr
     assert "Optimism gap" in out.stdout
     assert "Cautions" in out.stdout
+    assert "Halving search" not in out.stdout  # a full-grid job's summary has no such line
     assert "Traceback" not in out.stdout + out.stderr
     with pytest.raises(json.JSONDecodeError):
         json.loads(out.stdout)

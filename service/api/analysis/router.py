@@ -42,8 +42,9 @@ MetricFilter = Annotated[str | None, Query(max_length=64, description="One metri
 RoleFilter = Annotated[
     queries.FoldRole | None,
     Query(
-        description="The fold's role in a job's plan: outer, inner or final_inner, or a nested "
-        "interval's interval_outer or interval_inner."
+        description="The fold's role in a job's plan: outer, inner or final_inner, a nested "
+        "interval's interval_outer or interval_inner, or a halving search's round folds, "
+        "halving_inner or halving_final_inner."
     ),
 ]
 _CSV = {"text/csv": {"schema": {"type": "string"}}}

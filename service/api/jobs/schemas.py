@@ -172,7 +172,10 @@ class FoldScorePublic(BaseModel):
     role: str | None = Field(
         default=None,
         description="outer, inner or final_inner; a nested interval's procedure folds and their "
-        "searches' folds are interval_outer and interval_inner (never in the estimate's mean).",
+        "searches' folds are interval_outer and interval_inner (never in the estimate's mean); "
+        "a halving search's round folds (an inner fold cut to the round's rows) are "
+        "halving_inner (an outer fold's search) and halving_final_inner (the search on all "
+        "rows).",
     )
     repeat: int | None = Field(
         default=None,
@@ -184,7 +187,11 @@ class FoldScorePublic(BaseModel):
         description="The outer fold (inner: its parent's; interval rows: the outer fold the "
         "procedure leaves out).",
     )
-    inner_repeat: int | None = None
+    inner_repeat: int | None = Field(
+        default=None,
+        description="The inner fold's repeat (halving rows: the repeat of the inner fold the "
+        "round cuts).",
+    )
     inner_fold: int | None = None
     estimator: str | None = None
     params: dict[str, Any] | None = None
@@ -192,6 +199,11 @@ class FoldScorePublic(BaseModel):
         default=None,
         description="Interval rows only: the part the procedure is scored on (equal to `fold` "
         "for the procedure that leaves out that fold alone); null otherwise.",
+    )
+    halving_round: int | None = Field(
+        default=None,
+        description="Halving rows only: the round of the search (from 0) whose rows the fold "
+        "holds, a share of the inner fold's that grows each round; null otherwise.",
     )
 
 

@@ -5,13 +5,20 @@ sits is the job's own plan (`job_fold`). The role, repeat, fold and inner fold, 
 candidate's estimator and params, are looked up once per listing or export and added to each
 row, so no reader needs a join. A fold that serves two roles in one job (outer folds and the
 final inner folds split all rows alike when their split plans are equal) is listed under the
-first of outer, inner, final inner, interval outer, interval inner.
+first of outer, inner, final inner, interval outer, interval inner, halving inner, halving final
+inner.
 
 A nested interval's procedure folds are stored as outer folds (and their searches' folds as inner
 folds) with repeats from scopes.INTERVAL_REPEAT_BASE up, so they run on the same machinery; a
 reader sees them as `interval_outer` / `interval_inner`, numbered as the interval numbers them
 (repetition, outer fold, and the part scored in `interval_part`), never as the job's own `outer`
 folds, whose mean is the estimate. The stored rows stay as they are.
+
+A halving search's round folds are stored beside the scope's inner folds (role inner, or final
+inner for the search on all rows) with repeats from scopes.ROUND_REPEAT_BASE up, which encode the
+round. A reader sees them as `halving_inner` / `halving_final_inner`, with the plain inner repeat
+in `inner_repeat` and the round (from 0) in `halving_round`, never as inner folds numbered 1000
+and up: a round fold holds only a share of the inner fold's rows.
 """
 
 from __future__ import annotations
@@ -23,13 +30,30 @@ from typing import Any
 from sqlalchemy import ColumnElement, and_, case, select
 from sqlalchemy.orm import Session
 
-from service.cv.scopes import INTERVAL_REPEAT_BASE, interval_position, is_interval_repeat
+from service.cv.scopes import (
+    INTERVAL_REPEAT_BASE,
+    ROUND_REPEAT_BASE,
+    interval_position,
+    is_interval_repeat,
+    round_position,
+)
 from service.store.models import Candidate, FoldScore, Job, JobCandidate, JobFold
 
-# the roles a reader sees; the last two are the nested interval's, never stored as such
-READER_ROLES = ("outer", "inner", "final_inner", "interval_outer", "interval_inner")
+# the roles a reader sees; the interval's and the halving rounds' are never stored as such
+READER_ROLES = (
+    "outer",
+    "inner",
+    "final_inner",
+    "interval_outer",
+    "interval_inner",
+    "halving_inner",
+    "halving_final_inner",
+)
 _ROLE_ORDER = {role: rank for rank, role in enumerate(READER_ROLES)}
-# interval_part comes last so the columns before it keep their places (extended, not moved)
+# the stored roles whose folds a halving search cuts into rounds, and what a reader calls a cut
+_HALVING_ROLES = {"inner": "halving_inner", "final_inner": "halving_final_inner"}
+# interval_part, then halving_round, come last so the columns before them keep their places
+# (each was appended, none moved)
 EXTRA_COLUMNS = (
     "role",
     "repeat",
@@ -39,8 +63,9 @@ EXTRA_COLUMNS = (
     "estimator",
     "params",
     "interval_part",
+    "halving_round",
 )
-_PLACE_COLUMNS = (*EXTRA_COLUMNS[:5], "interval_part")
+_PLACE_COLUMNS = (*EXTRA_COLUMNS[:5], "interval_part", "halving_round")
 
 
 def job_metrics(job: Job) -> list[str]:
@@ -69,11 +94,14 @@ class FoldContext:
 
 
 def reader_role(fold: JobFold) -> str:
-    """The role a reader sees: the stored one, or the interval's for a procedure's folds."""
+    """The role a reader sees: the stored one, the interval's for a procedure's folds, or the
+    halving one for a round's cut of an inner fold."""
     if fold.role == "outer" and is_interval_repeat(fold.repeat):
         return "interval_outer"
     if fold.role == "inner" and is_interval_repeat(fold.parent_repeat):
         return "interval_inner"
+    if fold.role in _HALVING_ROLES and round_position(fold.repeat) is not None:
+        return _HALVING_ROLES[fold.role]
     return fold.role
 
 
@@ -88,6 +116,10 @@ def reader_role_column() -> ColumnElement[str]:
             (JobFold.role == "inner") & (JobFold.parent_repeat >= INTERVAL_REPEAT_BASE),
             "interval_inner",
         ),
+        *(
+            ((JobFold.role == stored) & (JobFold.repeat >= ROUND_REPEAT_BASE), shown)
+            for stored, shown in _HALVING_ROLES.items()
+        ),
         else_=JobFold.role,
     )
 
@@ -99,9 +131,23 @@ def reader_role_filter(role: str) -> ColumnElement[bool]:
     if role == "interval_outer":
         return and_(JobFold.role == "outer", JobFold.repeat >= INTERVAL_REPEAT_BASE)
     if role == "inner":
-        return and_(JobFold.role == "inner", JobFold.parent_repeat < INTERVAL_REPEAT_BASE)
+        return and_(
+            JobFold.role == "inner",
+            JobFold.parent_repeat < INTERVAL_REPEAT_BASE,
+            JobFold.repeat < ROUND_REPEAT_BASE,
+        )
     if role == "interval_inner":
         return and_(JobFold.role == "inner", JobFold.parent_repeat >= INTERVAL_REPEAT_BASE)
+    if role == "halving_inner":
+        return and_(
+            JobFold.role == "inner",
+            JobFold.parent_repeat < INTERVAL_REPEAT_BASE,
+            JobFold.repeat >= ROUND_REPEAT_BASE,
+        )
+    if role == "final_inner":
+        return and_(JobFold.role == "final_inner", JobFold.repeat < ROUND_REPEAT_BASE)
+    if role == "halving_final_inner":
+        return and_(JobFold.role == "final_inner", JobFold.repeat >= ROUND_REPEAT_BASE)
     return JobFold.role == role
 
 
@@ -124,6 +170,7 @@ def fold_place(fold: JobFold, k: int) -> dict[str, Any]:
             "inner_repeat": None,
             "inner_fold": None,
             "interval_part": fold.fold_index,
+            "halving_round": None,
         }
     if role == "interval_inner":
         # the procedure's own search: its inner folds name the procedure as their parent
@@ -136,6 +183,7 @@ def fold_place(fold: JobFold, k: int) -> dict[str, Any]:
             "inner_repeat": fold.repeat,
             "inner_fold": fold.fold_index,
             "interval_part": fold.parent_fold,
+            "halving_round": None,
         }
     if role == "outer":
         return {
@@ -145,15 +193,20 @@ def fold_place(fold: JobFold, k: int) -> dict[str, Any]:
             "inner_repeat": None,
             "inner_fold": None,
             "interval_part": None,
+            "halving_round": None,
         }
-    # inner folds of an outer fold name it as their parent; final inner folds have none
+    # inner folds of an outer fold name it as their parent; final inner folds have none. A
+    # halving round's cut keeps its inner fold's index; its stored repeat encodes the round
+    # beside the inner repeat, told apart here
+    halving_round, inner_repeat = round_position(fold.repeat) or (None, fold.repeat)
     return {
-        "role": fold.role,
+        "role": role,
         "repeat": fold.parent_repeat,
         "fold": fold.parent_fold,
-        "inner_repeat": fold.repeat,
+        "inner_repeat": inner_repeat,
         "inner_fold": fold.fold_index,
         "interval_part": None,
+        "halving_round": halving_round,
     }
 
 

@@ -91,8 +91,9 @@ def _folds(session: Session, job_id: str) -> list[dict[str, Any]]:
     return [
         {
             "fingerprint": jf.fingerprint,
-            # a nested interval's procedure folds say so; scope, repeat and fold stay the stored
-            # ones, which the units' scopes name, and `interval` numbers them as the interval does
+            # a nested interval's procedure folds and a halving search's round folds say so;
+            # scope, repeat and fold stay the stored ones, which the units' scopes name, and
+            # `interval` / `halving` number them as the interval and the search do
             "role": reader_role(jf),
             "scope": jf.scope,
             "repeat": jf.repeat,
@@ -101,6 +102,7 @@ def _folds(session: Session, job_id: str) -> list[dict[str, Any]]:
             "n_test": fold.n_test,
             "versions": fold.versions,
             **_interval_place(jf, k),
+            **_halving_place(jf, k),
         }
         for jf, fold in rows
     ]
@@ -120,6 +122,14 @@ def _interval_place(fold: JobFold, k: int) -> dict[str, Any]:
     }
 
 
+def _halving_place(fold: JobFold, k: int) -> dict[str, Any]:
+    """{'halving': {round, inner_repeat}} for a halving search's round fold, nothing otherwise."""
+    place = fold_place(fold, k)
+    if place["halving_round"] is None:
+        return {}
+    return {"halving": {"round": place["halving_round"], "inner_repeat": place["inner_repeat"]}}
+
+
 def _units(session: Session, job_id: str, hidden: set[str]) -> list[dict[str, Any]]:
     units = session.scalars(select(WorkUnit).where(WorkUnit.job_id == job_id).order_by(WorkUnit.id))
     return [
@@ -128,6 +138,8 @@ def _units(session: Session, job_id: str, hidden: set[str]) -> list[dict[str, An
             "kind": u.kind,
             "scope": u.scope,
             "candidate_key": u.candidate_key,
+            # a halving search runs a scope's candidates once per round they are kept for
+            "halving_round": u.halving_round,
             "status": u.status,
             "worker": u.worker,
             "attempts": u.attempts,
