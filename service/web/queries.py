@@ -8,7 +8,7 @@ from typing import Any
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
-from service.cv.scopes import INTERVAL_REPEAT_BASE
+from service.cv.scopes import INTERVAL_REPEAT_BASE, round_repeat
 from service.jobs.handover.fold_rows import reader_role_column
 from service.store.models import Candidate, FoldScore, Job, JobCandidate, JobFold
 
@@ -71,6 +71,10 @@ def inner_cells(session: Session, job: Job, metric: str) -> list[InnerCell]:
             # not the inner folds of a nested interval's procedures: the page draws the job's
             # own searches (service/cv/interval_folds.py)
             JobFold.parent_repeat.is_(None) | (JobFold.parent_repeat < INTERVAL_REPEAT_BASE),
+            # a halving search: its first round only, where every candidate races on the same
+            # rows (later rounds fit fewer candidates on more rows: pooling them would mix the
+            # two); a plain inner fold's repeat is below, and the full grid has no rounds
+            JobFold.repeat < round_repeat(1, 0),
             FoldScore.metric == metric,
             FoldScore.candidate_key.in_(keys),
         )

@@ -18,7 +18,8 @@ from engine.test_halving import CASES  # tests/engine: the halving requests chec
 from sqlalchemy import func, select
 
 from service.cv.scopes import FINAL_SCOPE, ROUND_REPEAT_BASE
-from service.store.models import FoldScore, JobCandidate, JobFold
+from service.store.models import FoldScore, Job, JobCandidate, JobFold
+from service.web.queries import inner_cells
 
 from .live import LiveServer
 from .pages import check_page, sign_in, watch_console
@@ -104,8 +105,27 @@ def test_halving_rounds_are_tabled_and_summed_up(
     meta = page.locator("p.meta").inner_text()
     assert f" {_round_scores(server, halving_job, None)} inner and " in meta
 
+    # the curves say which scores they pool: the first round's
+    curves = page.locator("section[aria-labelledby='curves-h']").inner_text()
+    assert "With halving, the first round's scores" in curves
+
     check_page(page, "job-halving", output_dir)
     assert errors == []
+
+
+def test_the_inner_score_curves_pool_the_first_round_only(
+    server: LiveServer, owner_token: str, halving_job: str
+) -> None:
+    # later rounds fit fewer candidates on more rows: pooled with the first, a kept candidate's
+    # mean would mix row counts. The first round fits every candidate on every inner fold.
+    result = server.job(owner_token, halving_job)["result"]
+    with server.sessions() as session:
+        job = session.get_one(Job, halving_job)
+        cells = inner_cells(session, job, result["pick_by"])
+    scopes = {f"r{o['repeat']}f{o['fold']}" for o in result["outer"]} | {FINAL_SCOPE}
+    assert {cell.scope for cell in cells} == scopes
+    assert len(cells) == len(scopes) * len(result["candidates"])
+    assert {cell.n for cell in cells} == {CASES["wine-three-classes"].inner}
 
 
 def test_a_grid_jobs_page_has_no_halving_section(
