@@ -124,6 +124,13 @@ CASES = [
         contains=("regression",),
     ),
     Case("unknown-hyperparameter", "families[0].grid.Cee", family(grid={"Cee": [1.0]})),
+    # halving runs as work units now: a first round larger than a search is refused up front
+    Case(
+        "halving-min-rows-beyond-the-search",
+        "search.min_rows",
+        top(search={"strategy": "halving", "min_rows": 10 * N_ROWS}),
+        contains=("lower min_rows",),
+    ),
     Case("wrongly-typed-hyperparameter", "families[0].grid.C", family(grid={"C": ["big"]})),
     Case("out-of-range-hyperparameter", "families[0].grid.C", family(grid={"C": [-1]})),
     Case("grid-value-not-a-list", "families[0].grid.C", family(grid={"C": 1.0})),
