@@ -9,9 +9,7 @@ from __future__ import annotations
 
 from typing import Any
 
-import numpy as np
-from engine.runs import outer_scores
-from engine.test_halving import CASES, check_pick, check_rounds, reference
+from engine.test_halving import CASES, check_against_reference
 from sqlalchemy import select
 
 from service.store.models import FoldScore, WorkUnit
@@ -28,18 +26,7 @@ def test_the_rounds_run_on_workers_and_equal_halving_search_inside_cross_validat
     stack = running_stack
     job_id = stack.submit(CASES[CASE].request())
     result: dict[str, Any] = stack.wait_finished(job_id, 600).result  # type: ignore[assignment]
-    nested, searches, final = reference(CASE)
-    for metric in CASES[CASE].metrics:
-        np.testing.assert_allclose(
-            outer_scores(result, metric), nested[f"test_{metric}"], rtol=0, atol=TOLERANCE
-        )
-    rounds = result["search"]["rounds"]
-    for row, search in zip(result["outer"], searches, strict=True):
-        check_pick(row["pick"], search.best_params_)
-        assert abs(row["inner_mean"] - search.best_score_) < TOLERANCE
-        check_rounds([r for r in rounds if r["scope"] == f"r{row['repeat']}f{row['fold']}"], search)
-    check_pick(result["final_pick"], final.best_params_)
-    assert abs(result["final_pick"]["inner_mean"] - final.best_score_) < TOLERANCE
+    check_against_reference(result, CASE)  # scikit-learn's HalvingGridSearchCV
     with stack.sessions() as session:
         later = session.execute(
             select(WorkUnit.halving_round, FoldScore.worker)

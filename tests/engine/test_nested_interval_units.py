@@ -10,14 +10,11 @@ the units ran on the pool; the two must agree to 1e-12.
 from __future__ import annotations
 
 import copy
-import os
 import threading
 import time
-import uuid
 from pathlib import Path
 from typing import Any
 
-import psycopg
 import pytest
 from sqlalchemy import func, select
 from threadpoolctl import threadpool_limits
@@ -31,12 +28,6 @@ from service.store.db import make_engine, make_session_factory, upgrade_database
 from service.store.models import Job, WorkUnit
 
 from .runs import plan_for
-
-# the server tests/conftest.py makes its databases on (same variables, same defaults)
-PG_ADMIN = os.environ.get(
-    "FOLDWISE_TEST_PG_ADMIN", "host=127.0.0.1 port=5432 user=postgres dbname=postgres"
-)
-PG_URL = os.environ.get("FOLDWISE_TEST_PG_URL", "postgresql+psycopg://postgres@127.0.0.1:5432")
 
 # iris ships with scikit-learn (Fisher 1936): 3 outer x 3 inner folds, two candidates, R = 2
 QUICK: dict[str, Any] = {
@@ -56,22 +47,10 @@ INTERVAL_FITS = 2 * 3 * 3 * (2 * 3 + 1)
 ESTIMATE_FITS = 3 * (2 * 3 + 1) + (2 * 3 + 1)
 
 
-@pytest.fixture(scope="module", params=["sqlite", "postgresql"])
-def store(request: pytest.FixtureRequest, tmp_path_factory: pytest.TempPathFactory) -> Settings:
-    env = {"FOLDWISE_HOME": str(tmp_path_factory.mktemp("home") / "home")}
-    if request.param == "postgresql":
-        # one database for the module's three runs, made and dropped as tests/conftest.py does
-        name = f"foldwise_test_{uuid.uuid4().hex[:12]}"
-        with psycopg.connect(PG_ADMIN, autocommit=True) as admin:
-            admin.execute(f'CREATE DATABASE "{name}"')
-
-        def drop() -> None:
-            with psycopg.connect(PG_ADMIN, autocommit=True) as admin:
-                admin.execute(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
-
-        request.addfinalizer(drop)
-        env["FOLDWISE_DATABASE_URL"] = f"{PG_URL}/{name}"
-    return load_settings(env)
+@pytest.fixture(scope="module")
+def store(module_store: Settings) -> Settings:
+    """This module's store, SQLite then PostgreSQL (tests/engine/conftest.py)."""
+    return module_store
 
 
 @pytest.fixture(scope="module")
