@@ -14,13 +14,13 @@ from dataclasses import dataclass
 from datetime import timedelta
 from typing import Any
 
-from sqlalchemy import CursorResult, case, update
+from sqlalchemy import CursorResult, case, select, update
 from sqlalchemy.orm import Session
 
 from service.jobs.lifecycle import claim_statement, start_job, units_not_done
 from service.store.db import utcnow
 from service.store.models import Job, WorkUnit
-from service.store.statuses import UnitStatus
+from service.store.statuses import OPEN_UNIT, UnitStatus
 
 
 @dataclass(frozen=True)
@@ -76,6 +76,25 @@ def renew_leases(session: Session, unit_ids: list[int], token: str, lease: timed
         )
     )
     return int(renewed.rowcount)
+
+
+def scopes_without_open_units(session: Session, job_id: str, scopes: list[str]) -> list[str]:
+    """Those of `scopes` in which no inner unit of the job is queued or running."""
+    if not scopes:
+        return []
+    open_scopes = set(
+        session.scalars(
+            select(WorkUnit.scope)
+            .where(
+                WorkUnit.job_id == job_id,
+                WorkUnit.kind == "inner",
+                WorkUnit.scope.in_(scopes),
+                WorkUnit.status.in_(OPEN_UNIT),
+            )
+            .distinct()
+        )
+    )
+    return [scope for scope in scopes if scope not in open_scopes]
 
 
 def units_done(

@@ -19,9 +19,12 @@ from sqlalchemy import select
 from threadpoolctl import threadpool_limits
 
 from service.config import Settings
+from service.jobs.execution.run_batch import run_batch_and_advance
+from service.jobs.intake.create import create_job
+from service.jobs.intake.prepare import prepare_job
 from service.jobs.local.driver import run_embedded
-from service.store.db import make_engine, make_session_factory
-from service.store.models import FoldScore, WorkUnit
+from service.store.db import make_engine, make_session_factory, upgrade_database
+from service.store.models import FoldScore, Job, WorkUnit
 
 from .test_halving import CASES, check_against_reference, reference
 
@@ -98,3 +101,46 @@ def test_the_same_request_again_reuses_every_round(
     assert again["work"]["units_reused"] == again["work"]["units_total"]
     assert again["outer"] == first["outer"] and again["search"] == first["search"]
     assert again["final_pick"]["model_sha256"] == first["final_pick"]["model_sha256"]
+
+
+def test_a_search_whose_round_ended_goes_on_while_the_others_run(store: Settings) -> None:
+    """The units run here, one search at a time, through the workers' own batch path: the first
+    search's next round is added as soon as its round ends, the others' first rounds still
+    queued; run to the end in that order, the job still equals scikit-learn's."""
+    upgrade_database(store.database_url)
+    engine = make_engine(store.database_url)
+    sessions = make_session_factory(engine)
+    try:
+        with sessions.begin() as session:
+            body = CASES[CASE].request() | {"reuse": False}
+            prepared = prepare_job(body, session=session, settings=store, base_dir=Path.cwd())
+            job_id = create_job(session, prepared, store)
+
+        def queued() -> list[WorkUnit]:
+            with sessions() as session:
+                return list(
+                    session.scalars(
+                        select(WorkUnit)
+                        .where(WorkUnit.job_id == job_id, WorkUnit.status == "queued")
+                        .order_by(WorkUnit.id)
+                    )
+                )
+
+        first_scope = queued()[0].scope
+        for unit in [u for u in queued() if u.scope == first_scope]:
+            run_batch_and_advance(sessions, [unit.id], settings=store, worker="test")
+        waiting = queued()
+        assert {(u.scope, u.halving_round) for u in waiting if u.scope == first_scope} == {
+            (first_scope, 1)
+        }
+        assert {u.halving_round for u in waiting if u.scope != first_scope} == {0}
+        while waiting:  # each search in turn, a unit at a time
+            run_batch_and_advance(sessions, [waiting[0].id], settings=store, worker="test")
+            waiting = sorted(queued(), key=lambda u: (u.scope != first_scope, u.id))
+        with sessions() as session:
+            job = session.get_one(Job, job_id)
+            assert job.status == "succeeded", job.error
+            result = job.result
+    finally:
+        engine.dispose()
+    check_against_reference(result, CASE)

@@ -4,9 +4,10 @@ Stages: `inner` (every candidate on every inner fold) → `outer` (each pick ref
 training part, and the final pick on all rows) → `aggregating` → `done`. Each move is a
 conditional UPDATE, so of several processes that see the last unit land, one wins.
 
-A halving search runs its `inner` stage round by round: when a round's units are all done, the
-next round's units (the candidates its race keeps) are added, each unique by job, scope,
-candidate and round, so of several processes adding them one does and the others add nothing.
+A halving search runs its `inner` stage round by round: when one search's round has no open unit
+left, that search's next round (the candidates its race keeps) is added while the other searches
+finish theirs (`advance_rounds`); each unit is unique by job, scope, candidate and round, so of
+several processes adding them one does and the others add nothing.
 """
 
 from __future__ import annotations
@@ -42,7 +43,11 @@ def _elect(session: Session, job_id: str, from_stage: str, to_stage: str) -> boo
 
 
 def _next_round(
-    session: Session, job: Job, loaded: LoadedPlan, book: ScoreBook
+    session: Session,
+    job: Job,
+    loaded: LoadedPlan,
+    book: ScoreBook,
+    scopes: list[str] | None = None,
 ) -> list[int] | None:
     """Add the units of each halving search's next round; None when every round has its units.
 
@@ -62,7 +67,7 @@ def _next_round(
         ).all()
     )
     rows = []
-    for scope in plan.scopes:
+    for scope in plan.scopes if scopes is None else scopes:
         racers = race(plan, scope, means).racers
         following = made[scope] + 1
         if following < len(racers):
@@ -73,6 +78,24 @@ def _next_round(
     if added and job.request.get("reuse", True) and reuse_stored(session, job.id, loaded):
         return lifecycle.queued_unit_ids(session, job.id)
     return added
+
+
+def advance_rounds(
+    sessions: sessionmaker[Session], job_id: str, scopes: list[str], settings: Settings
+) -> list[int]:
+    """Add the next round of the halving searches `scopes`, whose rounds ended while other
+    searches' rounds still run (a search does not wait for the others); the ids to dispatch."""
+    with sessions.begin() as session:
+        job = session.get_one(Job, job_id)
+        if job.status != JobStatus.RUNNING or job.stage != "inner":
+            return []
+        loaded = plan_for_job(session, job_id, settings)
+        added = _next_round(session, job, loaded, load_book(session, loaded), scopes)
+    if added:
+        return added
+    # those searches are at their last round, or the store answered the new one: if nothing
+    # else is open either, nobody else will move the job on
+    return advance_job(sessions, job_id, settings)
 
 
 def advance_job(sessions: sessionmaker[Session], job_id: str, settings: Settings) -> list[int]:

@@ -23,7 +23,7 @@ from service.cv.units import NonFiniteScore, UnitCancelled, UnitOutcome, UnitRef
 from service.jobs import batch_lifecycle, lifecycle
 from service.jobs.batch_lifecycle import ClaimedUnit
 from service.jobs.curves.settle import settle_parent
-from service.jobs.execution.advance import advance_job
+from service.jobs.execution.advance import advance_job, advance_rounds
 from service.jobs.execution.execute import (
     LOST,
     ModelFile,
@@ -49,6 +49,8 @@ class BatchReport:
     fits: int = 0
     complete_jobs: list[str] = field(default_factory=list)  # jobs whose last open unit was here
     failed_jobs: list[str] = field(default_factory=list)
+    # halving jobs -> the searches (scopes) whose round ended here, others still running
+    rounds_ended: dict[str, list[str]] = field(default_factory=dict)
 
 
 class BatchHeartbeat(Heartbeat):
@@ -125,6 +127,13 @@ def _record(
         _end_rest(session, job_id, token, ran, units, report)
     if last:
         report.complete_jobs.append(job_id)
+    elif ran.stopped is None and loaded.plan.rounds:
+        # counted after units_done locked the job's row, as `last` is: of two batches ending a
+        # round together, the second to commit sees the first's units done
+        scopes = sorted({u.scope for u in units if u.id in held and u.kind == "inner"})
+        ended = batch_lifecycle.scopes_without_open_units(session, job_id, scopes)
+        if ended:
+            report.rounds_ended[job_id] = ended
 
 
 def _end_rest(
@@ -232,4 +241,7 @@ def run_batch_and_advance(
         if not new:  # the job may have finished: its learning curve, if any, may be complete
             settle_parent(sessions, job_id)
         added += new
+    for job_id, scopes in report.rounds_ended.items():
+        # a halving search whose round ended goes on while the others finish theirs
+        added += advance_rounds(sessions, job_id, scopes, settings)
     return report, added
