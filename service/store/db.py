@@ -14,6 +14,8 @@ from sqlalchemy.engine import make_url
 from sqlalchemy.exc import OperationalError, ProgrammingError
 from sqlalchemy.orm import Session, sessionmaker
 
+# imported for its tables: with it, Base.metadata holds every table a new store is made with
+from service.store import followup_models as followup_models
 from service.store.models import Base
 from service.store.types import utcnow
 
@@ -219,9 +221,7 @@ def _made_from_models(connection: Connection) -> bool:
     tables = connection.execute(text("SELECT count(*) FROM sqlite_master WHERE type = 'table'"))
     if tables.scalar():
         return False
-    from service.store.followup_models import Base as AllTables  # every table's model loaded
-
-    AllTables.metadata.create_all(connection)
+    Base.metadata.create_all(connection)
     # the table Alembic keeps its revision in, as Alembic itself creates it
     connection.execute(
         text(
