@@ -53,7 +53,9 @@ class Seeded:
     jobs: dict[str, dict[str, Any]]
 
 
-@pytest.fixture(scope="session")
+# package scope: the server and its pool stop when this folder's tests end, instead of idling
+# beside every later folder's tests on the two shared cores until the session ends
+@pytest.fixture(scope="package")
 def seeded(tmp_path_factory: pytest.TempPathFactory) -> Iterator[Seeded]:
     """Start the server, run the four jobs over HTTP, tag C with a schedule and a refresh."""
     home = tmp_path_factory.mktemp("analysis-home")

@@ -1,4 +1,9 @@
-"""Fixtures for the REST API tests: one live server per session, tokens, a finished job."""
+"""Fixtures for the REST API tests: one live server for the folder, tokens, a finished job.
+
+The server and its pool are package-scoped, not session-scoped: a session fixture lives until
+the last test of the whole run, so the idle server and its pool processes would keep taking CPU
+and memory from every later folder's tests on the two shared cores.
+"""
 
 from __future__ import annotations
 
@@ -15,13 +20,13 @@ from .server import IRIS_REQUEST, Server, running_server
 MAX_COLUMNS = 40
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture(scope="package")
 def data_root(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """The one folder the server may read files from."""
     return tmp_path_factory.mktemp("data-root")
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture(scope="package")
 def server(tmp_path_factory: pytest.TempPathFactory, data_root: Path) -> Iterator[Server]:
     """The embedded server with a data root, a 1 MiB upload cap and a 40-column cap."""
     home = tmp_path_factory.mktemp("home")
@@ -54,7 +59,7 @@ def iris_request() -> dict[str, Any]:
     return copy.deepcopy(IRIS_REQUEST)
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture(scope="package")
 def finished_job(server: Server) -> dict[str, Any]:
     """The iris job submitted over HTTP by team 'owners' and followed until it ended."""
     token = server.token("owners")

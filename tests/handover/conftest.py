@@ -87,9 +87,9 @@ class Handover:
     jobs: dict[str, dict[str, Any]]
 
 
-@pytest.fixture(scope="session")
+@pytest.fixture(scope="package")
 def handover_pg() -> Iterator[str]:
-    """A migrated PostgreSQL database of its own for the session's server."""
+    """A migrated PostgreSQL database of its own for the folder's server."""
     name = f"foldwise_handover_{uuid.uuid4().hex[:12]}"
     with psycopg.connect(PG_ADMIN, autocommit=True) as admin:
         admin.execute(f'CREATE DATABASE "{name}"')
@@ -102,7 +102,9 @@ def handover_pg() -> Iterator[str]:
             admin.execute(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)')
 
 
-@pytest.fixture(scope="session")
+# package scope: the server and its pool stop when this folder's tests end, instead of idling
+# beside every later folder's tests on the two shared cores until the session ends
+@pytest.fixture(scope="package")
 def handover(tmp_path_factory: pytest.TempPathFactory, handover_pg: str) -> Iterator[Handover]:
     """Start the server and run the four jobs over HTTP (the last after the first)."""
     home = tmp_path_factory.mktemp("handover-home")

@@ -1,4 +1,4 @@
-"""Fixtures for the report pages: one live server, a finished job on iris, a fresh Chromium."""
+"""Fixtures for the report pages: one live server, a finished job on iris, one Chromium."""
 
 from __future__ import annotations
 
@@ -67,12 +67,13 @@ def output_dir() -> Path:
     return OUTPUT
 
 
-@pytest.fixture(scope="module")
+@pytest.fixture(scope="package")
 def chromium() -> Iterator[Any]:
-    """One headless Debian Chromium per test module, driven by Playwright (never downloaded).
+    """One headless Debian Chromium for the folder's tests, driven by Playwright (never downloaded).
 
-    Starting the browser takes seconds on a busy machine; each test still gets a context of its
-    own (`browser`), which shares no cookies, storage or cache with any other.
+    Starting the browser takes seconds on a busy machine, and one per module started it a dozen
+    times; each test still gets a context of its own (`browser`), which shares no cookies,
+    storage or cache with any other.
     """
     if not os.path.exists(CHROMIUM):
         pytest.fail(f"{CHROMIUM} is missing: `make test` installs Debian's chromium package")
