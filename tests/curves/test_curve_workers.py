@@ -48,11 +48,15 @@ def test_a_curve_over_rest_runs_every_size_on_the_workers(running_stack: Stack) 
     assert parent["status"] == "succeeded", f"{parent}\n{live.logs()}"
     points = parent["result"]["points"]
     assert [p["size"] for p in points] == [0.25, 1.0]
-    # the API published the children's units and the workers ran all of them
+    # the API published the children's units and the workers ran all of them, but for the
+    # ones one size took from the other's stored scores: the sizes share the final search on
+    # all rows, and a size that reaches it after the other finished it reuses its units
     with live.sessions() as session:
-        runners = set(
-            session.scalars(
-                select(WorkUnit.worker).where(WorkUnit.job_id.in_(parent["result"]["jobs"]))
+        units = session.execute(
+            select(WorkUnit.worker, WorkUnit.reused, WorkUnit.source_job_id).where(
+                WorkUnit.job_id.in_(parent["result"]["jobs"])
             )
-        )
+        ).all()
+    runners = {worker for worker, reused, _ in units if not reused}
     assert runners and {str(r).split("@", 1)[0] for r in runners} <= {"w1", "w2"}
+    assert {source for _, reused, source in units if reused} <= set(parent["result"]["jobs"])
