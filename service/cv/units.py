@@ -77,6 +77,11 @@ class UnitRef:
     round: int = 0  # a halving search's round (plan.rounds); 0 for the full grid and refits
 
 
+def ref_of(unit: Any) -> UnitRef:
+    """The UnitRef of a stored unit (a work_unit row, or a batch claim's read of one)."""
+    return UnitRef(unit.kind, unit.scope, unit.candidate_key, unit.halving_round)
+
+
 @dataclass
 class UnitOutcome:
     """What one unit produced: one plain dict per fold it scored, and the fitted model if any."""

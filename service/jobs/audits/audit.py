@@ -19,7 +19,7 @@ from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
 from service.cv.plan import library_versions
-from service.cv.units import UnitRef, fit_and_score
+from service.cv.units import fit_and_score, ref_of
 from service.errors import BadInput
 from service.jobs.execution.plans import plan_for_job
 from service.store.db import utcnow
@@ -182,7 +182,7 @@ def _recompute(
         chosen = sample_units(units, fraction, seed)
         items: list[dict[str, Any]] = []
         for unit in chosen:
-            ref = UnitRef(unit.kind, unit.scope, unit.candidate_key, unit.halving_round)  # type: ignore[arg-type]
+            ref = ref_of(unit)
             # a fresh fit: no stored score is read, no fold's preprocessing shared from memory
             outcome = fit_and_score(loaded.plan, ref, share=False)
             items += _compare_unit(session, unit, outcome.folds, loaded.dataset_hash)

@@ -28,6 +28,7 @@ from service.cv.units import (
     UnitOutcome,
     UnitRef,
     fit_and_score,
+    ref_of,
 )
 from service.jobs import lifecycle
 from service.jobs.execution.heartbeat import Heartbeat
@@ -317,7 +318,7 @@ def execute_unit(
             return UnitReport(unit_id, None, "skipped")
         unit = session.get_one(WorkUnit, unit_id)
         job_id = unit.job_id
-        ref = UnitRef(unit.kind, unit.scope, unit.candidate_key, unit.halving_round)  # type: ignore[arg-type]
+        ref = ref_of(unit)
         lifecycle.start_job(session, job_id)
     # the heartbeat lives exactly as long as the unit here: it stops before this returns
     with Heartbeat(sessions, unit_id, token, settings) as beat:

@@ -22,7 +22,7 @@ from sqlalchemy.orm import Session
 from service.cv.halving_race import pick_for
 from service.cv.predictions import StoredPredictions, score_stored
 from service.cv.scopes import FINAL_SCOPE
-from service.cv.units import UnitRef, unit_folds
+from service.cv.units import ref_of, unit_folds
 from service.jobs import lifecycle
 from service.jobs.execution.plans import LoadedPlan
 from service.jobs.execution.scores import load_book
@@ -71,7 +71,7 @@ def _from_predictions(
     }
     if set(found) != set(wanted):
         return None
-    folds = {f.fingerprint: f for f in unit_folds(plan, _ref(unit))}
+    folds = {f.fingerprint: f for f in unit_folds(plan, ref_of(unit))}
     rows, sources = [], Counter[str]()
     for fingerprint, metrics in wanted.items():
         stored = found[fingerprint]
@@ -107,10 +107,6 @@ def _from_predictions(
     return rows, sources.most_common(1)[0][0]
 
 
-def _ref(unit: WorkUnit) -> UnitRef:
-    return UnitRef(unit.kind, unit.scope, unit.candidate_key, unit.halving_round)  # type: ignore[arg-type]
-
-
 def _earlier_model(session: Session, loaded: LoadedPlan, candidate_key: str) -> FinalModel | None:
     """A final model of another job on this table with the same final folds and candidate."""
     final_prints = sorted(f.fingerprint for f in loaded.plan.inner[FINAL_SCOPE])
@@ -140,7 +136,7 @@ def reuse_stored(session: Session, job_id: str, loaded: LoadedPlan) -> int:
         )
     )
     scored = [u for u in units if u.kind != "final_refit"]
-    fingerprints = {f.fingerprint for u in scored for f in unit_folds(loaded.plan, _ref(u))}
+    fingerprints = {f.fingerprint for u in scored for f in unit_folds(loaded.plan, ref_of(u))}
     have = _stored_scores(session, loaded, fingerprints, {u.candidate_key for u in scored})
     metrics = loaded.plan.spec.metrics
     reused = 0
@@ -169,7 +165,7 @@ def reuse_stored(session: Session, job_id: str, loaded: LoadedPlan) -> int:
             continue
         keys = [
             (f.fingerprint, unit.candidate_key, m)
-            for f in unit_folds(loaded.plan, _ref(unit))
+            for f in unit_folds(loaded.plan, ref_of(unit))
             for m in metrics
         ]
         missing = [(key[0], key[2]) for key in keys if key not in have]

@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 from sqlalchemy.orm import Session, sessionmaker
 
 from service.config import Settings
-from service.cv.units import NonFiniteScore, UnitCancelled, UnitOutcome, UnitRef, fit_and_score
+from service.cv.units import NonFiniteScore, UnitCancelled, UnitOutcome, fit_and_score, ref_of
 from service.jobs import batch_lifecycle, lifecycle
 from service.jobs.batch_lifecycle import ClaimedUnit
 from service.jobs.curves.settle import settle_parent
@@ -78,7 +78,7 @@ class _Ran:
 def _fit_all(loaded: LoadedPlan, units: list[ClaimedUnit], stop: StopCheck) -> _Ran:
     ran = _Ran([])
     for unit in units:
-        ref = UnitRef(unit.kind, unit.scope, unit.candidate_key, unit.halving_round)  # type: ignore[arg-type]
+        ref = ref_of(unit)
         try:
             ran.outcomes.append((unit, fit_and_score(loaded.plan, ref, stop)))
         except UnitCancelled:
