@@ -54,18 +54,46 @@ def _read_job_file(path: Path) -> Any:
         ) from None
 
 
-def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path) -> None:
+def _print_outcome(result: dict[str, Any], job_id: str, *, as_json: bool) -> None:
+    # imported here for start-up speed: `--help` and the server commands never render a result
     from service.cli.curve_render import print_curve
-    from service.cli.progress import unit_progress
     from service.cli.render import print_result
+
+    if as_json:
+        sys.stdout.write(json.dumps(result, allow_nan=False) + "\n")
+    elif result.get("kind") == "learning_curve":
+        print_curve(stdout, result, job_id)
+    else:
+        print_result(stdout, result, job_id)
+
+
+def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path, rerun: bool) -> None:
+    if workers < 1:
+        raise BadInput("--workers", "must be at least 1.")
+    settings = load_settings()
+    # imported here for start-up speed: a repeated request is answered before scikit-learn loads
+    from service.jobs.intake.answer_key import answer_key
+    from service.store.repeat_answers import find_answer, keep_answer
+
+    key = answer_key(job, base_dir=base_dir, data_roots=settings.data_roots)
+    stored = None if key is None or rerun else find_answer(settings.database_url, key)
+    if stored is not None:
+        stderr.print(
+            f"answered by job {stored.job_id} (finished {stored.finished_at}): the same request, "
+            "table bytes, code and libraries; nothing was fitted and no job was "
+            "added. Give --rerun to run it as a new job.",
+            markup=False,
+        )
+        _print_outcome(stored.result, stored.job_id, as_json=as_json)
+        return
+
+    # imported here for start-up speed: only a job that runs needs the engine and its libraries
+    from service.cli.progress import unit_progress
     from service.jobs.local.driver import JobFailed, run_embedded
 
     # The libraries just imported live until exit: moved out of the collector's reach, full
     # collections during the run no longer walk them (gc.freeze, Python's gc docs)
     gc.freeze()
-    if workers < 1:
-        raise BadInput("--workers", "must be at least 1.")
-    settings = load_settings()
     try:
         with unit_progress(stderr) as progress:
             outcome = run_embedded(
@@ -73,13 +101,12 @@ def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path) -> None:
             )
     except JobFailed as exc:
         fail(str(exc))
-    if as_json:
-        sys.stdout.write(json.dumps(outcome.result, allow_nan=False) + "\n")
-    else:
-        if outcome.result.get("kind") == "learning_curve":
-            print_curve(stdout, outcome.result, outcome.job_id)
-        else:
-            print_result(stdout, outcome.result, outcome.job_id)
+    # kept only if the table's bytes did not change while the job read them
+    if key is not None and key == answer_key(
+        job, base_dir=base_dir, data_roots=settings.data_roots
+    ):
+        keep_answer(settings.database_url, outcome.job_id, key)
+    _print_outcome(outcome.result, outcome.job_id, as_json=as_json)
     # and the run's objects too: the interpreter's last collection at exit would otherwise walk
     # them all (~0.3 s with scikit-learn and pandas loaded); exit itself stays the normal one
     gc.freeze()
@@ -92,12 +119,30 @@ def select(
         bool, typer.Option("--json", help="Print result v1 alone on stdout.")
     ] = False,
     workers: Annotated[int, typer.Option(help="Local worker processes.")] = 1,
+    rerun: Annotated[
+        bool,
+        typer.Option(
+            "--rerun",
+            help="Run as a new job even when a stored job answered the same request on the "
+            "same file bytes (its stored fold scores are still reused).",
+        ),
+    ] = False,
 ) -> None:
-    """Run a selection job here (embedded mode) and print its result."""
+    """Run a selection job here (embedded mode) and print its result.
+
+    A request answered before, on the same table bytes with the same code and libraries, is
+    answered by that job at once, without a fit and without a new job.
+    """
     # SIGTERM stops a run as Ctrl-C does: the job is marked cancelled and the pool stopped
     signal.signal(signal.SIGTERM, signal.default_int_handler)
     try:
-        _select(_read_job_file(job_file), as_json=as_json, workers=workers, base_dir=Path.cwd())
+        _select(
+            _read_job_file(job_file),
+            as_json=as_json,
+            workers=workers,
+            base_dir=Path.cwd(),
+            rerun=rerun,
+        )
     except BadInput as exc:
         refuse(exc)
     except KeyboardInterrupt:

@@ -13,6 +13,7 @@ from pydantic import BaseModel, ConfigDict, Field, model_validator
 from service.datasets.canonical import canonical_content_hash, canonical_frame
 from service.datasets.files import read_dataset_file
 from service.datasets.kinds import OVERRIDE_NOTE, ColumnKind, infer_column_kinds, override_hint
+from service.datasets.paths import resolve_dataset_path
 from service.datasets.sql_source import SqlAccess, SqlSource, read_sql_source
 from service.errors import BadInput
 
@@ -79,33 +80,6 @@ def load_dataset_file(path: Path, *, field: str = "path") -> pd.DataFrame:
     """Read a CSV or Parquet file by extension, as it is stored (not yet canonical)."""
     frame, _ = read_dataset_file(path, field=field)
     return frame
-
-
-def resolve_dataset_path(
-    raw: str, *, base_dir: Path, data_roots: tuple[Path, ...], field: str
-) -> Path:
-    """Absolute path with symlinks and `..` resolved, refused if it leaves the data roots."""
-    try:
-        candidate = Path(raw).expanduser()
-        if not candidate.is_absolute():
-            candidate = base_dir / candidate
-        # Resolve before the roots check so neither `..` nor a symlink can step outside a root.
-        path = candidate.resolve()
-    except (OSError, RuntimeError, ValueError):
-        # NUL bytes, names too long and symlink loops all land here; none is a file we can read.
-        raise BadInput(
-            field, f"{raw!r} is not a usable file path; give the path of a file."
-        ) from None
-    roots = [root.expanduser().resolve() for root in data_roots]
-    # Checked before existence, so callers cannot probe for files outside the roots.
-    if roots and not any(path.is_relative_to(root) for root in roots):
-        raise BadInput(
-            field,
-            f"{path} is outside the configured data roots (FOLDWISE_DATA_ROOTS); "
-            f"move the file under {' or '.join(str(r) for r in roots)} "
-            "or add its folder to FOLDWISE_DATA_ROOTS.",
-        )
-    return path
 
 
 def describe_table(table: LoadedTable) -> dict[str, Any]:

@@ -17,12 +17,14 @@ from sqlalchemy.orm import Session, sessionmaker
 # imported for its tables: with it, Base.metadata holds every table a new store is made with
 from service.store import followup_models as followup_models
 from service.store.models import Base
+from service.store.revision import HEAD_REVISION
 from service.store.types import utcnow
 
 if TYPE_CHECKING:
     from alembic.config import Config
 
 __all__ = [
+    "HEAD_REVISION",
     "dispose_after_fork",
     "insert_ignoring_duplicates",
     "inserted_keys",
@@ -34,9 +36,6 @@ __all__ = [
 ]
 
 MIGRATIONS = Path(__file__).resolve().parent / "migrations"
-# The newest revision in migrations/versions (a test holds it to Alembic's own head). A store
-# already there is left alone without importing Alembic, which costs a command half a second.
-HEAD_REVISION = "0013"
 # PostgreSQL ends a transaction left idle this long; our transactions are well under a second.
 IDLE_TX_MS = 60_000
 # The execution option that makes a SQLite transaction begin deferred (see _tune_sqlite).

@@ -75,12 +75,14 @@ def test_a_job_the_store_answers_loads_neither_the_model_format_nor_the_migratio
     job = write_job(workdir, base_request())
     first = run_foldwise("select", str(job), "--json", cwd=workdir, home=foldwise_home)
     assert first.code == 0, first.stderr
-    # the same request again, run by the command line inside a probe that reports what it loaded
+    # the same request again as a new job (--rerun: not the stored job's answer, which skips
+    # scikit-learn entirely, tests/cli/test_repeat_answer.py), run by the command line inside a
+    # probe that reports what it loaded
     probe = (
         "import json, sys\n"
         "from service.cli.main import app\n"
         "try:\n"
-        f"    app(['select', {str(job)!r}, '--json'])\n"
+        f"    app(['select', {str(job)!r}, '--json', '--rerun'])\n"
         "except SystemExit as stop:\n"
         "    assert not stop.code, stop.code\n"
         "loaded = sorted({m.split('.')[0] for m in sys.modules})\n"

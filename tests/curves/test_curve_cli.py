@@ -21,8 +21,10 @@ def test_select_prints_the_curve_and_its_json(tmp_path: Path) -> None:
     assert as_json.code == 0, as_json.stderr
     result = json.loads(as_json.stdout)
     assert [p["size"] for p in result["points"]] == [0.25, 1.0]
-    # two curves of two sizes each, all succeeded
-    assert sorted(s for _, s in store_jobs(tmp_path / "home")) == ["succeeded"] * 6
+    # one curve of two sizes, all succeeded: the same request again was answered by the stored
+    # curve (its parent job), without a fit and without new jobs
+    assert "answered by job" in as_json.stderr
+    assert sorted(s for _, s in store_jobs(tmp_path / "home")) == ["succeeded"] * 3
 
 
 def test_bad_sizes_exit_2_with_one_sentence_and_store_nothing(tmp_path: Path) -> None:

@@ -1,0 +1,142 @@
+"""The answer key and the lookup behind a repeated `foldwise select`, on both stores.
+
+What may answer a request: only a succeeded command line job with the same key, on a store at
+the newest revision; anything else is a miss, and a miss never creates or changes a store.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import pytest
+from sqlalchemy import select, update
+
+from service.config import load_settings
+from service.jobs.intake.answer_key import answer_key
+from service.jobs.local.driver import run_embedded
+from service.store.db import make_engine, make_session_factory
+from service.store.models import Job
+from service.store.repeat_answers import find_answer, keep_answer
+
+# iris ships with scikit-learn; the job is two candidates in 2 x 2 folds
+REQUEST: dict[str, Any] = {
+    "dataset": {"sample": "iris"},
+    "target": "target",
+    "features": None,
+    "task": "classification",
+    "families": [{"estimator": "LogisticRegression", "grid": {"C": [0.1, 1.0]}}],
+    "outer": {"method": "stratified_kfold", "k": 2, "seed": 0},
+    "inner": {"method": "stratified_kfold", "k": 2, "seed": 1},
+    "metrics": ["accuracy"],
+    "pick_by": "accuracy",
+}
+
+
+def _key(data: Any, base_dir: Path, roots: tuple[Path, ...] = ()) -> str | None:
+    return answer_key(data, base_dir=base_dir, data_roots=roots)
+
+
+def test_the_key_follows_the_request_and_the_table_bytes(tmp_path: Path) -> None:
+    table = tmp_path / "t.csv"
+    table.write_bytes(b"a,b\n1,2\n")
+    on_file = {**REQUEST, "dataset": {"path": "t.csv"}}
+    first = _key(on_file, tmp_path)
+    assert first is not None and len(first) == 64
+    assert _key(on_file, tmp_path) == first
+    assert _key({**on_file, "metrics": ["balanced_accuracy"]}, tmp_path) != first
+    table.write_bytes(b"a,b\n1,3\n")
+    assert _key(on_file, tmp_path) not in (None, first)
+    assert _key(REQUEST, tmp_path) is not None  # a shipped sample
+    assert _key({**REQUEST, "dataset": "ab" * 32}, tmp_path) is not None  # a content hash
+
+
+@pytest.mark.parametrize(
+    "dataset",
+    [
+        {"sql": {"connection": "warehouse", "query": "SELECT 1"}},  # rows can change under it
+        {"path": "missing.csv"},
+        {"path": "t.csv", "sample": "iris"},
+        "not-a-hash",
+        None,
+    ],
+)
+def test_no_key_where_the_rows_are_not_pinned_or_the_request_is_malformed(
+    tmp_path: Path, dataset: Any
+) -> None:
+    (tmp_path / "t.csv").write_bytes(b"a,b\n1,2\n")
+    assert _key({**REQUEST, "dataset": dataset}, tmp_path) is None
+
+
+def test_no_key_for_a_file_outside_the_data_roots(tmp_path: Path) -> None:
+    (tmp_path / "t.csv").write_bytes(b"a,b\n1,2\n")
+    inside = tmp_path / "roots"
+    inside.mkdir()
+    assert _key({**REQUEST, "dataset": {"path": "t.csv"}}, tmp_path, (inside,)) is None
+
+
+def test_no_key_for_values_json_cannot_carry(tmp_path: Path) -> None:
+    assert _key({**REQUEST, "extra": float("nan")}, tmp_path) is None
+
+
+@pytest.fixture(params=["sqlite", "postgresql"])
+def database_url(request: pytest.FixtureRequest, tmp_path: Path) -> str:
+    if request.param == "sqlite":
+        return f"sqlite:///{tmp_path / 'store.sqlite'}"
+    url: str = request.getfixturevalue("postgresql_url")
+    return url
+
+
+def test_only_a_succeeded_local_job_with_the_key_answers(tmp_path: Path, database_url: str) -> None:
+    settings = load_settings(
+        {"FOLDWISE_HOME": str(tmp_path / "home"), "FOLDWISE_DATABASE_URL": database_url}
+    )
+    key = _key(REQUEST, tmp_path)
+    assert key is not None
+    outcome = run_embedded(REQUEST, settings=settings)
+    assert find_answer(database_url, key) is None  # run_embedded alone keys nothing
+    keep_answer(database_url, outcome.job_id, key)
+    found = find_answer(database_url, key)
+    assert found is not None
+    assert (found.job_id, found.result) == (outcome.job_id, outcome.result)
+    assert find_answer(database_url, "0" * 64) is None
+
+    engine = make_engine(database_url)
+    sessions = make_session_factory(engine)
+    try:
+        for change, then in (({"team": "analysts"}, None), ({"status": "failed"}, None)):
+            with sessions.begin() as session:
+                session.execute(update(Job).where(Job.id == outcome.job_id).values(**change))
+            assert find_answer(database_url, key) is then
+            with sessions.begin() as session:
+                session.execute(
+                    update(Job)
+                    .where(Job.id == outcome.job_id)
+                    .values(team="local", status="succeeded")
+                )
+        with sessions() as session:
+            assert session.scalar(select(Job.answer_key)) == key
+    finally:
+        engine.dispose()
+
+
+def test_a_store_below_the_newest_revision_or_missing_is_a_miss_and_left_alone(
+    tmp_path: Path,
+) -> None:
+    missing = tmp_path / "none.sqlite"
+    assert find_answer(f"sqlite:///{missing}", "0" * 64) is None
+    assert not missing.exists()
+
+    settings = load_settings({"FOLDWISE_HOME": str(tmp_path / "home")})
+    key = _key(REQUEST, tmp_path)
+    assert key is not None
+    outcome = run_embedded(REQUEST, settings=settings)
+    keep_answer(settings.database_url, outcome.job_id, key)
+    assert find_answer(settings.database_url, key) is not None
+    engine = make_engine(settings.database_url)
+    try:
+        with engine.begin() as connection:
+            connection.exec_driver_sql("UPDATE alembic_version SET version_num = '0013'")
+    finally:
+        engine.dispose()
+    assert find_answer(settings.database_url, key) is None
