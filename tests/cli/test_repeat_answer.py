@@ -53,18 +53,25 @@ def _imported(import_log: str) -> set[str]:
     }
 
 
+def _fitted_once(workdir: Path, home: Path) -> dict[str, Any]:
+    """The base request run once on a fresh store: its result v1."""
+    write_job(workdir, base_request())
+    first = run_foldwise("select", "job.json", "--json", cwd=workdir, home=home)
+    assert first.code == 0, first.stderr
+    result: dict[str, Any] = json.loads(first.stdout)
+    return result
+
+
 def test_the_same_request_again_is_answered_by_the_stored_job_without_fitting_libraries(
     workdir: Path, foldwise_home: Path
 ) -> None:
-    write_job(workdir, base_request())
-    first = run_foldwise("select", "job.json", "--json", cwd=workdir, home=foldwise_home)
-    assert first.code == 0, first.stderr
+    fitted = _fitted_once(workdir, foldwise_home)
     [(job_id, status)] = store_jobs(foldwise_home)
     assert status == "succeeded"
 
     code, result, log = _select_with_import_log(workdir, foldwise_home)
     assert code == 0, log
-    assert result == json.loads(first.stdout)
+    assert result == fitted
     assert f"answered by job {job_id}" in log
     imported = _imported(log)
     assert "service" in imported  # the log does list what the command imported
@@ -75,10 +82,7 @@ def test_the_same_request_again_is_answered_by_the_stored_job_without_fitting_li
 def test_other_bytes_or_rerun_make_a_new_job_that_reuses_the_stored_fold_scores(
     workdir: Path, foldwise_home: Path
 ) -> None:
-    write_job(workdir, base_request())
-    first = run_foldwise("select", "job.json", "--json", cwd=workdir, home=foldwise_home)
-    assert first.code == 0, first.stderr
-    fitted = json.loads(first.stdout)
+    fitted = _fitted_once(workdir, foldwise_home)
 
     # the same rows with Windows line endings: the same table (content hash), other bytes
     table = workdir / DATA_NAME
