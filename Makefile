@@ -41,6 +41,7 @@ bench: $(STAMP)
 	$(BIN)/python tests/benchmarks/bench_refresh.py
 	$(BIN)/python tests/benchmarks/bench_engine_shared.py
 	$(BIN)/python tests/benchmarks/bench_halving.py
+	$(BIN)/python tests/benchmarks/bench_null_labels.py
 
 clean:
 	rm -rf $(VENV) .foldwise .pytest_cache .mypy_cache .ruff_cache

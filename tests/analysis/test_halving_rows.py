@@ -5,8 +5,8 @@ scopes.ROUND_REPEAT_BASE up (1000 · (round + 1) + inner repeat); readers must s
 `halving_inner` / `halving_final_inner`, with the plain inner repeat and the round in
 `halving_round`, never as inner folds numbered 1000 and up. Checked through the API's fold-score
 listing, the CSV and Parquet exports, the dataset-wide `role` filter and provenance, against the
-rounds result v1 reports, on the halving job of tests/engine/test_halving_units.py (load_wine,
-which ships with scikit-learn).
+rounds result v1 reports, on the small halving case of tests/engine/test_halving.py (load_wine,
+which ships with scikit-learn; that file checks the case against HalvingGridSearchCV).
 """
 
 from __future__ import annotations
@@ -43,7 +43,7 @@ PG_ADMIN = os.environ.get(
     "FOLDWISE_TEST_PG_ADMIN", "host=127.0.0.1 port=5432 user=postgres dbname=postgres"
 )
 PG_URL = os.environ.get("FOLDWISE_TEST_PG_URL", "postgresql+psycopg://postgres@127.0.0.1:5432")
-CASE = CASES["wine-three-classes"]  # 9 candidates raced in 5 outer searches and one on all rows
+CASE = CASES["wine-small"]  # 4 candidates raced in 3 outer searches and one on all rows
 PLACE = ("role", "repeat", "fold", "inner_repeat", "inner_fold", "interval_part", "halving_round")
 HALVING_ROLES = ("halving_inner", "halving_final_inner")
 # a mean of the same fold scores summed in another order may differ in its last bits

@@ -1,8 +1,8 @@
 """`foldwise select` on a halving job: its text summary says what the search cost beside the grid.
 
-The job is the halving request of tests/engine/test_halving.py on load_wine (ships with
-scikit-learn), run by the real console script; the line is checked against result v1 as the
-run stored it.
+The job is the small halving request of tests/engine/test_halving.py on load_wine (ships with
+scikit-learn; that file checks it against HalvingGridSearchCV), run by the real console script;
+the line is checked against result v1 as the run stored it.
 """
 
 from __future__ import annotations
@@ -19,7 +19,7 @@ from .runner import run_foldwise, store_jobs, write_job
 def test_select_prints_the_halving_searchs_fits_and_rows_against_the_grid(
     tmp_path: Path,
 ) -> None:
-    write_job(tmp_path, CASES["wine-three-classes"].request())
+    write_job(tmp_path, CASES["wine-small"].request())  # 4 candidates, 3 outer folds
     out = run_foldwise("select", "job.json", "--workers", "2", cwd=tmp_path)
     assert out.code == 0, out.stderr
     [(job_id, status)] = store_jobs(out.home)

@@ -34,6 +34,7 @@ from .runs import outer_scores, sample_table
 
 TOLERANCE = 1e-9
 C_GRID = [0.001, 0.01, 0.03, 0.1, 0.3, 1.0, 3.0, 10.0, 100.0]
+SMALL_C_GRID = [0.01, 0.1, 1.0, 10.0]
 NEIGHBOURS = [1, 3, 5, 9, 15, 25]
 LOGISTIC = {"max_iter": 5000, "random_state": 0}  # the engine's default random_state is 0
 
@@ -146,6 +147,21 @@ CASES = {
         5,
         3,
         (4, 4),
+        ("accuracy", "roc_auc_ovr"),
+    ),
+    # load_wine again, small enough for the reader tests (tests/analysis, tests/web, tests/cli)
+    # to run as a job: 4 candidates, factor 2, 3 outer folds; each outer search races 4 then 2
+    # candidates and the search on all rows 4, 2, 1 (scikit-learn's n_candidates_, checked
+    # below). Outer and inner seeds differ: with one seed and equal k, the all-rows search's
+    # inner folds would be the outer folds themselves and share their stored scores.
+    "wine-small": Case(
+        "wine",
+        [{**LOGISTIC_FAMILY, "grid": {"C": SMALL_C_GRID}}],
+        {"model__C": SMALL_C_GRID},
+        {"factor": 2, "min_rows": 30, "seed": 3},
+        3,
+        3,
+        (2, 1),
         ("accuracy", "roc_auc_ovr"),
     ),
     # load_diabetes (scikit-learn's bundled table): regression, so no classes in the first round

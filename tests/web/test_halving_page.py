@@ -1,10 +1,10 @@
 """A finished halving job on its report page in a real Chromium: the "Halving rounds" section.
 
-The job is the halving request of tests/engine/test_halving.py on load_wine (ships with
-scikit-learn), submitted over HTTP. The table must list result v1's rounds search by search (outer
-folds, then all rows), its fits must be the stored scores of the round folds, the one-line summary
-must give result v1's fits and training rows against the full grid, and a grid job's page must
-have no such section.
+The job is the small halving request of tests/engine/test_halving.py on load_wine (ships with
+scikit-learn; that file checks it against HalvingGridSearchCV), submitted over HTTP. The table
+must list result v1's rounds search by search (outer folds, then all rows), its fits must be the
+stored scores of the round folds, the one-line summary must give result v1's fits and training
+rows against the full grid, and a grid job's page must have no such section.
 """
 
 from __future__ import annotations
@@ -24,7 +24,8 @@ from service.web.queries import inner_cells
 from .live import LiveServer
 from .pages import check_page, sign_in, watch_console
 
-HALVING_JOB = CASES["wine-three-classes"].request()  # 9 candidates, 5 outer folds, 3 inner
+CASE = CASES["wine-small"]  # 4 candidates, factor 2, 3 outer folds, 3 inner: two rounds or more
+HALVING_JOB = CASE.request()
 # the table as the page draws it: each search's body, its label, and its rounds' numbers
 READ_TABLE = """() => Array.from(document.querySelectorAll('#halving-rounds tbody')).map(b => ({
     scope: b.dataset.scope,
@@ -125,7 +126,7 @@ def test_the_inner_score_curves_pool_the_first_round_only(
     scopes = {f"r{o['repeat']}f{o['fold']}" for o in result["outer"]} | {FINAL_SCOPE}
     assert {cell.scope for cell in cells} == scopes
     assert len(cells) == len(scopes) * len(result["candidates"])
-    assert {cell.n for cell in cells} == {CASES["wine-three-classes"].inner}
+    assert {cell.n for cell in cells} == {CASE.inner}
 
 
 def test_a_grid_jobs_page_has_no_halving_section(
