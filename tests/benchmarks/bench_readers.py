@@ -41,7 +41,7 @@ PG_URL = "postgresql+psycopg://postgres@127.0.0.1:5432"
 
 @contextlib.contextmanager
 def _redis_db() -> Iterator[str]:
-    """A Redis database number claimed the way tests/distributed/conftest.py claims one."""
+    """A Redis database number claimed the way tests/distributed/redis_claim.py claims one."""
     admin = redis.Redis("127.0.0.1", 6379, db=0)
     for number in range(1, 16):
         if admin.set(f"foldwise-test:redis-db:{number}", "1", nx=True, ex=1800):

@@ -11,7 +11,11 @@ import sys
 import time
 
 import httpx
-from distributed.conftest import redis_url, running_stack, stack  # noqa: F401 (fixtures)
+from distributed.conftest import (  # noqa: F401 (fixtures)
+    module_redis_url,
+    module_running_stack,
+    shared_stack,
+)
 from distributed.stack import REPO, Stack, wait_until
 from sqlalchemy import select
 
@@ -21,8 +25,8 @@ from service.store.models import WorkUnit
 from .requests import curve
 
 
-def test_a_curve_over_rest_runs_every_size_on_the_workers(running_stack: Stack) -> None:  # noqa: F811
-    live = running_stack
+def test_a_curve_over_rest_runs_every_size_on_the_workers(shared_stack: Stack) -> None:  # noqa: F811
+    live = shared_stack
     port = free_port()
     base = f"http://127.0.0.1:{port}"
     live.start("api", "serve", "--host", "127.0.0.1", "--port", str(port))

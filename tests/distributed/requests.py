@@ -44,6 +44,20 @@ def slow_request() -> dict[str, Any]:
     }
 
 
+def on_own_folds(request: dict[str, Any], seed: int) -> dict[str, Any]:
+    """The request with other outer and inner splits (seeded `seed`, `seed + 1`).
+
+    Stored scores are reused by fold and candidate across jobs (service/jobs/execution/reuse.py),
+    so a job on a stack shared with another test's job of the same request would fit nothing;
+    on its own folds it fits every unit itself, as on a stack of its own.
+    """
+    return {
+        **request,
+        "outer": {**request["outer"], "seed": seed},
+        "inner": {**request["inner"], "seed": seed + 1},
+    }
+
+
 def expected_scores(request: dict[str, Any], candidates: int) -> int:
     """Fold-score rows a finished job holds, computed from its plan.
 

@@ -137,9 +137,9 @@ def _claims(stack: Stack, job_id: str) -> dict[str, set[str]]:
 
 
 def test_a_candidate_fitted_in_another_batch_is_reused_by_key_and_fold(
-    running_stack: Stack, embedded_result: Callable[[dict[str, Any]], dict[str, Any]]
+    shared_stack: Stack, embedded_result: Callable[[dict[str, Any]], dict[str, Any]]
 ) -> None:
-    stack = running_stack
+    stack = shared_stack
     first = _logistic([0.01, 0.1, 1.0, 10.0], [2])
     first_id = stack.submit(first)
     stack.wait_finished(first_id, timeout=120)
@@ -187,9 +187,9 @@ def test_a_candidate_fitted_in_another_batch_is_reused_by_key_and_fold(
 
 
 def test_a_cancelled_batch_records_the_units_it_finished_and_cancels_the_rest(
-    running_stack: Stack,
+    shared_stack: Stack,
 ) -> None:
-    stack = running_stack
+    stack = shared_stack
     job_id = stack.submit(_batched_request(every_epoch=True))
 
     def a_batch_just_claimed() -> list[WorkUnit] | None:

@@ -21,8 +21,8 @@ def _slower_request() -> dict[str, Any]:
     return request
 
 
-def test_a_cancelled_job_stops_its_running_units_between_fits(running_stack: Stack) -> None:
-    stack = running_stack
+def test_a_cancelled_job_stops_its_running_units_between_fits(shared_stack: Stack) -> None:
+    stack = shared_stack
     job_id = stack.submit(_slower_request())
     held = wait_until(lambda: running_units(stack, job_id) or None, 60, "a unit running", stack)
     with stack.sessions.begin() as session:

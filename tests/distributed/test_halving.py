@@ -21,9 +21,9 @@ TOLERANCE = 1e-9
 
 
 def test_the_rounds_run_on_workers_and_equal_halving_search_inside_cross_validate(
-    running_stack: Stack,
+    shared_stack: Stack,
 ) -> None:
-    stack = running_stack
+    stack = shared_stack
     job_id = stack.submit(CASES[CASE].request())
     result: dict[str, Any] = stack.wait_finished(job_id, 600).result  # type: ignore[assignment]
     check_against_reference(result, CASE)  # scikit-learn's HalvingGridSearchCV

@@ -56,7 +56,7 @@ def _long_units() -> dict[str, Any]:
 def test_a_worker_killed_mid_unit_at_default_settings_costs_the_job_under_ninety_seconds(
     running_stack: Stack,
 ) -> None:
-    # the shared stack sets only the addresses: every limit at its default (conftest.py)
+    # the stack sets only the addresses: every limit at its default (conftest.py)
     stack = running_stack
     lease = stack.settings.unit_lease
     request = _long_units()

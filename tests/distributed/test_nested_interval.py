@@ -44,9 +44,9 @@ def _plan() -> SelectionPlan:
 
 
 def test_the_interval_units_run_on_workers_and_equal_the_engine_alone(
-    running_stack: Stack,
+    shared_stack: Stack,
 ) -> None:
-    stack = running_stack
+    stack = shared_stack
     job_id = stack.submit(REQUEST)
     result: dict[str, Any] = stack.wait_finished(job_id, 600).result  # type: ignore[assignment]
     with threadpool_limits(1):

@@ -19,9 +19,9 @@ from service.jobs.audits.audit import request_audit
 from service.jobs.intake.start import start_submitted
 from service.jobs.intake.submit import submit_job
 from service.store.followup_models import Audit
-from service.store.models import FoldScore, Job, JobCandidate, JobFold
+from service.store.models import FoldScore, Job, JobCandidate, JobFold, WorkUnit
 
-from .requests import expected_scores, small_request
+from .requests import expected_scores, on_own_folds, small_request
 from .stack import REPO, TEAM, Stack, comparable, wait_until
 
 # one reconcile period (20 s by default) plus the work itself, on a shared two-core machine
@@ -33,9 +33,10 @@ def _audit(stack: Stack, audit_id: str) -> Audit:
         return session.get_one(Audit, audit_id)
 
 
-def test_audits_left_queued_by_a_crash_are_published_again(running_stack: Stack) -> None:
-    stack = running_stack
-    job_id = stack.submit(small_request())
+def test_audits_left_queued_by_a_crash_are_published_again(shared_stack: Stack) -> None:
+    stack = shared_stack
+    # folds of its own: the curve below must fit its full size, not take this job's scores
+    job_id = stack.submit(on_own_folds(small_request(), seed=22))
     stack.wait_finished(job_id, timeout=HEAL_TIMEOUT)
     with stack.sessions.begin() as session:
         job = session.get_one(Job, job_id)
@@ -68,9 +69,9 @@ def test_audits_left_queued_by_a_crash_are_published_again(running_stack: Stack)
 
 
 def test_learning_curve_sizes_left_queued_by_a_crash_are_published_again(
-    running_stack: Stack, embedded_result: Any
+    shared_stack: Stack, embedded_result: Any
 ) -> None:
-    stack = running_stack
+    stack = shared_stack
     request = small_request()
     curve = {**request, "kind": "learning_curve", "sizes": [0.5, 1.0]}
     with stack.sessions.begin() as session:
@@ -89,6 +90,13 @@ def test_learning_curve_sizes_left_queued_by_a_crash_are_published_again(
     parent = stack.wait_finished(parent_id, timeout=3 * HEAL_TIMEOUT)
     assert parent.result is not None and len(parent.result["points"]) == 2
     with stack.sessions() as session:
+        reused_from = session.scalars(
+            select(WorkUnit.source_job_id).where(
+                WorkUnit.job_id.in_(children), WorkUnit.reused.is_(True)
+            )
+        )
+        # the sizes may share work with each other, never with the other test's job here
+        assert set(reused_from) <= set(children)
         for child_id in children:
             child = session.get_one(Job, child_id)
             assert child.status == "succeeded"

@@ -17,9 +17,9 @@ from .stack import Stack, comparable, wait_until
 
 
 def test_a_job_submitted_over_rest_finishes_on_the_workers_like_the_embedded_run(
-    running_stack: Stack, embedded_result: Callable[[dict[str, Any]], dict[str, Any]]
+    shared_stack: Stack, embedded_result: Callable[[dict[str, Any]], dict[str, Any]]
 ) -> None:
-    stack = running_stack
+    stack = shared_stack
     port = free_port()
     base = f"http://127.0.0.1:{port}"
     stack.start("api", "serve", "--host", "127.0.0.1", "--port", str(port))

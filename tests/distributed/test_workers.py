@@ -15,7 +15,7 @@ from sqlalchemy import func, select
 from service.store.db import utcnow
 from service.store.models import FoldScore, Job, JobCandidate, WorkUnit
 
-from .requests import expected_scores, slow_request, small_request
+from .requests import expected_scores, on_own_folds, slow_request, small_request
 from .stack import Stack, comparable, duplicated_keys, running_units, wait_until
 
 
@@ -30,20 +30,20 @@ def _score_rows(stack: Stack, job: Job) -> int:
 
 
 def test_a_job_on_two_workers_equals_the_embedded_run(
-    running_stack: Stack, embedded_result: Callable[[dict[str, Any]], dict[str, Any]]
+    shared_stack: Stack, embedded_result: Callable[[dict[str, Any]], dict[str, Any]]
 ) -> None:
     request = small_request()
-    job_id = running_stack.submit(request)
-    job = running_stack.wait_finished(job_id, timeout=90)
+    job_id = shared_stack.submit(request)
+    job = shared_stack.wait_finished(job_id, timeout=90)
     assert job.result is not None
     # the embedded run is the reference: same request, SQLite, one local process
     assert comparable(job.result) == comparable(embedded_result(request))
-    with running_stack.sessions() as session:
+    with shared_stack.sessions() as session:
         workers = set(session.scalars(select(FoldScore.worker).where(FoldScore.job_id == job_id)))
     nodes = {w.split("@", 1)[0] for w in workers}
     assert nodes == {"w1", "w2"}, workers
-    assert _score_rows(running_stack, job) == expected_scores(
-        request, _candidates(running_stack, job_id)
+    assert _score_rows(shared_stack, job) == expected_scores(
+        request, _candidates(shared_stack, job_id)
     )
 
 
@@ -130,16 +130,19 @@ def _first_republish(stack: Stack, unit_ids: list[int], after: datetime) -> date
 
 
 def test_a_duplicate_message_for_a_finished_unit_is_acknowledged_and_dropped(
-    running_stack: Stack,
+    shared_stack: Stack,
 ) -> None:
-    stack = running_stack
-    request = small_request()
+    stack = shared_stack
+    # the first test's job on this stack stored small_request's scores: other folds, so the
+    # units are fitted and finished by a worker rather than taken from the store
+    request = on_own_folds(small_request(), seed=12)
     job_id = stack.submit(request)
     job = stack.wait_finished(job_id, timeout=90)
     with stack.sessions() as session:
         unit = session.scalars(
             select(WorkUnit).where(WorkUnit.job_id == job_id).order_by(WorkUnit.id).limit(1)
         ).one()
+    assert not unit.reused, "the unit was taken from the store, not finished by a worker"
     rows_before = _score_rows(stack, job)
 
     stack.publish([unit.id])
