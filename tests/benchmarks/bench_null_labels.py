@@ -36,6 +36,7 @@ import argparse
 import math
 import sys
 import time
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -47,22 +48,16 @@ from service.cv.nested import run_nested
 from service.cv.plan import build_plan
 from service.cv.spec import SelectionSpec
 
+# the tests' folder, for the study's table as the engine tests draw it
+sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+from engine.null_labels import null_frame
+
 ROWS = 40
 N_NEIGHBORS = list(range(1, 16, 2))
 FOLDS = 5
 TOLERANCE = 1e-9
 CHANCE = 0.5  # balanced labels
 CLEARLY = 3.0  # standard errors; common practice, not a published value
-
-
-def null_frame(seed: int, features: int) -> pd.DataFrame:
-    """As tests/engine/null_labels.py draws it: Gaussian features, then a label permutation."""
-    rng = np.random.default_rng(seed)
-    X = rng.standard_normal((ROWS, features))
-    labels = rng.permutation(np.repeat([0, 1], ROWS // 2))
-    frame = pd.DataFrame(X, columns=[f"x{i}" for i in range(features)])
-    frame["target"] = labels
-    return frame
 
 
 def engine(seed: int, frame: pd.DataFrame) -> tuple[float, float, float]:
@@ -125,7 +120,7 @@ def main() -> int:
     print(f"{'seed':>4} {'nested':>8} {'non-nested':>11} {'gap':>8}")
     with threadpool_limits(1):  # one BLAS thread, as the service's pool children use
         for seed in range(options.rounds):
-            frame = null_frame(seed, options.features)
+            frame = null_frame(seed, rows=ROWS, features=options.features)
             started = time.perf_counter()
             nested, best, gap = engine(seed, frame)
             engine_seconds += time.perf_counter() - started
