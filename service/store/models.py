@@ -126,9 +126,9 @@ class Job(Base):
     idempotency_key: Mapped[str | None] = mapped_column(String(200))
     # sha256 of the canonical request body: the same Idempotency-Key with another body is refused
     request_hash: Mapped[Hash64 | None]
-    # sha256 of the request, the bytes of its table and the library versions, set once a command
-    # line job succeeded: the same request on the same bytes is answered by this job at once
-    # (service/store/repeat_answers.py)
+    # sha256 of the request, the bytes of its table, our source and the library versions, set
+    # once a command line job succeeded: the same again is answered by this job at once
+    # (service/jobs/intake/answer_key.py, service/store/repeat_answers.py)
     answer_key: Mapped[Hash64 | None] = mapped_column(index=True)
     # jobs belong to the team of the token that submitted them (the command line uses "local")
     team: Mapped[str] = mapped_column(
