@@ -104,16 +104,18 @@ def test_only_a_succeeded_local_job_with_the_key_answers(tmp_path: Path, databas
     engine = make_engine(database_url)
     sessions = make_session_factory(engine)
     try:
-        for change, then in (({"team": "analysts"}, None), ({"status": "failed"}, None)):
+        # another team's job, or a job that did not succeed, never answers the command line
+        for change in ({"team": "analysts"}, {"status": "failed"}):
             with sessions.begin() as session:
                 session.execute(update(Job).where(Job.id == outcome.job_id).values(**change))
-            assert find_answer(database_url, key) is then
+            assert find_answer(database_url, key) is None, change
             with sessions.begin() as session:
                 session.execute(
                     update(Job)
                     .where(Job.id == outcome.job_id)
                     .values(team="local", status="succeeded")
                 )
+            assert find_answer(database_url, key) is not None  # restored, it answers again
         with sessions() as session:
             assert session.scalar(select(Job.answer_key)) == key
     finally:
