@@ -87,20 +87,32 @@ def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path, rerun: boo
         _print_outcome(stored.result, stored.job_id, as_json=as_json)
         return
 
-    # imported here for start-up speed: only a job that runs needs the engine and its libraries
-    from service.cli.progress import unit_progress
-    from service.jobs.local.driver import JobFailed, run_embedded
+    # imported here for start-up speed: only a job that runs writes a model file
+    from service.jobs.handover.model_writer import model_writer_aside
 
-    # The libraries just imported live until exit: moved out of the collector's reach, full
-    # collections during the run no longer walk them (gc.freeze, Python's gc docs)
-    gc.freeze()
-    try:
-        with unit_progress(stderr) as progress:
-            outcome = run_embedded(
-                job, settings=settings, workers=workers, base_dir=base_dir, progress=progress
-            )
-    except JobFailed as exc:
-        fail(str(exc))
+    # the helper imports skops on the other core from now on, while this process imports the
+    # engine and fits (the model file is written last, and skops' import is most of a second)
+    with model_writer_aside():
+        # Importing the engine allocates hundreds of thousands of objects, none of them garbage:
+        # with the collector off meanwhile, its passes over them (~0.5 s of a tiny job's wall,
+        # tests/benchmarks/bench_fixed_costs.py) are not paid. The libraries live until exit:
+        # frozen, out of the collector's reach, full collections during the run no longer walk
+        # them either (gc.freeze, Python's gc docs).
+        gc.disable()
+        try:
+            # imported here for start-up speed: only a job that runs needs the engine
+            from service.cli.progress import unit_progress
+            from service.jobs.local.driver import JobFailed, run_embedded
+        finally:
+            gc.freeze()
+            gc.enable()
+        try:
+            with unit_progress(stderr) as progress:
+                outcome = run_embedded(
+                    job, settings=settings, workers=workers, base_dir=base_dir, progress=progress
+                )
+        except JobFailed as exc:
+            fail(str(exc))
     # kept only if the table's bytes did not change while the job read them
     if key is not None and key == answer_key(
         job, base_dir=base_dir, data_roots=settings.data_roots

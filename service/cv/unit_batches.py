@@ -125,19 +125,26 @@ def unit_seconds(work: UnitWork, stored_fit_seconds: Mapping[str, float]) -> flo
 
 
 def batch_units(
-    works: list[UnitWork], stored_fit_seconds: Mapping[str, float] | None = None
+    works: list[UnitWork],
+    stored_fit_seconds: Mapping[str, float] | None = None,
+    *,
+    spread: int = SPREAD,
 ) -> list[list[int]]:
     """Unit ids grouped into batches, slowest first; every id in exactly one batch.
 
     Slow units come first, one each, so the longest work starts earliest and the fast batches
     fill in behind it (longest-first scheduling); fast units are packed in their given order
-    into batches of at most BATCH_SECONDS estimated (and an eighth of the total), BATCH_UNITS,
-    the last TAPER_BATCHES budgets' worth in batches TAPER_SPLIT times smaller (down to
-    TAPERED_BATCH_FLOOR), so the workers finish a stage together.
+    into batches of at most BATCH_SECONDS estimated (and a `spread`th of the total),
+    BATCH_UNITS, the last TAPER_BATCHES budgets' worth in batches TAPER_SPLIT times smaller
+    (down to TAPERED_BATCH_FLOOR), so the workers finish a stage together.
+
+    `spread` 1 is for units run one batch after another in one process: no other worker waits
+    for a batch there, so fast units fill whole BATCH_SECONDS batches and nothing is tapered
+    (a tiny job's stage is then one claim and one record, not eight).
     """
     stored = stored_fit_seconds or {}
     costs = {w.unit_id: unit_seconds(w, stored) for w in works}
-    budget = min(BATCH_SECONDS, sum(costs.values()) / SPREAD)
+    budget = min(BATCH_SECONDS, sum(costs.values()) / max(1, spread))
     slow = sorted(
         (w.unit_id for w in works if costs[w.unit_id] >= SLOW_UNIT_SECONDS),
         key=lambda unit_id: -costs[unit_id],
@@ -150,7 +157,7 @@ def batch_units(
         behind += costs[fast[tail]]
     batches: list[list[int]] = [[unit_id] for unit_id in slow]
     tapered = max(budget / TAPER_SPLIT, min(budget, TAPERED_BATCH_FLOOR))
-    if tapered >= budget:  # too little work for smaller batches to pay
+    if spread <= 1 or tapered >= budget:  # one process, or too little work for smaller batches
         return batches + _packed(fast, costs, budget)
     return batches + _packed(fast[:tail], costs, budget) + _packed(fast[tail:], costs, tapered)
 

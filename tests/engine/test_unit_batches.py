@@ -128,3 +128,15 @@ def test_a_tiny_stage_is_not_split_further() -> None:
     budget = min(BATCH_SECONDS, sum(costs.values()) / SPREAD)
     assert budget < TAPERED_BATCH_FLOOR
     assert len(batch_units(works)) <= SPREAD + 1
+
+
+def test_one_process_packs_whole_batches_and_tapers_nothing() -> None:
+    # 40 fast units (0.6 s estimated in all) run one batch after another in one process: no
+    # worker waits for another there, so the unit cap, not an eighth of the work, ends a batch
+    fast = [w for w in _works() if w.unit_id < 100]
+    total = sum(unit_seconds(w, {}) for w in fast)
+    assert total < BATCH_SECONDS
+    one_process = batch_units(fast, spread=1)
+    assert [len(batch) for batch in one_process] == [BATCH_UNITS, len(fast) - BATCH_UNITS]
+    assert [i for batch in one_process for i in batch] == [w.unit_id for w in fast]
+    assert len(batch_units(fast)) >= SPREAD  # the workers' default spreads the same units

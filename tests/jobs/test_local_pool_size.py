@@ -130,3 +130,15 @@ def test_the_final_refit_runs_alone_and_first_in_its_stage(tmp_path: Path) -> No
     assert sorted(i for batch in batches for i in batch) == sorted(last_stage)
     # and it ran that way: no other unit shares its claim
     assert [u.id for u in units if u.claim_token == final.claim_token] == [final.id]
+
+
+def test_in_this_process_each_stage_of_fast_units_is_one_claim(tmp_path: Path) -> None:
+    # the same 24 fast inner units run here (one worker): no other worker waits for a batch,
+    # so they go in one claim, not eight (service/cv/unit_batches.py, `spread`)
+    settings = load_settings({"FOLDWISE_HOME": str(tmp_path / "home")})
+    outcome = run_embedded(_request([1, 3, 5, 7, 9, 11, 13, 15]), settings=settings, workers=1)
+    units, scores = _claims_of(settings.database_url, outcome.job_id)
+    assert len(units) == 24 + 3
+    inner_claims = {token for token, _, fits in units if fits == 2}
+    assert len(inner_claims) == 1
+    assert scores == 8 * 2 * 3 + 2

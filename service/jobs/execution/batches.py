@@ -12,7 +12,7 @@ from collections import defaultdict
 from sqlalchemy import func, select
 from sqlalchemy.orm import Session
 
-from service.cv.unit_batches import MODEL_HANDOVER_SECONDS, UnitWork, batch_units
+from service.cv.unit_batches import MODEL_HANDOVER_SECONDS, SPREAD, UnitWork, batch_units
 from service.store.models import Candidate, Dataset, FoldScore, Job, JobFold, WorkUnit
 
 
@@ -39,8 +39,12 @@ def _stored_fit_seconds(session: Session, dataset_hash: str, keys: list[str]) ->
     return {key: float(seconds) for key, seconds in rows if seconds is not None}
 
 
-def batch_unit_ids(session: Session, unit_ids: list[int]) -> list[list[int]]:
-    """`unit_ids` as batches, each within one job; ids the store no longer knows go alone."""
+def batch_unit_ids(
+    session: Session, unit_ids: list[int], *, spread: int = SPREAD
+) -> list[list[int]]:
+    """`unit_ids` as batches, each within one job; ids the store no longer knows go alone.
+
+    `spread`: how many workers the batches are for (`batch_units`; 1 for one process)."""
     if not unit_ids:
         return []
     rows = session.execute(
@@ -85,7 +89,7 @@ def batch_unit_ids(session: Session, unit_ids: list[int]) -> list[list[int]]:
         stored = _stored_fit_seconds(
             session, dataset_hash, sorted({w.candidate_key for w in works})
         )
-        batches += batch_units(works, stored)
+        batches += batch_units(works, stored, spread=spread)
     known = {row.id for row in rows}
     batches += [[unit_id] for unit_id in unit_ids if unit_id not in known]
     return batches

@@ -9,8 +9,9 @@ hash of the very bytes a client downloads.
 Two saves of one model would still differ: skops names each object by its address in memory
 (`__id__`, and the `<id>.npy` member holding an array) and a zip records a time per member. The
 ids are renumbered here in order of first appearance (a one-to-one renaming, so shared
-references stay shared) and members are written in name order with one fixed time, which keeps
-`model_sha256` equal for equal requests (the determinism the store relies on).
+references stay shared; JSON values aside, see `_JSON_ATOM`) and members are written in name
+order with one fixed time, which keeps `model_sha256` equal for equal requests (the determinism
+the store relies on).
 
 skops 0.16 trusts no `numpy.dtype` (its DTypeNode's trusted list is empty), and scikit-learn's
 SimpleImputer keeps two; tree ensembles keep node storage skops lists as well. Those types are
@@ -23,8 +24,10 @@ from __future__ import annotations
 import hashlib
 import io
 import json
+import os
 import re
 import zipfile
+from collections.abc import Callable
 from pathlib import Path
 from types import ModuleType
 from typing import Any
@@ -44,6 +47,13 @@ def _skops_io() -> ModuleType:
 
 
 _ARRAY_FILE = re.compile(r"^(\d+)(\.np[yz])$")
+# A number, string or other JSON value is one node whose id says which Python object it was,
+# so a value shared by two parameters (one `np.nan` as two imputers' missing_values) is written
+# once and a reference, where two equal but distinct objects are written twice: the bytes would
+# follow an accident of memory. A pickled copy of a model (model_writer.py) keeps every shared
+# string, array and estimator but not a shared float. Each occurrence gets an id of its own
+# here: equal values, equal bytes, and loading gives equal (immutable) values.
+_JSON_ATOM = "JsonNode"
 
 
 def _renumber(node: Any, ids: dict[int, int]) -> Any:
@@ -53,8 +63,12 @@ def _renumber(node: Any, ids: dict[int, int]) -> Any:
     if not isinstance(node, dict):
         return node
     out = {}
+    atom = node.get("__loader__") == _JSON_ATOM
     for key, value in node.items():
-        if key == "__id__" and isinstance(value, int):
+        if key == "__id__" and isinstance(value, int) and atom:
+            value = len(ids) + 1  # a number each time it appears (see _JSON_ATOM)
+            ids[-value] = value  # only to count it
+        elif key == "__id__" and isinstance(value, int):
             value = ids.setdefault(value, len(ids) + 1)
         elif key == "file" and isinstance(value, str) and _ARRAY_FILE.match(value):
             number, suffix = _ARRAY_FILE.match(value).groups()  # type: ignore[union-attr]
@@ -88,8 +102,27 @@ def _stable_zip(data: bytes) -> bytes:
     return out.getvalue()
 
 
+# A process that has not imported skops yet may hand its dumps to a helper process that imports
+# it meanwhile (model_writer.py): (the pid that set it, the writer). Keyed by pid so a process
+# forked from this one, which inherits the setting but not the helper, writes for itself.
+_writer: tuple[int, Callable[[Any], bytes]] | None = None
+
+
+def set_writer(writer: Callable[[Any], bytes] | None) -> None:
+    """Route this process's `model_bytes` through `writer` (None: write here again)."""
+    global _writer
+    _writer = None if writer is None else (os.getpid(), writer)
+
+
 def model_bytes(model: Any) -> bytes:
     """The skops serialisation of `model`, identical for identical fitted models."""
+    if _writer is not None and _writer[0] == os.getpid():
+        return _writer[1](model)
+    return model_bytes_here(model)
+
+
+def model_bytes_here(model: Any) -> bytes:
+    """`model_bytes` written in this process, whatever writer is set."""
     return _stable_zip(_skops_io().dumps(model))
 
 

@@ -22,6 +22,7 @@ from sqlalchemy.orm import Session, sessionmaker
 from threadpoolctl import threadpool_limits
 
 from service.config import Settings
+from service.cv.unit_batches import SPREAD
 from service.jobs.curves.prepare import PreparedCurve, create_submission, prepare_submission
 from service.jobs.curves.settle import CURVE_KIND, child_ids, settle_curve
 from service.jobs.execution.batches import batch_unit_ids
@@ -104,9 +105,13 @@ def _local_pool(
             raise
 
 
-def _batches(sessions: sessionmaker[Session], unit_ids: list[int]) -> list[list[int]]:
+def _batches(
+    sessions: sessionmaker[Session], unit_ids: list[int], pool: ProcessPoolExecutor | None
+) -> list[list[int]]:
     with sessions() as session:
-        return batch_unit_ids(session, unit_ids)
+        # run here, one batch after another, no batch keeps another worker waiting
+        spread = 1 if pool is None else SPREAD
+        return batch_unit_ids(session, unit_ids, spread=spread)
 
 
 def _all_done(report: BatchReport) -> bool:
@@ -127,7 +132,7 @@ def _drive(
     """
     with sessions() as session:
         queued = queued_unit_ids(session, job_id)
-    pending = _batches(sessions, queued)
+    pending = _batches(sessions, queued, pool)
     if pool is None:
         me = worker_name()
         while pending:
@@ -137,7 +142,7 @@ def _drive(
             tick(len(report.statuses))
             if not _all_done(report):
                 return
-            pending += _batches(sessions, added)
+            pending += _batches(sessions, added, pool)
         return
     running = {pool.submit(_child_execute, batch) for batch in pending}
     while running:
@@ -149,7 +154,9 @@ def _drive(
                 for other in running:
                     other.cancel()
                 return
-            running |= {pool.submit(_child_execute, batch) for batch in _batches(sessions, added)}
+            running |= {
+                pool.submit(_child_execute, batch) for batch in _batches(sessions, added, pool)
+            }
 
 
 def _drive_selections(
