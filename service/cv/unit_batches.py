@@ -34,6 +34,10 @@ TAPER_SPLIT = 4
 # ... but no smaller than this estimated: a batch costs a claim, a record and a message (tens of
 # milliseconds), so a tiny job's batches are not split further
 TAPERED_BATCH_FLOOR = 0.1
+# nor is any batch budgeted below this, however small the stage: a halving search's later
+# rounds (a dozen units of a few milliseconds each) went out one unit a batch and spent more
+# on claims and records than on fits (tests/benchmarks/bench_halving.py, two workers)
+BATCH_FLOOR = 0.1
 
 # seconds per fit per training row (per tree or boosting stage for ensembles); from memory,
 # order-of-magnitude only (see above)
@@ -134,9 +138,10 @@ def batch_units(
 
     Slow units come first, one each, so the longest work starts earliest and the fast batches
     fill in behind it (longest-first scheduling); fast units are packed in their given order
-    into batches of at most BATCH_SECONDS estimated (and a `spread`th of the total),
-    BATCH_UNITS, the last TAPER_BATCHES budgets' worth in batches TAPER_SPLIT times smaller
-    (down to TAPERED_BATCH_FLOOR), so the workers finish a stage together.
+    into batches of at most BATCH_SECONDS estimated (and a `spread`th of the total, or
+    BATCH_FLOOR where that is less), BATCH_UNITS, the last TAPER_BATCHES budgets' worth in
+    batches TAPER_SPLIT times smaller (down to TAPERED_BATCH_FLOOR), so the workers finish a
+    stage together.
 
     `spread` 1 is for units run one batch after another in one process: no other worker waits
     for a batch there, so fast units fill whole BATCH_SECONDS batches and nothing is tapered
@@ -144,7 +149,7 @@ def batch_units(
     """
     stored = stored_fit_seconds or {}
     costs = {w.unit_id: unit_seconds(w, stored) for w in works}
-    budget = min(BATCH_SECONDS, sum(costs.values()) / max(1, spread))
+    budget = min(BATCH_SECONDS, max(BATCH_FLOOR, sum(costs.values()) / max(1, spread)))
     slow = sorted(
         (w.unit_id for w in works if costs[w.unit_id] >= SLOW_UNIT_SECONDS),
         key=lambda unit_id: -costs[unit_id],

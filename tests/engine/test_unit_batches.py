@@ -8,6 +8,7 @@ short ones packed so that no pack is long enough to become the tail.
 from __future__ import annotations
 
 from service.cv.unit_batches import (
+    BATCH_FLOOR,
     BATCH_SECONDS,
     BATCH_UNITS,
     MODEL_HANDOVER_SECONDS,
@@ -62,9 +63,19 @@ def test_fast_units_share_batches_within_the_budget() -> None:
 
 
 def test_a_small_job_spreads_over_several_batches() -> None:
-    # eight fast units: the budget is an eighth of the whole, so two workers both get work
-    works = [UnitWork(i, "k", "GaussianNB", {}, 3, 100) for i in range(8)]
+    # eight units of about 0.1 s: the budget is an eighth of the whole, so two workers both
+    # get work
+    works = [UnitWork(i, "k", "LogisticRegression", {}, 3, 4000) for i in range(8)]
+    assert sum(unit_seconds(w, {}) for w in works) / SPREAD >= BATCH_FLOOR
     assert len(batch_units(works)) >= 4
+
+
+def test_a_stage_of_a_few_milliseconds_is_not_cut_below_the_floor() -> None:
+    # eight units of 6 ms (a halving search's later round, say): an eighth of the whole would
+    # be one unit a batch, each costing more to claim and record than to fit
+    works = [UnitWork(i, "k", "GaussianNB", {}, 3, 100) for i in range(8)]
+    assert sum(unit_seconds(w, {}) for w in works) <= BATCH_FLOOR
+    assert batch_units(works) == [[w.unit_id for w in works]]
 
 
 def test_stored_fit_times_replace_the_family_guess() -> None:
@@ -139,4 +150,4 @@ def test_one_process_packs_whole_batches_and_tapers_nothing() -> None:
     one_process = batch_units(fast, spread=1)
     assert [len(batch) for batch in one_process] == [BATCH_UNITS, len(fast) - BATCH_UNITS]
     assert [i for batch in one_process for i in batch] == [w.unit_id for w in fast]
-    assert len(batch_units(fast)) >= SPREAD  # the workers' default spreads the same units
+    assert len(batch_units(fast)) >= 4  # the workers' default spreads the same units
