@@ -8,7 +8,7 @@ hand-over), where nothing else runs: a tiny job spent about a quarter of its wal
 other core while this process imports scikit-learn and fits, and writes the model file when
 asked (the fitted model crosses by pickle, between two processes of this same program). A
 process forked from this one (a local pool's) writes its own files. The bytes are the ones
-`model_bytes_here` gives in this process (tests/handover/test_model_writer.py).
+`model_bytes_here` gives in this process (tests/jobs/test_model_writer.py).
 
 If the helper is gone (killed, out of memory), the file is written here as before.
 """
