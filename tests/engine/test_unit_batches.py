@@ -53,7 +53,7 @@ def test_slow_units_run_alone_and_first() -> None:
 def test_fast_units_share_batches_within_the_budget() -> None:
     works = _works()
     costs = {w.unit_id: unit_seconds(w, {}) for w in works}
-    budget = min(BATCH_SECONDS, sum(costs.values()) / SPREAD)
+    budget = min(BATCH_SECONDS, max(BATCH_FLOOR, sum(costs.values()) / SPREAD))
     fast_batches = [batch for batch in batch_units(works) if batch[0] < 100]
     # 40 fast units in far fewer messages, none over the budget or the unit cap
     assert len(fast_batches) < 40 / 4
@@ -133,12 +133,16 @@ def test_a_stage_ends_in_small_batches() -> None:
 
 
 def test_a_tiny_stage_is_not_split_further() -> None:
-    # 32 cheap units: batches at the budget only (splitting would cost more than it saves)
+    # 32 cheap units (0.2 s in all): an eighth of the whole is under the floor, so batches are
+    # filled to the floor and nothing is tapered (splitting would cost more than it saves)
     works = [UnitWork(i, "k", "GaussianNB", {}, 3, 100) for i in range(32)]
     costs = {w.unit_id: unit_seconds(w, {}) for w in works}
-    budget = min(BATCH_SECONDS, sum(costs.values()) / SPREAD)
-    assert budget < TAPERED_BATCH_FLOOR
-    assert len(batch_units(works)) <= SPREAD + 1
+    assert sum(costs.values()) / SPREAD < BATCH_FLOOR <= TAPERED_BATCH_FLOOR
+    batches = batch_units(works)
+    # every batch but the last is full: one more unit would have taken it over the floor
+    for batch in batches[:-1]:
+        assert sum(costs[i] for i in batch) + max(costs.values()) > BATCH_FLOOR
+    assert len(batches) < SPREAD
 
 
 def test_one_process_packs_whole_batches_and_tapers_nothing() -> None:

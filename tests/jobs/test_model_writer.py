@@ -2,7 +2,7 @@
 
 `foldwise select` hands the final model's skops dump to a helper that imported skops while the
 job ran. The promise is that nothing changes but where the import is paid: the bytes (and so
-`model_sha256`, which reuse and audits compare) are the ones this process would have written,
+`model_sha256`, equal for equal requests) are the ones this process would have written,
 a dead helper costs nothing but time, and a forked process never writes through its parent's
 helper. Checks that need a process without skops run in a fresh interpreter, since this test
 process has imported it.
@@ -47,7 +47,7 @@ REQUEST: dict[str, Any] = {
 
 # in a fresh interpreter: a model dumped through the helper, then the same model dumped here
 HELPER_THEN_HERE = """
-import json, multiprocessing, os, sys
+import json, multiprocessing, sys
 from sklearn.datasets import load_breast_cancer
 from sklearn.linear_model import LogisticRegression
 from service.jobs.handover import model_file
@@ -64,7 +64,6 @@ with model_writer_aside():
             helper.join()
     via_helper = model_file.model_bytes(model)
     skops_here = "skops.io" in sys.modules
-    left = [p.pid for p in multiprocessing.active_children()]
 here = model_file.model_bytes_here(model)
 print(json.dumps({
     "helpers": len(helpers), "same": via_helper == here, "skops_here_before": skops_here,
