@@ -88,7 +88,11 @@ def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path, rerun: boo
         return
 
     # imported here for start-up speed: only a job that runs writes a model file
+    from service.cli.scipy_doc_notes import skip_scipy_doc_notes
     from service.jobs.handover.model_writer import model_writer_aside
+
+    # before the helper forks, so its import of scikit-learn skips the docstrings' rebuild too
+    skip_scipy_doc_notes()
 
     # the helper imports skops on the other core from now on, while this process imports the
     # engine and fits (the model file is written last, and skops' import is most of a second)
