@@ -72,11 +72,11 @@ def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path, rerun: boo
         raise BadInput("--workers", "must be at least 1.")
     settings = load_settings()
     # imported here for start-up speed: a repeated request is answered before scikit-learn loads
-    from service.jobs.intake.answer_key import answer_key
+    from service.jobs.intake.answer_key import keyed, unchanged_since
     from service.store.repeat_answers import find_answer, keep_answer
 
-    key = answer_key(job, base_dir=base_dir, data_roots=settings.data_roots)
-    stored = None if key is None or rerun else find_answer(settings.database_url, key)
+    key = keyed(job, base_dir=base_dir, data_roots=settings.data_roots)
+    stored = None if key is None or rerun else find_answer(settings.database_url, key.value)
     if stored is not None:
         stderr.print(
             f"answered by job {stored.job_id} (finished {stored.finished_at}): the same request, "
@@ -117,11 +117,9 @@ def _select(job: Any, *, as_json: bool, workers: int, base_dir: Path, rerun: boo
                 )
         except JobFailed as exc:
             fail(str(exc))
-    # kept only if the table's bytes did not change while the job read them
-    if key is not None and key == answer_key(
-        job, base_dir=base_dir, data_roots=settings.data_roots
-    ):
-        keep_answer(settings.database_url, outcome.job_id, key)
+    # kept only if the table's file was not written or replaced since the key read its bytes
+    if key is not None and unchanged_since(key, base_dir=base_dir, data_roots=settings.data_roots):
+        keep_answer(settings.database_url, outcome.job_id, key.value)
     _print_outcome(outcome.result, outcome.job_id, as_json=as_json)
     # and the run's objects too: the interpreter's last collection at exit would otherwise walk
     # them all (~0.3 s with scikit-learn and pandas loaded); exit itself stays the normal one

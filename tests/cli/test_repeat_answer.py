@@ -13,6 +13,8 @@ import subprocess
 from pathlib import Path
 from typing import Any
 
+import pytest
+
 from .runner import (
     DATA_NAME,
     FOLDWISE,
@@ -20,6 +22,7 @@ from .runner import (
     base_request,
     cli_env,
     run_foldwise,
+    run_foldwise_in_process,
     store_count,
     store_jobs,
     write_job,
@@ -117,3 +120,35 @@ def test_a_failed_job_is_never_an_answer(workdir: Path, foldwise_home: Path) -> 
     assert [outcome.code for outcome in failing] == [1, 1]
     assert all("n_neighbors" in outcome.stderr for outcome in failing)
     assert store_count(foldwise_home, "job", "status = 'failed' AND answer_key IS NULL") == 2
+
+
+def test_a_table_saved_while_the_job_ran_keys_nothing(
+    workdir: Path, foldwise_home: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # The command reads the file's bytes once, for the key; whether the job saw the same bytes
+    # is told by the file's stamp afterwards. A save while the job runs (here: the job's table
+    # written again, same bytes, as an editor's save would) leaves the finished job unkeyed,
+    # so the next run makes a new job (that reuses its fold scores) instead of trusting it.
+    from service.jobs.local import driver
+
+    write_job(workdir, base_request())
+    table = workdir / DATA_NAME
+    run_embedded = driver.run_embedded
+
+    def saved_during_the_job(*args: Any, **kwargs: Any) -> Any:
+        outcome = run_embedded(*args, **kwargs)
+        table.write_bytes(table.read_bytes())
+        return outcome
+
+    monkeypatch.setattr(driver, "run_embedded", saved_during_the_job)
+    env = {"FOLDWISE_HOME": str(foldwise_home)}
+    first = run_foldwise_in_process("select", "job.json", "--json", cwd=workdir, env=env)
+    assert first.code == 0, first.stderr
+    assert store_count(foldwise_home, "job", "answer_key IS NULL") == 1
+
+    monkeypatch.setattr(driver, "run_embedded", run_embedded)
+    again = run_foldwise_in_process("select", "job.json", "--json", cwd=workdir, env=env)
+    assert again.code == 0, again.stderr
+    assert "answered by job" not in again.stderr
+    assert json.loads(again.stdout)["work"]["units_computed"] == 0
+    assert store_count(foldwise_home, "job", "answer_key IS NOT NULL") == 1  # this one, untouched

@@ -6,6 +6,8 @@ the newest revision; anything else is a miss, and a miss never creates or change
 
 from __future__ import annotations
 
+import os
+import time
 from pathlib import Path
 from typing import Any
 
@@ -13,7 +15,8 @@ import pytest
 from sqlalchemy import select, update
 
 from service.config import load_settings
-from service.jobs.intake.answer_key import answer_key
+from service.jobs.intake import answer_key as answer_keys
+from service.jobs.intake.answer_key import AnswerKey, answer_key, keyed, unchanged_since
 from service.jobs.local.driver import run_embedded
 from service.store.db import make_engine, make_session_factory
 from service.store.models import Job
@@ -77,6 +80,77 @@ def test_no_key_for_a_file_outside_the_data_roots(tmp_path: Path) -> None:
 
 def test_no_key_for_values_json_cannot_carry(tmp_path: Path) -> None:
     assert _key({**REQUEST, "extra": float("nan")}, tmp_path) is None
+
+
+def _aged(path: Path, seconds: float = 60) -> None:
+    # as a file saved a minute ago: past the window where its stamp alone cannot be trusted
+    then = time.time_ns() - int(seconds * 1e9)
+    os.utime(path, ns=(then, then))
+
+
+def _file_key(tmp_path: Path, name: str = "t.csv") -> AnswerKey:
+    key = keyed({**REQUEST, "dataset": {"path": name}}, base_dir=tmp_path, data_roots=())
+    assert key is not None and key.file is not None
+    return key
+
+
+def _unchanged(key: AnswerKey, tmp_path: Path) -> bool:
+    return unchanged_since(key, base_dir=tmp_path, data_roots=())
+
+
+def test_an_untouched_file_is_unchanged_without_reading_it_again(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    table = tmp_path / "t.csv"
+    table.write_bytes(b"a,b\n1,2\n")
+    _aged(table)
+    key = _file_key(tmp_path)
+    assert key.value == _key({**REQUEST, "dataset": {"path": "t.csv"}}, tmp_path)
+    reads: list[Path] = []
+    hash_file = answer_keys._hash_file
+    monkeypatch.setattr(answer_keys, "_hash_file", lambda p: reads.append(p) or hash_file(p))
+    assert _unchanged(key, tmp_path)
+    assert reads == []  # the stamp alone told: the bytes were read once, for the key
+    assert _unchanged(keyed(REQUEST, base_dir=tmp_path, data_roots=()), tmp_path)  # a sample
+
+
+@pytest.mark.parametrize("how", ["rewritten", "same_bytes_again", "renamed_over", "relinked"])
+def test_a_file_written_or_replaced_after_the_key_read_it_is_changed(
+    tmp_path: Path, how: str
+) -> None:
+    table = tmp_path / "t.csv"
+    table.write_bytes(b"a,b\n1,2\n")
+    other = tmp_path / "other.csv"
+    other.write_bytes(b"a,b\n1,3\n")
+    link = tmp_path / "link.csv"
+    link.symlink_to(table)
+    for path in (table, other):
+        _aged(path)
+    key = _file_key(tmp_path, "link.csv")
+    if how == "rewritten":  # same size, other bytes
+        table.write_bytes(b"a,b\n1,3\n")
+    elif how == "same_bytes_again":  # a save that changed nothing still counts: no answer kept
+        table.write_bytes(b"a,b\n1,2\n")
+    elif how == "renamed_over":  # an editor's atomic save: a new file under the old name
+        os.replace(other, table)
+    else:
+        link.unlink()
+        link.symlink_to(other)
+    assert not _unchanged(key, tmp_path)
+
+
+def test_a_file_modified_moments_before_the_key_is_hashed_again(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # its stamp could survive a write in the same clock tick, so the bytes decide
+    table = tmp_path / "t.csv"
+    table.write_bytes(b"a,b\n1,2\n")
+    key = _file_key(tmp_path)
+    reads: list[Path] = []
+    hash_file = answer_keys._hash_file
+    monkeypatch.setattr(answer_keys, "_hash_file", lambda p: reads.append(p) or hash_file(p))
+    assert _unchanged(key, tmp_path)
+    assert reads == [table]
 
 
 @pytest.fixture(params=["sqlite", "postgresql"])

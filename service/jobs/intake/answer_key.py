@@ -7,14 +7,24 @@ the name of a shipped sample), the code as the bytes of this package's source fi
 libraries by their installed versions. Bytes are stricter than the table's logical content (a
 file saved again with other line endings gets a new key and runs again, reusing its stored fold
 scores): a missed answer costs a run, a wrong one would cost the user's trust.
+
+A file's bytes are read for the key once per command. Whether they were still the same when the
+job had read the table is told by the file's stamp (device, inode, size, modification and change
+times, as `os.stat` gives them), taken around that read and again after the job: any write or
+replacement moves it. A file written within the file system's timestamp granularity of the read
+could keep its stamp, so for a file modified in the last few seconds the bytes are hashed again
+(the "racily clean" case version-control tools know).
 """
 
 from __future__ import annotations
 
 import hashlib
 import json
+import os
 import re
 import sys
+import time
+from dataclasses import dataclass
 from importlib import metadata
 from pathlib import Path
 from typing import Any
@@ -27,10 +37,38 @@ LIBRARIES = ("scikit-learn", "numpy", "scipy", "pandas", "pyarrow")
 PACKAGE_ROOT = Path(__file__).resolve().parents[2]
 _CONTENT_HASH = re.compile(r"[0-9a-f]{64}")
 _READ_CHUNK = 1 << 20
+# a file modified this recently before its bytes were read may change again without moving its
+# stamp (timestamps are as coarse as the file system's clock tick); its bytes are hashed again
+_RACY_NS = 3_000_000_000
+
+
+@dataclass(frozen=True)
+class FileRead:
+    """The file a key hashed: the request's path, where it led, stamp, digest, read when."""
+
+    raw: str
+    path: Path
+    stamp: tuple[int, ...]
+    digest: str
+    read_at_ns: int
+
+
+@dataclass(frozen=True)
+class AnswerKey:
+    """A request's answer key, and the file whose bytes it took (None for other sources)."""
+
+    value: str
+    file: FileRead | None
 
 
 def answer_key(data: Any, *, base_dir: Path, data_roots: tuple[Path, ...]) -> str | None:
-    """The request's answer key, or None when no stored job may answer it.
+    """The request's answer key, or None when no stored job may answer it (see `keyed`)."""
+    key = keyed(data, base_dir=base_dir, data_roots=data_roots)
+    return None if key is None else key.value
+
+
+def keyed(data: Any, *, base_dir: Path, data_roots: tuple[Path, ...]) -> AnswerKey | None:
+    """The request's answer key with what it read, or None when no stored job may answer it.
 
     None for a request whose rows can change under the same words (a SQL query) and for
     anything the full validation would refuse or word differently (a missing file, a path
@@ -38,7 +76,9 @@ def answer_key(data: Any, *, base_dir: Path, data_roots: tuple[Path, ...]) -> st
     """
     if not isinstance(data, dict):
         return None
-    source = _source_digest(data.get("dataset"), base_dir=base_dir, data_roots=data_roots)
+    dataset = data.get("dataset")
+    file = _file_read(dataset, base_dir=base_dir, data_roots=data_roots)
+    source = ["file", file.digest] if file is not None else _named_source(dataset)
     if source is None:
         return None
     try:
@@ -51,7 +91,30 @@ def answer_key(data: Any, *, base_dir: Path, data_roots: tuple[Path, ...]) -> st
         )
     except (TypeError, ValueError):
         return None
-    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+    return AnswerKey(hashlib.sha256(text.encode("utf-8")).hexdigest(), file)
+
+
+def unchanged_since(key: AnswerKey, *, base_dir: Path, data_roots: tuple[Path, ...]) -> bool:
+    """True if the key's file still has the bytes the key took (always, for other sources).
+
+    The path is resolved again, as the job's loader resolved it: a name pointed at another file
+    since (a symlink moved, a file saved by rename) has another stamp.
+    """
+    file = key.file
+    if file is None:
+        return True
+    try:
+        path = resolve_dataset_path(
+            file.raw, base_dir=base_dir, data_roots=data_roots, field="path"
+        )
+        if path != file.path or _stamp(os.stat(path)) != file.stamp:
+            return False
+    except (BadInput, OSError):
+        return False
+    if file.read_at_ns - file.stamp[3] > _RACY_NS:
+        return True
+    again = _hash_file(path)
+    return again is not None and again[0] == file.digest
 
 
 def versions() -> dict[str, str]:
@@ -78,31 +141,54 @@ def code_digest() -> str:
     return digest.hexdigest()
 
 
-def _source_digest(
-    dataset: Any, *, base_dir: Path, data_roots: tuple[Path, ...]
-) -> list[str] | None:
+def _named_source(dataset: Any) -> list[str] | None:
     if isinstance(dataset, str):
         # a registered table: its content hash names its rows for good
         return ["content", dataset] if _CONTENT_HASH.fullmatch(dataset) else None
-    if not isinstance(dataset, dict) or len(dataset) != 1:
-        return None
-    if isinstance(dataset.get("sample"), str):
+    if isinstance(dataset, dict) and len(dataset) == 1 and isinstance(dataset.get("sample"), str):
         # a table shipped with scikit-learn: the same rows for the same installed version
         return ["sample", dataset["sample"]]
-    if isinstance(dataset.get("path"), str) and dataset["path"]:
-        digest = _file_digest(dataset["path"], base_dir=base_dir, data_roots=data_roots)
-        return None if digest is None else ["file", digest]
     return None
 
 
-def _file_digest(raw: str, *, base_dir: Path, data_roots: tuple[Path, ...]) -> str | None:
+def _file_read(dataset: Any, *, base_dir: Path, data_roots: tuple[Path, ...]) -> FileRead | None:
+    if not isinstance(dataset, dict) or len(dataset) != 1:
+        return None
+    raw = dataset.get("path")
+    if not isinstance(raw, str) or not raw:
+        return None
     try:
         # the same resolution and data-roots rule the table's loader applies
         path = resolve_dataset_path(raw, base_dir=base_dir, data_roots=data_roots, field="path")
-        digest = hashlib.sha256()
+    except BadInput:
+        return None
+    hashed = _hash_file(path)
+    if hashed is None:
+        return None
+    digest, stamp = hashed
+    return FileRead(raw, path, stamp, digest, time.time_ns())
+
+
+def _hash_file(path: Path) -> tuple[str, tuple[int, ...]] | None:
+    """(sha256, stamp) of the file's bytes; None if unreadable or written while it was read."""
+    digest = hashlib.sha256()
+    try:
         with path.open("rb") as handle:
+            before = _stamp(os.fstat(handle.fileno()))
             while chunk := handle.read(_READ_CHUNK):
                 digest.update(chunk)
-    except (BadInput, OSError):
+            after = _stamp(os.fstat(handle.fileno()))
+    except OSError:
         return None
-    return digest.hexdigest()
+    return (digest.hexdigest(), before) if before == after else None
+
+
+def _stamp(status: os.stat_result) -> tuple[int, ...]:
+    # the modification time is at index 3, read by unchanged_since
+    return (
+        status.st_dev,
+        status.st_ino,
+        status.st_size,
+        status.st_mtime_ns,
+        status.st_ctime_ns,
+    )
