@@ -44,13 +44,13 @@ _RACY_NS = 3_000_000_000
 
 @dataclass(frozen=True)
 class FileRead:
-    """The file a key hashed: the request's path, where it led, stamp, digest, read when."""
+    """The file a key hashed: the request's path, where it led, stamp, digest, stamped when."""
 
     raw: str
     path: Path
     stamp: tuple[int, ...]
     digest: str
-    read_at_ns: int
+    stamped_at_ns: int
 
 
 @dataclass(frozen=True)
@@ -111,7 +111,7 @@ def unchanged_since(key: AnswerKey, *, base_dir: Path, data_roots: tuple[Path, .
             return False
     except (BadInput, OSError):
         return False
-    if file.read_at_ns - file.stamp[3] > _RACY_NS:
+    if file.stamped_at_ns - file.stamp[3] > _RACY_NS:
         return True
     again = _hash_file(path)
     return again is not None and again[0] == file.digest
@@ -162,11 +162,14 @@ def _file_read(dataset: Any, *, base_dir: Path, data_roots: tuple[Path, ...]) ->
         path = resolve_dataset_path(raw, base_dir=base_dir, data_roots=data_roots, field="path")
     except BadInput:
         return None
+    # when the stamp was taken: a write in the same clock tick as the file's last one could
+    # follow it unseen, so a file modified just before this moment is not judged by stamp alone
+    stamped_at = time.time_ns()
     hashed = _hash_file(path)
     if hashed is None:
         return None
     digest, stamp = hashed
-    return FileRead(raw, path, stamp, digest, time.time_ns())
+    return FileRead(raw, path, stamp, digest, stamped_at)
 
 
 def _hash_file(path: Path) -> tuple[str, tuple[int, ...]] | None:
