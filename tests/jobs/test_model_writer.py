@@ -3,9 +3,10 @@
 `foldwise select` hands the final model's skops dump to a helper that imported skops while the
 job ran. The promise is that nothing changes but where the import is paid: the bytes (and so
 `model_sha256`, equal for equal requests) are the ones this process would have written,
-a dead helper costs nothing but time, and a forked process never writes through its parent's
-helper. Checks that need a process without skops run in a fresh interpreter, since this test
-process has imported it.
+a dead helper costs nothing but time, a process forked from the command (a local pool's) writes
+through the same helper, and a process without the helper's key is turned away before anything
+it sends is read. Checks that need a process without skops run in a fresh interpreter, since
+this test process has imported it.
 """
 
 from __future__ import annotations
@@ -18,6 +19,7 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
+import pytest
 import skops.io as sio
 from cli.runner import run_foldwise
 from sklearn.datasets import load_breast_cancer
@@ -101,12 +103,75 @@ def test_a_dead_helper_leaves_the_file_to_this_process() -> None:
     assert seen["alive_after"] == []
 
 
+# in a fresh interpreter: inside the block, a forked process (as a local pool's) dumps a model;
+# a process that does not know the key knocks first (argv[1] == "stranger")
+FORKED_CHILD_THROUGH_HELPER = """
+import json, multiprocessing, sys
+from multiprocessing import AuthenticationError
+from multiprocessing.connection import Client
+from sklearn.datasets import load_breast_cancer
+from sklearn.linear_model import LogisticRegression
+from service.jobs.handover import model_file
+from service.jobs.handover.model_writer import model_writer_aside
+
+X, y = load_breast_cancer(return_X_y=True)
+model = LogisticRegression(max_iter=5000).fit(X, y)
+
+def child(queue):
+    written = model_file.model_bytes(model)
+    queue.put((written, "skops.io" in sys.modules))
+
+refused = None
+with model_writer_aside():
+    if sys.argv[1] == "stranger":
+        address = model_file._writer[1].address
+        try:
+            Client(address, family="AF_UNIX", authkey=b"not the key").send(model)
+            refused = False
+        except (AuthenticationError, EOFError, ConnectionError):
+            refused = True
+    context = multiprocessing.get_context("fork")
+    queue = context.Queue()
+    process = context.Process(target=child, args=(queue,))
+    process.start()
+    written, child_imported = queue.get(timeout=300)
+    process.join(300)
+    after_child = model_file.model_bytes(model)
+    parent_imported = "skops.io" in sys.modules
+here = model_file.model_bytes_here(model)
+print(json.dumps({
+    "same": written == here, "child_imported_skops": child_imported, "refused": refused,
+    "helper_still_served": after_child == here and not parent_imported,
+    "exitcode": process.exitcode,
+}))
+"""
+
+
+@pytest.mark.parametrize("knock", ["none", "stranger"])
+def test_a_process_forked_from_the_command_writes_through_the_helper(knock: str) -> None:
+    done = subprocess.run(
+        [sys.executable, "-c", FORKED_CHILD_THROUGH_HELPER, knock],
+        cwd=REPO,
+        capture_output=True,
+        text=True,
+        timeout=TIMEOUT,
+    )
+    assert done.returncode == 0, done.stderr
+    seen = json.loads(done.stdout.strip().splitlines()[-1])
+    assert seen["exitcode"] == 0
+    assert seen["same"] is True
+    assert seen["child_imported_skops"] is False  # the helper wrote it
+    assert seen["helper_still_served"] is True
+    if knock == "stranger":
+        assert seen["refused"] is True  # turned away at the handshake, nothing unpickled
+
+
 def _dump_in_forked_child(queue: Any) -> None:
     X, y = load_breast_cancer(return_X_y=True)
     queue.put(model_file.model_bytes(LogisticRegression(max_iter=5000).fit(X, y)))
 
 
-def test_a_forked_process_writes_its_own_file_not_through_the_parents_writer() -> None:
+def test_a_forked_process_writes_its_own_file_through_a_writer_set_for_one_process() -> None:
     X, y = load_breast_cancer(return_X_y=True)
     expected = model_file.model_bytes_here(LogisticRegression(max_iter=5000).fit(X, y))
     context = multiprocessing.get_context("fork")

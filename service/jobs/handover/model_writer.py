@@ -1,16 +1,21 @@
-"""A helper process that imports skops while this one fits, and writes the final model file.
+"""A helper process that imports skops while the job fits, and writes the final model file.
 
 Importing skops.io costs most of a second (its trusted-types list imports every scikit-learn
 estimator and scans every loaded module for numpy's ufuncs), paid once per process. A long-lived
 worker pays it once; `foldwise select` pays it on every job, at the very end (the final refit's
 hand-over), where nothing else runs: a tiny job spent about a quarter of its wall time there. So
 `foldwise select` forks a helper before it imports the engine: the helper imports skops on the
-other core while this process imports scikit-learn and fits, and writes the model file when
-asked (the fitted model crosses by pickle, between two processes of this same program). A
-process forked from this one (a local pool's) writes its own files. The bytes are the ones
-`model_bytes_here` gives in this process (tests/jobs/test_model_writer.py).
+other core while the command imports scikit-learn and fits, then serves dumps on a local socket
+until the command ends. The fitted model crosses by pickle, between processes of this same
+program. The processes of a local pool, forked from the command later, send their dumps there
+too (a pool process writes the final model of a job run on two workers; it would otherwise
+import skops itself, about half a second at the job's tail). The bytes are the ones
+`model_bytes_here` gives in the process itself (tests/jobs/test_model_writer.py).
 
-If the helper is gone (killed, out of memory), the file is written here as before.
+The socket is in Linux's abstract namespace (no file to clean up; it goes with the helper) and
+each connection proves it knows a random key (multiprocessing.connection's handshake). If the
+helper is gone (killed, out of memory) or cannot be reached, the file is written where it is
+asked for, as before.
 """
 
 from __future__ import annotations
@@ -18,25 +23,31 @@ from __future__ import annotations
 import gc
 import logging
 import multiprocessing
+import os
 import sys
 from collections.abc import Iterator
-from concurrent.futures import ProcessPoolExecutor
-from concurrent.futures.process import BrokenProcessPool
 from contextlib import contextmanager
+from multiprocessing import AuthenticationError
+from multiprocessing.connection import Client, Connection, Listener
 from typing import Any
 
 from service.jobs.handover import model_file
-from service.processes import die_with_parent, stop_pool
+from service.processes import die_with_parent
 
 log = logging.getLogger(__name__)
+# connections waiting while the helper serves one: the command and its pool processes
+_BACKLOG = 8
 
 
 def helper_pays() -> bool:
-    """True while this process has not imported skops: the helper would take its import aside."""
-    return "skops.io" not in sys.modules
+    """True while this process has not imported skops: the helper would take its import aside.
+
+    Linux only: the helper's socket lives in the abstract namespace.
+    """
+    return "skops.io" not in sys.modules and sys.platform.startswith("linux")
 
 
-def _start_helper() -> None:
+def _serve(listener: Listener) -> None:
     die_with_parent()
     gc.disable()  # an import makes no garbage; the collector's passes over it only cost time
     try:
@@ -44,15 +55,45 @@ def _start_helper() -> None:
     finally:
         gc.freeze()
         gc.enable()
+    while True:
+        try:
+            connection = listener.accept()
+        except (AuthenticationError, EOFError, ConnectionError):
+            continue  # a process without the key, or one gone mid-handshake: serve the next
+        with connection:
+            _answer(connection)
 
 
-def _ready() -> bool:
-    return True
+def _answer(connection: Connection) -> None:
+    try:
+        model = connection.recv()
+        payload = model_file.model_bytes_here(model)
+    except Exception:  # the asking process writes it, and reports what fails
+        return  # closed unanswered: the asker writes the file itself and meets the error there
+    connection.send_bytes(payload)
+
+
+class _SocketWriter:
+    """`model_bytes` through the helper, from the command or any process forked from it."""
+
+    def __init__(self, address: str, key: bytes) -> None:
+        self.address = address
+        self.key = key
+
+    def __call__(self, model: Any) -> bytes:
+        try:
+            with Client(self.address, family="AF_UNIX", authkey=self.key) as connection:
+                connection.send(model)
+                return connection.recv_bytes()
+        except (OSError, EOFError) as exc:
+            log.warning("the model-writing helper is gone (%s); writing the model file here", exc)
+            return model_file.model_bytes_here(model)
 
 
 @contextmanager
 def model_writer_aside() -> Iterator[None]:
-    """While open, `model_file.model_bytes` in this process is written by a helper process.
+    """While open, `model_file.model_bytes` here and in processes forked from here is written
+    by a helper process.
 
     With skops already imported here it opens nothing: the block runs as without it. The helper
     is stopped on leaving, used or not (it may still be importing).
@@ -60,21 +101,23 @@ def model_writer_aside() -> Iterator[None]:
     if not helper_pays():
         yield
         return
-    pool = ProcessPoolExecutor(
-        1, mp_context=multiprocessing.get_context("fork"), initializer=_start_helper
+    key = os.urandom(32)
+    # "\0..." names a socket in the abstract namespace; pid and key make it this command's
+    address = f"\0foldwise-model-writer-{os.getpid()}-{key[:8].hex()}"
+    listener = Listener(address, family="AF_UNIX", backlog=_BACKLOG, authkey=key)
+    helper = multiprocessing.get_context("fork").Process(
+        target=_serve, args=(listener,), name="foldwise-model-writer", daemon=True
     )
-    pool.submit(_ready)  # starts the helper (and its import) now, not at the first dump
-
-    def write(model: Any) -> bytes:
-        try:
-            return pool.submit(model_file.model_bytes_here, model).result()
-        except BrokenProcessPool:
-            log.warning("the model-writing helper is gone; writing the model file here")
-            return model_file.model_bytes_here(model)
-
-    model_file.set_writer(write)
+    try:
+        helper.start()  # its import starts now, not at the first dump
+    finally:
+        # only the helper keeps the socket open: once it is gone, a dump is refused at once
+        # (and falls back to writing here) instead of waiting on a socket nobody serves
+        listener.close()
+    model_file.set_writer(_SocketWriter(address, key), inherited=True)
     try:
         yield
     finally:
         model_file.set_writer(None)
-        stop_pool(pool)
+        helper.kill()
+        helper.join()
