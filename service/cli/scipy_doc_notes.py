@@ -34,7 +34,7 @@ def skip_scipy_doc_notes() -> bool:
     if not callable(getattr(_array_api, "xp_capabilities", None)):
         return False
 
-    def xp_capabilities(**_capabilities: Any) -> Callable[[Any], Any]:
+    def xp_capabilities(*_args: Any, **_capabilities: Any) -> Callable[[Any], Any]:
         return _unchanged
 
     _array_api.xp_capabilities = xp_capabilities

@@ -11,6 +11,7 @@ from __future__ import annotations
 import contextlib
 import copy
 import json
+import os
 import signal
 import sqlite3
 import subprocess
@@ -21,6 +22,7 @@ from pathlib import Path
 from typing import Any
 
 import httpx
+import pytest
 
 from service.cli.local_server import free_port, serving
 from service.cli.main import SELECT_STOP_GRACE
@@ -48,12 +50,18 @@ LONG_REQUEST: dict[str, Any] = {
 }
 
 
-def _gone_after_signal(proc: subprocess.Popen[bytes], sig: int, limit: float) -> float:
-    """Send `sig`; seconds until the process and everything below it are gone (or `limit`)."""
+def _gone_after_signal(
+    proc: subprocess.Popen[bytes], sig: int, limit: float, *, group: bool = False
+) -> float:
+    """Send `sig` (to the process, or its whole process group); seconds until the process and
+    everything below it are gone (or `limit`)."""
     tree = descendants(proc.pid)
     assert tree, "the process has no pool processes to stop"
     started = time.monotonic()
-    proc.send_signal(sig)
+    if group:
+        os.killpg(proc.pid, sig)
+    else:
+        proc.send_signal(sig)
     while time.monotonic() - started < limit + 5:
         if proc.poll() is not None and not any(alive(pid) for pid in tree):
             return time.monotonic() - started
@@ -124,7 +132,16 @@ def _post_quietly(url: str, body: dict[str, Any], headers: dict[str, str]) -> No
         httpx.post(url, json=body, headers=headers, timeout=60)
 
 
-def test_sigterm_stops_a_select_run_and_its_pool(tmp_path: Path) -> None:
+def _as_on_a_terminal() -> None:
+    # SIGINT at its default, as in a terminal's foreground: a runner started as a background
+    # job has it ignored, and every child would inherit that (POSIX)
+    signal.signal(signal.SIGINT, signal.SIG_DFL)
+
+
+@pytest.mark.parametrize("stop", ["sigterm", "ctrl_c"])
+def test_a_signal_stops_a_select_run_and_its_pool(tmp_path: Path, stop: str) -> None:
+    # SIGTERM goes to the command alone; Ctrl-C sends SIGINT to the terminal's whole process
+    # group: the command, its pool and its model-writing helper
     job = tmp_path / "job.json"
     job.write_text(json.dumps(LONG_REQUEST), encoding="utf-8")
     home = tmp_path / "home"
@@ -136,11 +153,16 @@ def test_sigterm_stops_a_select_run_and_its_pool(tmp_path: Path) -> None:
         stdin=subprocess.DEVNULL,
         stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,
+        start_new_session=True,  # a process group of its own, as a terminal's foreground job
+        preexec_fn=_as_on_a_terminal,
     )
     try:
         store = home / "foldwise.sqlite"
         _wait_for_running_units(store, time.monotonic() + 90)
-        elapsed = _gone_after_signal(proc, signal.SIGTERM, SELECT_STOP_GRACE)
+        if stop == "sigterm":
+            elapsed = _gone_after_signal(proc, signal.SIGTERM, SELECT_STOP_GRACE)
+        else:
+            elapsed = _gone_after_signal(proc, signal.SIGINT, SELECT_STOP_GRACE, group=True)
         _, err = proc.communicate(timeout=10)
         print(f"select and its pool gone {elapsed:.1f} s after SIGTERM")
         assert elapsed <= SELECT_STOP_GRACE, f"took {elapsed:.1f} s"

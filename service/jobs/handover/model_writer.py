@@ -24,6 +24,7 @@ import gc
 import logging
 import multiprocessing
 import os
+import signal
 import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -49,6 +50,9 @@ def helper_pays() -> bool:
 
 def _serve(listener: Listener) -> None:
     die_with_parent()
+    # Ctrl-C reaches the terminal's whole process group: the command stops this helper itself
+    # when it has cancelled the job (a KeyboardInterrupt here would print a traceback)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     gc.disable()  # an import makes no garbage; the collector's passes over it only cost time
     try:
         model_file._skops_io()  # the import this helper exists to take off the job's path
