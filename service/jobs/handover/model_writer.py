@@ -70,11 +70,11 @@ def _serve(listener: Listener) -> None:
 
 def _answer(connection: Connection) -> None:
     try:
-        model = connection.recv()
-        payload = model_file.model_bytes_here(model)
-    except Exception:  # the asking process writes it, and reports what fails
-        return  # closed unanswered: the asker writes the file itself and meets the error there
-    connection.send_bytes(payload)
+        connection.send_bytes(model_file.model_bytes_here(connection.recv()))
+    except Exception:
+        # closed unanswered (an asker gone, a model skops cannot write): the asker, if still
+        # there, writes the file itself and meets any error of the dump where it is reported
+        return
 
 
 class _SocketWriter:
@@ -90,7 +90,10 @@ class _SocketWriter:
                 connection.send(model)
                 return connection.recv_bytes()
         except (OSError, EOFError) as exc:
-            log.warning("the model-writing helper is gone (%s); writing the model file here", exc)
+            log.warning(
+                "the model-writing helper did not answer (%s); writing the model file here",
+                type(exc).__name__,
+            )
             return model_file.model_bytes_here(model)
 
 
@@ -105,9 +108,9 @@ def model_writer_aside() -> Iterator[None]:
     if not helper_pays():
         yield
         return
-    key = os.urandom(32)
-    # "\0..." names a socket in the abstract namespace; pid and key make it this command's
-    address = f"\0foldwise-model-writer-{os.getpid()}-{key[:8].hex()}"
+    key = os.urandom(32)  # never in the socket's name: local users can list those
+    # "\0..." names a socket in the abstract namespace; the pid and a token make it this run's
+    address = f"\0foldwise-model-writer-{os.getpid()}-{os.urandom(8).hex()}"
     listener = Listener(address, family="AF_UNIX", backlog=_BACKLOG, authkey=key)
     helper = multiprocessing.get_context("fork").Process(
         target=_serve, args=(listener,), name="foldwise-model-writer", daemon=True
