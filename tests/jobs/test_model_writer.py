@@ -12,7 +12,6 @@ this test process has imported it.
 from __future__ import annotations
 
 import json
-import multiprocessing
 import subprocess
 import sys
 from pathlib import Path
@@ -124,7 +123,7 @@ def child(queue):
 refused = None
 with model_writer_aside():
     if sys.argv[1] == "stranger":
-        address = model_file._writer[1].address
+        address = model_file._writer.address
         try:
             Client(address, family="AF_UNIX", authkey=b"not the key").send(model)
             refused = False
@@ -170,29 +169,6 @@ def test_a_process_forked_from_the_command_writes_through_the_helper(knock: str)
     assert seen["helper_still_served"] is True
     if knock == "stranger":
         assert seen["refused"] is True  # turned away at the handshake, nothing unpickled
-
-
-def _dump_in_forked_child(queue: Any) -> None:
-    X, y = load_breast_cancer(return_X_y=True)
-    queue.put(model_file.model_bytes(LogisticRegression(max_iter=5000).fit(X, y)))
-
-
-def test_a_forked_process_writes_its_own_file_through_a_writer_set_for_one_process() -> None:
-    X, y = load_breast_cancer(return_X_y=True)
-    expected = model_file.model_bytes_here(LogisticRegression(max_iter=5000).fit(X, y))
-    context = multiprocessing.get_context("fork")
-    queue = context.Queue()
-    model_file.set_writer(lambda model: b"from the parent's writer")
-    try:
-        assert model_file.model_bytes(object()) == b"from the parent's writer"
-        child = context.Process(target=_dump_in_forked_child, args=(queue,))
-        child.start()
-        written = queue.get(timeout=TIMEOUT)
-        child.join(TIMEOUT)
-    finally:
-        model_file.set_writer(None)
-    assert child.exitcode == 0
-    assert written == expected
 
 
 def test_the_command_line_job_hands_over_the_same_model_as_an_in_process_run(

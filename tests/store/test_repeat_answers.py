@@ -16,7 +16,7 @@ from sqlalchemy import select, update
 
 from service.config import load_settings
 from service.jobs.intake import answer_key as answer_keys
-from service.jobs.intake.answer_key import AnswerKey, answer_key, keyed, unchanged_since
+from service.jobs.intake.answer_key import AnswerKey, keyed, unchanged_since
 from service.jobs.local.driver import run_embedded
 from service.store.db import make_engine, make_session_factory
 from service.store.models import Job
@@ -37,7 +37,8 @@ REQUEST: dict[str, Any] = {
 
 
 def _key(data: Any, base_dir: Path, roots: tuple[Path, ...] = ()) -> str | None:
-    return answer_key(data, base_dir=base_dir, data_roots=roots)
+    key = keyed(data, base_dir=base_dir, data_roots=roots)
+    return None if key is None else key.value
 
 
 def test_the_key_follows_the_request_and_the_table_bytes(tmp_path: Path) -> None:

@@ -24,7 +24,6 @@ from __future__ import annotations
 import hashlib
 import io
 import json
-import os
 import re
 import zipfile
 from collections.abc import Callable
@@ -103,23 +102,22 @@ def _stable_zip(data: bytes) -> bytes:
 
 
 # A process that has not imported skops yet may hand its dumps to a helper process that imports
-# it meanwhile (model_writer.py): (the pid that set it, or None for every process forked from it
-# too, the writer). A writer that only works in the process that set it is keyed by that pid, so
-# a process forked from it, which inherits the setting, writes for itself.
-_writer: tuple[int | None, Callable[[Any], bytes]] | None = None
+# it meanwhile (model_writer.py). The setting is inherited by the processes forked from this one
+# (a local pool's), which reach the same helper.
+_writer: Callable[[Any], bytes] | None = None
 
 
-def set_writer(writer: Callable[[Any], bytes] | None, *, inherited: bool = False) -> None:
-    """Route `model_bytes` through `writer` (None: write here again), in this process only or,
-    `inherited`, in the processes forked from it as well."""
+def set_writer(writer: Callable[[Any], bytes] | None) -> None:
+    """Route `model_bytes`, here and in processes forked from here, through `writer` (None:
+    write here again)."""
     global _writer
-    _writer = None if writer is None else (None if inherited else os.getpid(), writer)
+    _writer = writer
 
 
 def model_bytes(model: Any) -> bytes:
     """The skops serialisation of `model`, identical for identical fitted models."""
-    if _writer is not None and _writer[0] in (None, os.getpid()):
-        return _writer[1](model)
+    if _writer is not None:
+        return _writer(model)
     return model_bytes_here(model)
 
 

@@ -121,7 +121,7 @@ def model_writer_aside() -> Iterator[None]:
         # only the helper keeps the socket open: once it is gone, a dump is refused at once
         # (and falls back to writing here) instead of waiting on a socket nobody serves
         listener.close()
-    model_file.set_writer(_SocketWriter(address, key), inherited=True)
+    model_file.set_writer(_SocketWriter(address, key))
     try:
         yield
     finally:

@@ -27,7 +27,7 @@ import time
 from dataclasses import dataclass
 from importlib import metadata
 from pathlib import Path
-from typing import Any
+from typing import Any, NamedTuple
 
 from service.datasets.paths import resolve_dataset_path
 from service.errors import BadInput
@@ -42,13 +42,23 @@ _READ_CHUNK = 1 << 20
 _RACY_NS = 3_000_000_000
 
 
+class Stamp(NamedTuple):
+    """What `os.stat` says of a file that any write or replacement changes."""
+
+    device: int
+    inode: int
+    size: int
+    mtime_ns: int
+    ctime_ns: int
+
+
 @dataclass(frozen=True)
 class FileRead:
     """The file a key hashed: the request's path, where it led, stamp, digest, stamped when."""
 
     raw: str
     path: Path
-    stamp: tuple[int, ...]
+    stamp: Stamp
     digest: str
     stamped_at_ns: int
 
@@ -59,12 +69,6 @@ class AnswerKey:
 
     value: str
     file: FileRead | None
-
-
-def answer_key(data: Any, *, base_dir: Path, data_roots: tuple[Path, ...]) -> str | None:
-    """The request's answer key, or None when no stored job may answer it (see `keyed`)."""
-    key = keyed(data, base_dir=base_dir, data_roots=data_roots)
-    return None if key is None else key.value
 
 
 def keyed(data: Any, *, base_dir: Path, data_roots: tuple[Path, ...]) -> AnswerKey | None:
@@ -111,7 +115,7 @@ def unchanged_since(key: AnswerKey, *, base_dir: Path, data_roots: tuple[Path, .
             return False
     except (BadInput, OSError):
         return False
-    if file.stamped_at_ns - file.stamp[3] > _RACY_NS:
+    if file.stamped_at_ns - file.stamp.mtime_ns > _RACY_NS:
         return True
     again = _hash_file(path)
     return again is not None and again[0] == file.digest
@@ -172,7 +176,7 @@ def _file_read(dataset: Any, *, base_dir: Path, data_roots: tuple[Path, ...]) ->
     return FileRead(raw, path, stamp, digest, stamped_at)
 
 
-def _hash_file(path: Path) -> tuple[str, tuple[int, ...]] | None:
+def _hash_file(path: Path) -> tuple[str, Stamp] | None:
     """(sha256, stamp) of the file's bytes; None if unreadable or written while it was read."""
     digest = hashlib.sha256()
     try:
@@ -186,12 +190,7 @@ def _hash_file(path: Path) -> tuple[str, tuple[int, ...]] | None:
     return (digest.hexdigest(), before) if before == after else None
 
 
-def _stamp(status: os.stat_result) -> tuple[int, ...]:
-    # the modification time is at index 3, read by unchanged_since
-    return (
-        status.st_dev,
-        status.st_ino,
-        status.st_size,
-        status.st_mtime_ns,
-        status.st_ctime_ns,
+def _stamp(status: os.stat_result) -> Stamp:
+    return Stamp(
+        status.st_dev, status.st_ino, status.st_size, status.st_mtime_ns, status.st_ctime_ns
     )
